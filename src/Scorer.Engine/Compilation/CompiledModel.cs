@@ -1,0 +1,256 @@
+using System.Collections.Frozen;
+using System.Collections.Immutable;
+using System.Globalization;
+using MathNet.Numerics.LinearAlgebra;
+using Scorer.ModelFile;
+
+namespace Scorer.Engine;
+
+/// <summary>
+/// A model version compiled once into dense arrays: feature lookup, the numeric columns (transformed, centred, scaled
+/// values), the terms as products of columns and indicators, the coefficients (prior-corrected), and a factor F of the
+/// covariance with V = F·Fᵀ (upper-triangular Cholesky factor when V is positive definite). Immutable and thread-safe.
+/// </summary>
+public sealed partial class CompiledModel
+{
+    internal const int Missing = -1;
+    internal const int Unknown = -2;
+
+    private readonly FrozenDictionary<string, int> _featureIndex;
+
+    // Features, by model feature index.
+    internal readonly FeatureKind[] Kinds;
+    internal readonly double[] Min;
+    internal readonly double[] Max;
+    internal readonly bool[] ImputeMean;
+    internal readonly double[] Mean;
+    internal readonly FrozenDictionary<string, int>?[] LevelIndex;
+    internal readonly Dictionary<double, int>?[] NumericLevelIndex;
+    internal readonly string[][] LevelNames;
+    internal readonly int[] ReferenceIndex;
+    internal readonly bool[] UnknownAsReference;
+
+    // Numeric columns: distinct (feature, transform, center, scale).
+    internal readonly int[] ColFeature;
+    internal readonly TransformKind[] ColTransform;
+    internal readonly double[] ColCenter;
+    internal readonly double[] ColScale;
+
+    // Terms: factors in FactorRef[TermStart[t] .. TermStart[t+1]); a ref r >= 0 is numeric column r, r < 0 is indicator ~r.
+    internal readonly int[] TermStart;
+    internal readonly int[] FactorRef;
+    internal readonly int[] IndicatorFeature;
+    internal readonly int[] IndicatorLevel;
+
+    internal readonly double[] Beta;
+
+    // Covariance factor U (= Fᵀ): row j holds U[j, first[j] .. k-1], packed; u = U·x and se² = |u|².
+    internal readonly double[]? Factor;
+    internal readonly int[]? FactorRowStart;
+    internal readonly int[]? FactorRowFirst;
+
+    internal CompiledModel(ModelDocument document)
+    {
+        Document = document;
+        var features = document.Features;
+        var n = features.Length;
+        FeatureNames = features.Select(f => f.Name).ToImmutableArray();
+        TermNames = document.Terms.Select(t => t.Name).ToImmutableArray();
+        _featureIndex = features.Select((f, i) => KeyValuePair.Create(f.Name, i)).ToFrozenDictionary(StringComparer.Ordinal);
+
+        Kinds = features.Select(f => f.Kind).ToArray();
+        Min = features.Select(f => f.Min ?? double.NegativeInfinity).ToArray();
+        Max = features.Select(f => f.Max ?? double.PositiveInfinity).ToArray();
+        ImputeMean = features.Select(f => f.Missing == MissingPolicy.Mean).ToArray();
+        Mean = features.Select(f => f.Mean ?? double.NaN).ToArray();
+        LevelNames = features.Select(f => f.Levels.ToArray()).ToArray();
+        LevelIndex = features.Select(f => f.Kind == FeatureKind.Categorical
+            ? f.Levels.Select((l, i) => KeyValuePair.Create(l, i)).ToFrozenDictionary(StringComparer.Ordinal)
+            : null).ToArray();
+        NumericLevelIndex = features.Select(NumericLevels).ToArray();
+        ReferenceIndex = features.Select(f => f.Reference is null ? Missing : f.Levels.IndexOf(f.Reference)).ToArray();
+        UnknownAsReference = features.Select(f => f.Unknown == UnknownLevelPolicy.Reference).ToArray();
+
+        var columns = new List<(int Feature, TransformKind T, double C, double S)>();
+        var indicators = new List<(int Feature, int Level)>();
+        var termStart = new List<int> { 0 };
+        var refs = new List<int>();
+        foreach (var term in document.Terms)
+        {
+            foreach (var factor in term.Factors)
+            {
+                var f = _featureIndex[factor.Feature];
+                if (factor.IsIndicator)
+                {
+                    var key = (f, features[f].Levels.IndexOf(factor.Level!));
+                    var i = indicators.IndexOf(key);
+                    if (i < 0)
+                    {
+                        indicators.Add(key);
+                        i = indicators.Count - 1;
+                    }
+
+                    refs.Add(~i);
+                }
+                else
+                {
+                    var key = (f, factor.Transform, factor.Center, factor.Scale);
+                    var c = columns.IndexOf(key);
+                    if (c < 0)
+                    {
+                        columns.Add(key);
+                        c = columns.Count - 1;
+                    }
+
+                    refs.Add(c);
+                }
+            }
+
+            termStart.Add(refs.Count);
+        }
+
+        ColFeature = columns.Select(c => c.Feature).ToArray();
+        ColTransform = columns.Select(c => c.T).ToArray();
+        ColCenter = columns.Select(c => c.C).ToArray();
+        ColScale = columns.Select(c => c.S).ToArray();
+        IndicatorFeature = indicators.Select(i => i.Feature).ToArray();
+        IndicatorLevel = indicators.Select(i => i.Level).ToArray();
+        TermStart = termStart.ToArray();
+        FactorRef = refs.ToArray();
+
+        Beta = document.Terms.Select(t => t.Coefficient).ToArray();
+        InterceptIndex = document.Terms.IndexOf(document.Terms.FirstOrDefault(t => t.IsIntercept)!);
+        if (document.Sampling is { } s && InterceptIndex >= 0)
+        {
+            InterceptCorrection = PriorCorrection(s);
+            Beta[InterceptIndex] += InterceptCorrection;
+        }
+
+        if (document.Covariance is { } cov)
+        {
+            (Factor, FactorRowStart, FactorRowFirst, FactorIsTriangular) = BuildFactor(cov);
+        }
+
+        MaxSe = document.Baseline?.MaxSe ?? double.PositiveInfinity;
+        Threshold = document.Threshold ?? double.NaN;
+    }
+
+    public ModelDocument Document { get; }
+    public string Name => Document.Model;
+    public string Version => Document.Version;
+    public LinkKind Link => Document.Link;
+    public int TermCount => Beta.Length;
+    public int FeatureCount => Kinds.Length;
+    public ImmutableArray<string> FeatureNames { get; }
+    public ImmutableArray<string> TermNames { get; }
+    public bool HasCovariance => Factor is not null;
+
+    /// <summary>True when the covariance is positive definite and its factor is the (upper) Cholesky factor.</summary>
+    public bool FactorIsTriangular { get; }
+
+    /// <summary>Index of the intercept term, or -1.</summary>
+    public int InterceptIndex { get; }
+
+    /// <summary>The shift added to the intercept at load by the prior correction (0 without <c>sampling</c>).</summary>
+    public double InterceptCorrection { get; }
+
+    /// <summary>The coefficients as scored (the intercept prior-corrected).</summary>
+    public ReadOnlySpan<double> Coefficients => Beta;
+
+    /// <summary>Largest training se(η), or +∞ when the baseline does not give it.</summary>
+    public double MaxSe { get; }
+
+    /// <summary>Decision threshold, or NaN.</summary>
+    public double Threshold { get; }
+
+    /// <summary>The largest number of warnings a row can get.</summary>
+    public int MaxWarningsPerRow => FeatureCount + 1;
+
+    public static CompiledModel Compile(ModelDocument document) => new(document);
+
+    /// <summary>Index of a feature by name, or -1.</summary>
+    public int FeatureIndexOf(string name) => _featureIndex.TryGetValue(name, out var i) ? i : -1;
+
+    public FeatureKind FeatureKindOf(int feature) => Kinds[feature];
+
+    public IReadOnlyList<string> Levels(int feature) => LevelNames[feature];
+
+    public string? ReferenceLevel(int feature) => ReferenceIndex[feature] >= 0 ? LevelNames[feature][ReferenceIndex[feature]] : null;
+
+    /// <summary>King &amp; Zeng (2001) prior correction: −ln[((1−τ)/τ)·(ȳ/(1−ȳ))].</summary>
+    internal static double PriorCorrection(SamplingSpec s)
+    {
+        var tau = s.PopulationEventRate;
+        var ybar = s.TrainingEventRate;
+        return -Math.Log((1 - tau) / tau * (ybar / (1 - ybar)));
+    }
+
+    private static Dictionary<double, int>? NumericLevels(FeatureSpec f)
+    {
+        if (f.Kind != FeatureKind.Categorical)
+        {
+            return null;
+        }
+
+        // Levels written as numbers ("1", "2.5") also match a JSON number in a row.
+        var map = new Dictionary<double, int>();
+        for (var i = 0; i < f.Levels.Length; i++)
+        {
+            if (double.TryParse(f.Levels[i], NumberStyles.Float, CultureInfo.InvariantCulture, out var d)
+                && d.ToString("R", CultureInfo.InvariantCulture) == f.Levels[i])
+            {
+                map.TryAdd(d, i);
+            }
+        }
+
+        return map.Count > 0 ? map : null;
+    }
+
+    private static (double[], int[], int[], bool) BuildFactor(ImmutableArray<ImmutableArray<double>> cov)
+    {
+        var k = cov.Length;
+        var v = Matrix<double>.Build.Dense(k, k, (i, j) => 0.5 * (cov[i][j] + cov[j][i]));
+        var start = new int[k + 1];
+        var first = new int[k];
+        try
+        {
+            // V = L·Lᵀ; U = Lᵀ is upper triangular: row j holds columns j..k-1.
+            var l = v.Cholesky().Factor;
+            var packed = new double[k * (k + 1) / 2];
+            var p = 0;
+            for (var j = 0; j < k; j++)
+            {
+                start[j] = p;
+                first[j] = j;
+                for (var i = j; i < k; i++)
+                {
+                    packed[p++] = l[i, j];
+                }
+            }
+
+            start[k] = p;
+            return (packed, start, first, true);
+        }
+        catch (ArgumentException)
+        {
+            // Semi-definite: V = Q·Λ·Qᵀ, F = Q·Λ^½, U = Fᵀ (full rows).
+        }
+
+        var evd = v.Evd(Symmetricity.Symmetric);
+        var full = new double[k * k];
+        for (var j = 0; j < k; j++)
+        {
+            var lambda = Math.Max(evd.EigenValues[j].Real, 0.0);
+            var root = Math.Sqrt(lambda);
+            start[j] = j * k;
+            first[j] = 0;
+            for (var i = 0; i < k; i++)
+            {
+                full[(j * k) + i] = evd.EigenVectors[i, j] * root;
+            }
+        }
+
+        start[k] = k * k;
+        return (full, start, first, false);
+    }
+}
