@@ -164,3 +164,17 @@ q <- data.frame(
 q$value <- ifelse(q$kind == "normal", qnorm(q$p), qchisq(q$p, q$df))
 q$value <- num(q$value)
 write.csv(q, file.path(out, "quantiles.csv"), row.names = FALSE, quote = FALSE, na = "")
+
+# --- Inverse links and their derivatives over the whole range of eta, tails included. ---
+eta <- c(-700, -300, -100, -37.5, -30, -20, -8, -3, -1, -1e-8, 0, 1e-8, 0.5, 1, 3, 8, 20, 30, 100, 700)
+links <- data.frame(
+  eta = num(eta),
+  logit = num(plogis(eta)), logit_d = num(dlogis(eta)),
+  probit = num(pnorm(eta)), probit_d = num(dnorm(eta)),
+  cloglog = num(-expm1(-exp(eta))), cloglog_d = num(exp(eta - exp(eta))))
+write.csv(links, file.path(out, "links.csv"), row.names = FALSE, quote = FALSE)
+
+# --- expm1 and log1p, including arguments where the naive formulas lose every digit. ---
+x <- c(-0.9999, -0.5, -0.1, -3.3546262790251185e-4, -1e-5, -1e-10, -1e-300, 1e-300, 1e-12, 1e-7, 1e-4, 0.01, 0.3, 0.7, 2, 50)
+write.csv(data.frame(x = num(x), expm1 = num(expm1(x)), log1p = num(log1p(x))),
+          file.path(out, "elementary.csv"), row.names = FALSE, quote = FALSE)

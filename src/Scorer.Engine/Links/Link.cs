@@ -36,7 +36,7 @@ public static class Link
     {
         LinkKind.Logit => Math.Log(mu / (1 - mu)),
         LinkKind.Probit => MathNet.Numerics.Distributions.Normal.InvCDF(0, 1, mu),
-        _ => Math.Log(-SpecialFunctions.Log1p(-mu)),
+        _ => Math.Log(-Numerics.Elementary.Log1P(-mu)),
     };
 
     /// <summary>1 / (1 + e^-η), evaluated on the side where the exponential cannot overflow.</summary>
@@ -67,7 +67,7 @@ public static class Link
 
     /// <summary>1 − exp(−e^η) as −expm1(−e^η), exact for small e^η.</summary>
     [MethodImpl(MethodImplOptions.AggressiveInlining)]
-    public static double InverseCLogLog(double eta) => -SpecialFunctions.Expm1(-Math.Exp(eta));
+    public static double InverseCLogLog(double eta) => -Numerics.Elementary.ExpM1(-Math.Exp(eta));
 
     [MethodImpl(MethodImplOptions.AggressiveInlining)]
     public static double CLogLogDerivative(double eta)

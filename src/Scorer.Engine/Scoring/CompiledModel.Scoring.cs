@@ -1,5 +1,4 @@
 using System.Runtime.CompilerServices;
-using MathNet.Numerics;
 using Scorer.Engine.Links;
 using Scorer.Engine.Scoring;
 using Scorer.ModelFile;
@@ -285,7 +284,7 @@ public sealed partial class CompiledModel
                         return new RowError(RowErrorKind.OutsideTransformDomain, f, v, "log1p needs a value above -1");
                     }
 
-                    t = SpecialFunctions.Log1p(v);
+                    t = Numerics.Elementary.Log1P(v);
                     break;
                 default:
                     if (!(v >= 0))
