@@ -335,15 +335,23 @@ public sealed partial class CompiledModel
             }
         }
 
+        var quadratic = settings.Band && Factor is not null ? QuadraticForm(x) : double.NaN;
+        return FinishFrom(eta, quadratic, settings, warnings, warningCount);
+    }
+
+    /// <summary>Probability, band, delta-method se and flag from η and x'Vx (NaN when there is no band).</summary>
+    [MethodImpl(MethodImplOptions.AggressiveInlining)]
+    private ScoredRow FinishFrom(double eta, double quadratic, in ScoreSettings settings, Span<RowWarning> warnings, int warningCount)
+    {
         var link = Link;
         ScoredRow r;
         r.Eta = eta;
         r.Probability = Links.Link.Inverse(link, eta);
         r.Flag = double.IsNaN(Threshold) ? (sbyte)-1 : r.Probability >= Threshold ? (sbyte)1 : (sbyte)0;
         r.Error = default;
-        if (settings.Band && Factor is not null)
+        if (!double.IsNaN(quadratic))
         {
-            var se = Math.Sqrt(QuadraticForm(x));
+            var se = Math.Sqrt(quadratic);
             var half = settings.Z * se;
             r.Se = se;
             r.Lower = Links.Link.Inverse(link, eta - half);

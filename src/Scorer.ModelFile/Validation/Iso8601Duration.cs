@@ -6,7 +6,8 @@ namespace Scorer.ModelFile.Validation;
 /// <summary>ISO 8601 durations such as <c>P30D</c>, <c>PT12H</c>, <c>P1Y2M</c>; a month counts as 30 days and a year as 365.</summary>
 internal static partial class Iso8601Duration
 {
-    [GeneratedRegex(@"^P(?!$)(?:(\d+)Y)?(?:(\d+)M)?(?:(\d+)W)?(?:(\d+)D)?(?:T(?=\d)(?:(\d+)H)?(?:(\d+)M)?(?:(\d+)S)?)?$", RegexOptions.CultureInvariant)]
+    // [0-9], not \d: in .NET \d also matches other scripts' digits, which double.Parse does not read.
+    [GeneratedRegex(@"^P(?!$)(?:([0-9]+)Y)?(?:([0-9]+)M)?(?:([0-9]+)W)?(?:([0-9]+)D)?(?:T(?=[0-9])(?:([0-9]+)H)?(?:([0-9]+)M)?(?:([0-9]+)S)?)?$", RegexOptions.CultureInvariant)]
     private static partial Regex Pattern();
 
     public static bool TryParse(string text, out TimeSpan value)

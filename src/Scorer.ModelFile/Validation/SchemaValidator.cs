@@ -13,25 +13,35 @@ internal static class SchemaValidator
 
     public static void Validate(JsonElement root, List<ModelFileProblem> problems)
     {
-        var results = Schema.Value.Evaluate(root, new EvaluationOptions { OutputFormat = OutputFormat.List });
+        var results = Schema.Value.Evaluate(root, new EvaluationOptions { OutputFormat = OutputFormat.Hierarchical });
         if (results.IsValid)
         {
             return;
         }
 
-        var seen = new HashSet<(string, string)>();
-        foreach (var detail in results.Details ?? [])
-        {
-            if (detail.IsValid || detail.Errors is null)
-            {
-                continue;
-            }
+        Collect(results, problems, new HashSet<(string, string)>());
+    }
 
-            var path = JsonPath.FromPointer(detail.InstanceLocation.ToString());
-            foreach (var (keyword, message) in detail.Errors)
+    /// <summary>
+    /// Reports the errors of the failing part of the result tree. Below a passing node nothing is an error (the branch
+    /// of a <c>oneOf</c> that did not match, when another did), and a failing <c>if</c> only means its <c>then</c> does
+    /// not apply.
+    /// </summary>
+    private static void Collect(EvaluationResults node, List<ModelFileProblem> problems, HashSet<(string, string)> seen)
+    {
+        if (node.IsValid || IsCondition(node))
+        {
+            return;
+        }
+
+        var children = node.Details ?? [];
+        if (node.Errors is { Count: > 0 } errors)
+        {
+            var path = JsonPath.FromPointer(node.InstanceLocation.ToString());
+            foreach (var (keyword, message) in errors)
             {
                 // oneOf/anyOf report a summary beside the branch errors; the branch errors say more.
-                if (keyword is "oneOf" or "anyOf" && detail.Errors.Count == 1 && HasDeeperError(results, detail))
+                if (keyword is "oneOf" or "anyOf" && children.Any(HasError))
                 {
                     continue;
                 }
@@ -42,22 +52,33 @@ internal static class SchemaValidator
                 }
             }
         }
+
+        foreach (var child in children)
+        {
+            Collect(child, problems, seen);
+        }
     }
 
-    private static bool HasDeeperError(EvaluationResults all, EvaluationResults summary)
+    private static bool IsCondition(EvaluationResults node)
     {
-        var prefix = summary.EvaluationPath.ToString();
-        return (all.Details ?? []).Any(d => !d.IsValid && d.Errors is { Count: > 0 } && !ReferenceEquals(d, summary)
-            && d.EvaluationPath.ToString().StartsWith(prefix + "/", StringComparison.Ordinal));
+        var path = node.EvaluationPath.ToString();
+        return path.EndsWith("/if", StringComparison.Ordinal) && !path.EndsWith("/properties/if", StringComparison.Ordinal);
     }
+
+    private static bool HasError(EvaluationResults node) =>
+        !node.IsValid && !IsCondition(node) && (node.Errors is { Count: > 0 } || (node.Details ?? []).Any(HasError));
 
     private static string Describe(string keyword, string message) => keyword switch
     {
-        "additionalProperties" or "false" => "unknown or misplaced field: " + message,
+        // A property that meets a `false` schema (additionalProperties: false, or a field forbidden for this type).
+        "" or "false" => "unknown or misplaced field",
+        "additionalProperties" => "unknown or misplaced field: " + message,
         _ => message,
     };
 
-    private static JsonSchema LoadSchema() => JsonSchema.FromText(SchemaText);
+    // A registry of its own: the global one refuses a second schema with the same $id, so another component that builds
+    // this schema as well would otherwise break the loader (or be broken by it).
+    private static JsonSchema LoadSchema() => JsonSchema.FromText(SchemaText, new BuildOptions { SchemaRegistry = new SchemaRegistry() });
 
     private static string ReadSchemaText()
     {

@@ -194,19 +194,25 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
         {
             i++;
             var path = $"$.terms[{i}]";
-            if (t.ValueKind != JsonValueKind.Object || Str(t, "name") is not { } name || Num(t, "coefficient") is not { } coefficient)
+            if (t.ValueKind != JsonValueKind.Object)
             {
                 continue;
             }
 
-            if (!names.TryAdd(name, i))
+            // A missing name or an unreadable coefficient has been reported already (schema or number check); the term
+            // is kept so that the covariance is still compared with the right number of terms.
+            var name = Str(t, "name");
+            var coefficient = Num(t, "coefficient") ?? double.NaN;
+            if (name is not null && !names.TryAdd(name, i))
             {
                 Error(path + ".name", $"duplicate term name '{name}' (also at $.terms[{names[name]}])");
             }
 
             var factors = ImmutableArray.CreateBuilder<FactorSpec>();
+            var declared = -1;
             if (t.TryGetProperty("factors", out var fa) && fa.ValueKind == JsonValueKind.Array)
             {
+                declared = fa.GetArrayLength();
                 var j = -1;
                 foreach (var fe in fa.EnumerateArray())
                 {
@@ -220,7 +226,9 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
                 CheckFactorsOfOneTerm(factors, path);
             }
 
-            if (factors.Count == 0)
+            // A term with a factor that could not be read (reported already) is neither an intercept nor an alias.
+            var complete = factors.Count == declared;
+            if (complete && factors.Count == 0)
             {
                 if (intercept >= 0)
                 {
@@ -231,12 +239,12 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
             }
 
             var key = string.Join("*", factors.Select(DesignKey).Order(StringComparer.Ordinal));
-            if (factors.Count > 0 && !designs.TryAdd(key, i))
+            if (complete && factors.Count > 0 && !designs.TryAdd(key, i))
             {
                 Error(path, $"term '{name}' has the same factors as $.terms[{designs[key]}]; the two are aliased");
             }
 
-            result.Add(new TermSpec(name, coefficient, factors.ToImmutable()));
+            result.Add(new TermSpec(name ?? "", coefficient, factors.ToImmutable()));
         }
 
         return result.ToImmutable();
@@ -469,9 +477,11 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
             return null;
         }
 
-        var n = b.TryGetProperty("n", out var ne) && ne.ValueKind == JsonValueKind.Number && ne.TryGetInt64(out var nv) ? nv : 0;
-        var events = b.TryGetProperty("events", out var ee) && ee.ValueKind == JsonValueKind.Number && ee.TryGetInt64(out var ev) ? ev : 0;
-        if (events > n)
+        long? nRead = b.TryGetProperty("n", out var ne) && ne.ValueKind == JsonValueKind.Number && ne.TryGetInt64(out var nv) ? nv : null;
+        long? eventsRead = b.TryGetProperty("events", out var ee) && ee.ValueKind == JsonValueKind.Number && ee.TryGetInt64(out var ev) ? ev : null;
+        var n = nRead ?? 0;
+        var events = eventsRead ?? 0;
+        if (nRead is not null && eventsRead is not null && events > n)
         {
             Error("$.baseline.events", $"{events} events is more than the {n} training rows");
         }
