@@ -18,6 +18,10 @@ public static class ModelFileReader
         MaxDepth = 16,
     };
 
+    // Documents this reader produced and found valid; a copy made with `with` is a new object and is checked again.
+    private static readonly System.Runtime.CompilerServices.ConditionalWeakTable<ModelDocument, object> Validated = new();
+    private static readonly object Sentinel = new();
+
     /// <summary>The JSON Schema the files are validated against (the text of docs/model-file.schema.json).</summary>
     public static string SchemaText => SchemaValidator.SchemaText;
 
@@ -55,6 +59,12 @@ public static class ModelFileReader
                 "raise ModelFileReaderOptions.MaxBytes if the model really is this large");
         }
 
+        // A UTF-8 byte order mark before the text is skipped (RFC 8259 section 8.1 lets a parser ignore it); some Windows editors write one.
+        if (utf8Json.Span.StartsWith("\uFEFF"u8))
+        {
+            utf8Json = utf8Json[3..];
+        }
+
         JsonDocument json;
         try
         {
@@ -81,7 +91,12 @@ public static class ModelFileReader
 
             SchemaValidator.Validate(root, problems);
             var document = root.ValueKind == JsonValueKind.Object ? new SemanticReader(options, problems).Read(root) : null;
-            var ok = !problems.Any(p => p.Severity == ProblemSeverity.Error);
+            var ok = document is not null && !problems.Any(p => p.Severity == ProblemSeverity.Error);
+            if (ok)
+            {
+                Validated.AddOrUpdate(document!, Sentinel);
+            }
+
             return new ModelFileLoadResult(ok ? document : null, problems);
         }
     }
@@ -97,6 +112,38 @@ public static class ModelFileReader
     {
         var result = ReadFile(path, options);
         return result.Document ?? throw new ModelFileException(result.Errors.ToList());
+    }
+
+    /// <summary>
+    /// Checks a document built in code (not read from a file) by every rule a file is checked by; returns the problems.
+    /// A document this reader returned is known to be valid and is not checked again.
+    /// </summary>
+    public static IReadOnlyList<ModelFileProblem> Validate(ModelDocument document, ModelFileReaderOptions? options = null)
+    {
+        if (Validated.TryGetValue(document, out _))
+        {
+            return [];
+        }
+
+        using var ms = new MemoryStream();
+        ModelFileWriter.Write(document, ms, indented: false);
+        var result = Read(ms.GetBuffer().AsMemory(0, (int)ms.Length), options);
+        if (result.IsValid)
+        {
+            Validated.AddOrUpdate(document, Sentinel);
+        }
+
+        return result.Problems;
+    }
+
+    /// <summary>Throws <see cref="ModelFileException"/> listing every error when <paramref name="document"/> breaks a rule.</summary>
+    public static void EnsureValid(ModelDocument document, ModelFileReaderOptions? options = null)
+    {
+        var errors = Validate(document, options).Where(p => p.Severity == ProblemSeverity.Error).ToList();
+        if (errors.Count > 0)
+        {
+            throw new ModelFileException(errors);
+        }
     }
 
     private static ModelFileLoadResult Failed(string path, string reason, string? hint = null) =>

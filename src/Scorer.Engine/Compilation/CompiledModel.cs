@@ -166,7 +166,15 @@ public sealed partial class CompiledModel
     /// <summary>The largest number of warnings a row can get.</summary>
     public int MaxWarningsPerRow => FeatureCount + 1;
 
-    public static CompiledModel Compile(ModelDocument document) => new(document);
+    /// <summary>
+    /// Compiles a valid document. One read from a file is valid already; one built in code is first checked by every
+    /// rule of the model file (<see cref="ModelFileException"/> lists what is wrong).
+    /// </summary>
+    public static CompiledModel Compile(ModelDocument document)
+    {
+        ModelFileReader.EnsureValid(document);
+        return new CompiledModel(document);
+    }
 
     /// <summary>Index of a feature by name, or -1.</summary>
     public int FeatureIndexOf(string name) => _featureIndex.TryGetValue(name, out var i) ? i : -1;
