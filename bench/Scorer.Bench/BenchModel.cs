@@ -72,7 +72,7 @@ internal static class BenchModel
             Model = "bench",
             Version = "1",
             Link = LinkKind.Logit,
-            Outcome = new OutcomeSpec("y", "event", "P30D", TimeSpan.FromDays(30), NegativesPolicy.Explicit),
+            Outcome = new OutcomeSpec("y", "event", "P30D", NegativesPolicy.Explicit),
             Features = [.. features],
             Terms = [.. terms],
             Covariance = cov,

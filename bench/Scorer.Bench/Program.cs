@@ -4,5 +4,15 @@ namespace Scorer.Bench;
 
 public static class Program
 {
-    public static void Main(string[] args) => BenchmarkSwitcher.FromAssembly(typeof(Program).Assembly).Run(args);
+    public static void Main(string[] args)
+    {
+        if (args.Length > 0 && args[0] == "--stages") { Stages.Run(); return; }
+        if (args.Length > 0 && args[0] == "--quick")
+        {
+            QuickRun.Run(args.Length > 1 ? int.Parse(args[1], System.Globalization.CultureInfo.InvariantCulture) : 7);
+            return;
+        }
+
+        BenchmarkSwitcher.FromAssembly(typeof(Program).Assembly).Run(args);
+    }
 }

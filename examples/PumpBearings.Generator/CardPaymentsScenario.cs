@@ -39,7 +39,7 @@ internal sealed class CardPaymentsScenario : Scenario
             "Complementary log-log link for a rare event. Fitted by examples/PumpBearings.Generator to simulated data; every number is invented. " +
             "Scores support review decisions; they do not replace fraud rules or the regulations that apply locally.",
         Link = LinkKind.CLogLog,
-        Outcome = new OutcomeSpec("chargeback_within_90d", "chargeback filed within 90 days of the payment", "P90D", TimeSpan.FromDays(90), NegativesPolicy.Implicit),
+        Outcome = new OutcomeSpec("chargeback_within_90d", "chargeback filed within 90 days of the payment", "P90D", NegativesPolicy.Implicit),
         Features =
         [
             new FeatureSpec { Name = "amount", Kind = FeatureKind.Numeric, Description = "Payment amount in the account currency" },

@@ -35,7 +35,7 @@ internal sealed class PumpBearingsScenario : Scenario
             "Fitted by examples/PumpBearings.Generator to simulated data; every number is invented. " +
             "Scores support maintenance decisions; they do not replace inspection or safety procedures.",
         Link = LinkKind.Logit,
-        Outcome = new OutcomeSpec("failed_within_30d", "bearing failure reported within 30 days", "P30D", TimeSpan.FromDays(30), NegativesPolicy.Implicit),
+        Outcome = new OutcomeSpec("failed_within_30d", "bearing failure reported within 30 days", "P30D", NegativesPolicy.Implicit),
         Features =
         [
             new FeatureSpec { Name = "vibration_rms", Kind = FeatureKind.Numeric, Description = "RMS vibration velocity at the bearing housing, mm/s" },

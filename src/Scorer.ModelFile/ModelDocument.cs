@@ -49,7 +49,12 @@ public enum NegativesPolicy
     Implicit,
 }
 
-public sealed record OutcomeSpec(string Name, string Positive, string Horizon, TimeSpan HorizonSpan, NegativesPolicy Negatives);
+/// <summary>What the model predicts: a 1 means <see cref="Positive"/> within <see cref="Horizon"/> (ISO 8601) of the prediction.</summary>
+public sealed record OutcomeSpec(string Name, string Positive, string Horizon, NegativesPolicy Negatives)
+{
+    /// <summary>The horizon as a time span (a month counts as 30 days, a year as 365); zero when the text is not a valid duration.</summary>
+    public TimeSpan HorizonSpan => Validation.Iso8601Duration.TryParse(Horizon, out var span) ? span : TimeSpan.Zero;
+}
 
 public enum FeatureKind
 {

@@ -126,7 +126,16 @@ public static class ModelFileReader
         }
 
         using var ms = new MemoryStream();
-        ModelFileWriter.Write(document, ms, indented: false);
+        try
+        {
+            ModelFileWriter.Write(document, ms, indented: false);
+        }
+        catch (ArgumentException ex)
+        {
+            // NaN or an infinity (Utf8JsonWriter refuses them), an undefined enum value: nothing a file could hold.
+            return [new ModelFileProblem(JsonPath.Root, "the document cannot be written as a model file: " + FirstSentence(ex.Message))];
+        }
+
         var result = Read(ms.GetBuffer().AsMemory(0, (int)ms.Length), options);
         if (result.IsValid)
         {

@@ -80,7 +80,7 @@ public sealed class BandPropertyTests
             Model = "tails",
             Version = "1",
             Link = link,
-            Outcome = new OutcomeSpec("y", "event", "P1D", TimeSpan.FromDays(1), NegativesPolicy.Explicit),
+            Outcome = new OutcomeSpec("y", "event", "P1D", NegativesPolicy.Explicit),
             Features = [new FeatureSpec { Name = "x", Kind = FeatureKind.Numeric }],
             Terms = [new TermSpec("(intercept)", 0, []), new TermSpec("x", 1, [new FactorSpec { Feature = "x" }])],
             Covariance = [[1.0, 0.0], [0.0, 4.0]],

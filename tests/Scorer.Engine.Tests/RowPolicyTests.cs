@@ -197,4 +197,18 @@ public sealed class RowPolicyTests
         var r = model.Score(Row(4.0, 60.0, "north"), ScoreSettings.Default);
         Assert.Equal(Math.Abs(1 + (2 * Math.Log(4))), r.Se, 12);
     }
+
+    [Fact]
+    public void A_feature_no_term_uses_is_not_required_in_a_row()
+    {
+        var doc = Models.Pump(tempMissing: MissingPolicy.Reject);
+        doc = doc with
+        {
+            Terms = [.. doc.Terms.Where(t => !t.Factors.Any(x => x.Feature == "temp"))],
+            Covariance = Models.Diagonal(5, 0.01),
+        };
+        var model = CompiledModel.Compile(doc);
+        var r = model.Score([new NamedValue("vibration", 2.0), new NamedValue("site", "east")], ScoreSettings.Default);
+        Assert.False(r.Failed, r.Error.ToString());
+    }
 }

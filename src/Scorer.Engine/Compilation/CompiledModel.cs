@@ -29,6 +29,7 @@ public sealed partial class CompiledModel
     internal readonly string[][] LevelNames;
     internal readonly int[] ReferenceIndex;
     internal readonly bool[] UnknownAsReference;
+    internal readonly bool[] Used; // by at least one term; an unused feature never rejects a row
 
     // Numeric columns: distinct (feature, transform, center, scale).
     internal readonly int[] ColFeature;
@@ -44,10 +45,11 @@ public sealed partial class CompiledModel
 
     internal readonly double[] Beta;
 
-    // Covariance factor U (= Fᵀ): row j holds U[j, first[j] .. k-1], packed; u = U·x and se² = |u|².
+    // Covariance factor F with V = F·Fᵀ, by rows: row i holds F[i, 0 .. len_i) packed from FactorRowStart[i]
+    // (len_i = i + 1 for the Cholesky factor, k otherwise). Fᵀx accumulates row by row: u[0..len_i) += F[i, ·]·x_i,
+    // and x'Vx = |u|².
     internal readonly double[]? Factor;
     internal readonly int[]? FactorRowStart;
-    internal readonly int[]? FactorRowFirst;
 
     internal CompiledModel(ModelDocument document)
     {
@@ -70,6 +72,8 @@ public sealed partial class CompiledModel
         NumericLevelIndex = features.Select(NumericLevels).ToArray();
         ReferenceIndex = features.Select(f => f.Reference is null ? Missing : f.Levels.IndexOf(f.Reference)).ToArray();
         UnknownAsReference = features.Select(f => f.Unknown == UnknownLevelPolicy.Reference).ToArray();
+        var used = document.Terms.SelectMany(t => t.Factors).Select(x => x.Feature).ToHashSet(StringComparer.Ordinal);
+        Used = features.Select(f => used.Contains(f.Name)).ToArray();
 
         var columns = new List<(int Feature, TransformKind T, double C, double S)>();
         var indicators = new List<(int Feature, int Level)>();
@@ -128,7 +132,7 @@ public sealed partial class CompiledModel
 
         if (document.Covariance is { } cov)
         {
-            (Factor, FactorRowStart, FactorRowFirst, FactorIsTriangular) = BuildFactor(cov);
+            (Factor, FactorRowStart, FactorIsTriangular) = BuildFactor(cov);
         }
 
         MaxSe = document.Baseline?.MaxSe ?? double.PositiveInfinity;
@@ -214,51 +218,46 @@ public sealed partial class CompiledModel
         return map.Count > 0 ? map : null;
     }
 
-    private static (double[], int[], int[], bool) BuildFactor(ImmutableArray<ImmutableArray<double>> cov)
+    private static (double[], int[], bool) BuildFactor(ImmutableArray<ImmutableArray<double>> cov)
     {
         var k = cov.Length;
         var v = Matrix<double>.Build.Dense(k, k, (i, j) => 0.5 * (cov[i][j] + cov[j][i]));
         var start = new int[k + 1];
-        var first = new int[k];
         try
         {
-            // V = L·Lᵀ; U = Lᵀ is upper triangular: row j holds columns j..k-1.
+            // V = L·Lᵀ, L lower triangular: row i holds L[i, 0..i].
             var l = v.Cholesky().Factor;
             var packed = new double[k * (k + 1) / 2];
             var p = 0;
-            for (var j = 0; j < k; j++)
+            for (var i = 0; i < k; i++)
             {
-                start[j] = p;
-                first[j] = j;
-                for (var i = j; i < k; i++)
+                start[i] = p;
+                for (var j = 0; j <= i; j++)
                 {
                     packed[p++] = l[i, j];
                 }
             }
 
             start[k] = p;
-            return (packed, start, first, true);
+            return (packed, start, true);
         }
         catch (ArgumentException)
         {
-            // Semi-definite: V = Q·Λ·Qᵀ, F = Q·Λ^½, U = Fᵀ (full rows).
+            // Only semi-definite (the loader has checked that much): V = Q·Λ·Qᵀ, F = Q·Λ^½.
         }
 
         var evd = v.Evd(Symmetricity.Symmetric);
         var full = new double[k * k];
-        for (var j = 0; j < k; j++)
+        for (var i = 0; i < k; i++)
         {
-            var lambda = Math.Max(evd.EigenValues[j].Real, 0.0);
-            var root = Math.Sqrt(lambda);
-            start[j] = j * k;
-            first[j] = 0;
-            for (var i = 0; i < k; i++)
+            start[i] = i * k;
+            for (var j = 0; j < k; j++)
             {
-                full[(j * k) + i] = evd.EigenVectors[i, j] * root;
+                full[(i * k) + j] = evd.EigenVectors[i, j] * Math.Sqrt(Math.Max(evd.EigenValues[j].Real, 0.0));
             }
         }
 
         start[k] = k * k;
-        return (full, start, first, false);
+        return (full, start, false);
     }
 }

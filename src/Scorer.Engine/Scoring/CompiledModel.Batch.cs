@@ -1,13 +1,15 @@
 using System.Runtime.CompilerServices;
 using System.Runtime.Intrinsics;
+using Scorer.Engine.Links;
 using Scorer.Engine.Scoring;
+using Scorer.ModelFile;
 
 namespace Scorer.Engine;
 
 /// <summary>
-/// The dense batch path: rows in model feature order (as <see cref="ScoreFeatures"/> takes them), scored a block of
-/// rows at a time. Each block's design rows are transposed so that η = x'β and |U·x|² run across the rows with SIMD
-/// (eight rows per step with Vector512, four with Vector256); the inverse links then run per row.
+/// The dense batch path: rows in model feature order (as <see cref="ScoreFeatures"/> takes them), scored eight rows at
+/// a time. Each block's design rows are transposed so that η = x'β and |Fᵀx|² run across the rows with SIMD, and
+/// where the machine has Vector512 the logit and cloglog inverse links run across the rows too (probit per row).
 /// </summary>
 public sealed partial class CompiledModel
 {
@@ -15,6 +17,7 @@ public sealed partial class CompiledModel
 
     /// <summary>Scores rows × <see cref="FeatureCount"/> values (row-major) into <paramref name="results"/>.</summary>
     /// <param name="warnings">Empty, or rows × <see cref="MaxWarningsPerRow"/> slots (row r's warnings start at r × MaxWarningsPerRow).</param>
+    [SkipLocalsInit]
     public void ScoreBatch(ReadOnlySpan<double> features, Span<ScoredRow> results, in ScoreSettings settings, Span<RowWarning> warnings = default)
     {
         var n = FeatureCount;
@@ -36,11 +39,13 @@ public sealed partial class CompiledModel
         Span<int> levels = n <= 64 ? stackalloc int[n] : new int[n];
         Span<double> x = k <= 128 ? stackalloc double[k] : new double[k];
         Span<double> block = k <= 128 ? stackalloc double[k * BlockRows] : new double[k * BlockRows];
+        Span<Vector512<double>> accumulators = k <= 128 ? stackalloc Vector512<double>[k] : new Vector512<double>[k];
         Span<double> eta = stackalloc double[BlockRows];
         Span<double> ss = stackalloc double[BlockRows];
         Span<bool> ok = stackalloc bool[BlockRows];
         Span<int> warningCounts = stackalloc int[BlockRows];
         var band = settings.Band && Factor is not null;
+        var vectorLinks = Vector512.IsHardwareAccelerated && Link != LinkKind.Probit;
 
         for (var r0 = 0; r0 < rows; r0 += BlockRows)
         {
@@ -70,16 +75,23 @@ public sealed partial class CompiledModel
                     }
                 }
 
+                var use = ok[lane];
                 for (var j = 0; j < k; j++)
                 {
-                    block[(j * BlockRows) + lane] = ok[lane] ? x[j] : 0.0;
+                    block[(j * BlockRows) + lane] = use ? x[j] : 0.0;
                 }
             }
 
             LinearPredictorBlock(block, eta);
             if (band)
             {
-                QuadraticFormBlock(block, ss);
+                QuadraticFormBlock(block, accumulators, ss);
+            }
+
+            if (vectorLinks && count == BlockRows && !ok.Contains(false))
+            {
+                FinishBlock(eta, ss, band, settings, results.Slice(r0, BlockRows), warningCounts, keepWarnings ? warnings.Slice(r0 * stride, BlockRows * stride) : default, stride);
+                continue;
             }
 
             for (var lane = 0; lane < count; lane++)
@@ -94,19 +106,28 @@ public sealed partial class CompiledModel
         }
     }
 
+    /// <summary>η for the eight rows of a block, with two independent partial sums.</summary>
     [MethodImpl(MethodImplOptions.AggressiveInlining)]
     private void LinearPredictorBlock(ReadOnlySpan<double> block, Span<double> eta)
     {
         var beta = Beta;
         if (Vector512.IsHardwareAccelerated)
         {
-            var e = Vector512<double>.Zero;
-            for (var j = 0; j < beta.Length; j++)
+            var e0 = Vector512<double>.Zero;
+            var e1 = Vector512<double>.Zero;
+            var j = 0;
+            for (; j + 2 <= beta.Length; j += 2)
             {
-                e = Vector512.FusedMultiplyAdd(Vector512.Create(beta[j]), Vector512.Create(block.Slice(j * BlockRows, 8)), e);
+                e0 = Vector512.FusedMultiplyAdd(Vector512.Create(beta[j]), Vector512.Create(block.Slice(j * BlockRows, 8)), e0);
+                e1 = Vector512.FusedMultiplyAdd(Vector512.Create(beta[j + 1]), Vector512.Create(block.Slice((j + 1) * BlockRows, 8)), e1);
             }
 
-            e.CopyTo(eta);
+            if (j < beta.Length)
+            {
+                e0 = Vector512.FusedMultiplyAdd(Vector512.Create(beta[j]), Vector512.Create(block.Slice(j * BlockRows, 8)), e0);
+            }
+
+            (e0 + e1).CopyTo(eta);
         }
         else if (Vector256.IsHardwareAccelerated)
         {
@@ -135,85 +156,116 @@ public sealed partial class CompiledModel
         }
     }
 
+    /// <summary>|Fᵀx|² for the eight rows of a block: one accumulator per column of F, so the multiply-adds are independent.</summary>
     [MethodImpl(MethodImplOptions.AggressiveInlining)]
-    private void QuadraticFormBlock(ReadOnlySpan<double> block, Span<double> ss)
+    private void QuadraticFormBlock(ReadOnlySpan<double> block, Span<Vector512<double>> acc, Span<double> ss)
     {
         var factor = Factor!;
         var start = FactorRowStart!;
-        var first = FactorRowFirst!;
         var k = Beta.Length;
         if (Vector512.IsHardwareAccelerated)
         {
-            var s = Vector512<double>.Zero;
-            for (var j = 0; j < k; j++)
+            acc[..k].Clear();
+            for (var i = 0; i < k; i++)
             {
-                var u = Vector512<double>.Zero;
-                var p = start[j];
-                for (var i = first[j]; i < k; i++, p++)
+                var xi = Vector512.Create(block.Slice(i * BlockRows, 8));
+                if (xi == Vector512<double>.Zero)
                 {
-                    u = Vector512.FusedMultiplyAdd(Vector512.Create(factor[p]), Vector512.Create(block.Slice(i * BlockRows, 8)), u);
+                    continue; // an indicator that is 0 in all eight rows
                 }
 
-                s = Vector512.FusedMultiplyAdd(u, u, s);
+                var p = start[i];
+                var len = start[i + 1] - p;
+                for (var j = 0; j < len; j++)
+                {
+                    acc[j] = Vector512.FusedMultiplyAdd(Vector512.Create(factor[p + j]), xi, acc[j]);
+                }
             }
 
-            s.CopyTo(ss);
+            var s0 = Vector512<double>.Zero;
+            var s1 = Vector512<double>.Zero;
+            var m = 0;
+            for (; m + 2 <= k; m += 2)
+            {
+                s0 = Vector512.FusedMultiplyAdd(acc[m], acc[m], s0);
+                s1 = Vector512.FusedMultiplyAdd(acc[m + 1], acc[m + 1], s1);
+            }
+
+            if (m < k)
+            {
+                s0 = Vector512.FusedMultiplyAdd(acc[m], acc[m], s0);
+            }
+
+            (s0 + s1).CopyTo(ss);
+            return;
         }
-        else if (Vector256.IsHardwareAccelerated)
-        {
-            var slo = Vector256<double>.Zero;
-            var shi = Vector256<double>.Zero;
-            for (var j = 0; j < k; j++)
-            {
-                var ulo = Vector256<double>.Zero;
-                var uhi = Vector256<double>.Zero;
-                var p = start[j];
-                for (var i = first[j]; i < k; i++, p++)
-                {
-                    var f = Vector256.Create(factor[p]);
-                    ulo = Vector256.FusedMultiplyAdd(f, Vector256.Create(block.Slice(i * BlockRows, 4)), ulo);
-                    uhi = Vector256.FusedMultiplyAdd(f, Vector256.Create(block.Slice((i * BlockRows) + 4, 4)), uhi);
-                }
 
-                slo = Vector256.FusedMultiplyAdd(ulo, ulo, slo);
-                shi = Vector256.FusedMultiplyAdd(uhi, uhi, shi);
+        // Without Vector512: per row, the same accumulation as the single-row path.
+        Span<double> x = k <= 256 ? stackalloc double[k] : new double[k];
+        for (var lane = 0; lane < BlockRows; lane++)
+        {
+            for (var i = 0; i < k; i++)
+            {
+                x[i] = block[(i * BlockRows) + lane];
             }
 
-            slo.CopyTo(ss);
-            shi.CopyTo(ss[4..]);
-        }
-        else
-        {
-            ss.Clear();
-            for (var j = 0; j < k; j++)
-            {
-                for (var lane = 0; lane < BlockRows; lane++)
-                {
-                    var u = 0.0;
-                    var p = start[j];
-                    for (var i = first[j]; i < k; i++, p++)
-                    {
-                        u += factor[p] * block[(i * BlockRows) + lane];
-                    }
-
-                    ss[lane] += u * u;
-                }
-            }
+            ss[lane] = QuadraticForm(x);
         }
     }
 
-    /// <summary>Copies the covariance factor U (V = UᵀU) into a full k × k row-major matrix, zeros where U has none.</summary>
+    /// <summary>Probability, band and delta-method se of eight rows at once (logit and cloglog, Vector512).</summary>
+    [MethodImpl(MethodImplOptions.AggressiveInlining)]
+    private void FinishBlock(ReadOnlySpan<double> eta, ReadOnlySpan<double> ss, bool band, in ScoreSettings settings, Span<ScoredRow> results,
+        ReadOnlySpan<int> warningCounts, Span<RowWarning> warnings, int stride)
+    {
+        var link = Link;
+        var e = Vector512.Create(eta);
+        var p = VectorLinks.Inverse(link, e);
+        var lower = Vector512.Create(double.NaN);
+        var upper = lower;
+        var pse = lower;
+        var se = lower;
+        if (band)
+        {
+            se = Vector512.Sqrt(Vector512.Create(ss));
+            var half = Vector512.Create(settings.Z) * se;
+            lower = VectorLinks.Inverse(link, e - half);
+            upper = VectorLinks.Inverse(link, e + half);
+            pse = VectorLinks.Derivative(link, e) * se;
+        }
+
+        var threshold = Threshold;
+        for (var lane = 0; lane < BlockRows; lane++)
+        {
+            ref var r = ref results[lane];
+            r.Eta = eta[lane];
+            r.Probability = p[lane];
+            r.Se = se[lane];
+            r.Lower = lower[lane];
+            r.Upper = upper[lane];
+            r.ProbabilitySe = pse[lane];
+            r.Flag = double.IsNaN(threshold) ? (sbyte)-1 : r.Probability >= threshold ? (sbyte)1 : (sbyte)0;
+            r.Error = default;
+            var count = warningCounts[lane];
+            if (band && r.Se > MaxSe * (1 + 1e-9))
+            {
+                AddWarning(warnings.IsEmpty ? default : warnings.Slice(lane * stride, stride), ref count, new RowWarning(RowWarningKind.HiddenExtrapolation, -1, r.Se, MaxSe));
+            }
+
+            r.WarningCount = count;
+        }
+    }
+
+    /// <summary>Copies the covariance factor F (V = F·Fᵀ) into a full k × k row-major matrix, zeros where F has none.</summary>
     internal void CopyCovarianceFactor(Span<double> full)
     {
         var k = TermCount;
         full[..(k * k)].Clear();
-        for (var j = 0; j < k; j++)
+        for (var i = 0; i < k; i++)
         {
-            var p = FactorRowStart![j];
-            for (var i = FactorRowFirst![j]; i < k; i++, p++)
-            {
-                full[(j * k) + i] = Factor![p];
-            }
+            var p = FactorRowStart![i];
+            var len = FactorRowStart[i + 1] - p;
+            Factor.AsSpan(p, len).CopyTo(full.Slice(i * k, len));
         }
     }
 }

@@ -1,3 +1,4 @@
+using Scorer.Engine.Numerics;
 using System.Runtime.CompilerServices;
 using Scorer.Engine.Links;
 using Scorer.Engine.Scoring;
@@ -202,6 +203,11 @@ public sealed partial class CompiledModel
     {
         for (var f = 0; f < values.Length; f++)
         {
+            if (!Used[f])
+            {
+                continue;
+            }
+
             if (Kinds[f] == FeatureKind.Numeric)
             {
                 var v = values[f];
@@ -321,11 +327,7 @@ public sealed partial class CompiledModel
     private ScoredRow Finish(ReadOnlySpan<double> x, in ScoreSettings settings, Span<double> contributions, Span<RowWarning> warnings, int warningCount)
     {
         var beta = Beta.AsSpan(0, x.Length);
-        var eta = 0.0;
-        for (var j = 0; j < beta.Length; j++)
-        {
-            eta += beta[j] * x[j];
-        }
+        var eta = Kernels.Dot(beta, x);
 
         if (contributions.Length >= beta.Length)
         {
@@ -371,28 +373,24 @@ public sealed partial class CompiledModel
         return r;
     }
 
-    /// <summary>x'Vx as |U·x|², U the covariance factor.</summary>
-    [MethodImpl(MethodImplOptions.AggressiveInlining)]
+    /// <summary>x'Vx as |Fᵀx|², F the covariance factor, accumulated row by row (rows where x_i = 0 cost nothing).</summary>
     internal double QuadraticForm(ReadOnlySpan<double> x)
     {
+        var k = x.Length;
+        Span<double> u = k <= 256 ? stackalloc double[k] : new double[k];
+        u.Clear();
         var factor = Factor!;
         var start = FactorRowStart!;
-        var first = FactorRowFirst!;
-        var sum = 0.0;
-        for (var j = 0; j < x.Length; j++)
+        for (var i = 0; i < k; i++)
         {
-            var row = factor.AsSpan(start[j], start[j + 1] - start[j]);
-            var xs = x[first[j]..];
-            var u = 0.0;
-            for (var i = 0; i < row.Length; i++)
+            var xi = x[i];
+            if (xi != 0)
             {
-                u += row[i] * xs[i];
+                Kernels.MultiplyAdd(u, factor.AsSpan(start[i], start[i + 1] - start[i]), xi);
             }
-
-            sum += u * u;
         }
 
-        return sum;
+        return Kernels.SumOfSquares(u);
     }
 
     private static void AddWarning(Span<RowWarning> warnings, ref int count, in RowWarning w)

@@ -69,8 +69,7 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
         }
 
         var horizon = Str(o, "horizon");
-        var span = TimeSpan.Zero;
-        if (horizon is not null && !Iso8601Duration.TryParse(horizon, out span))
+        if (horizon is not null && !Iso8601Duration.TryParse(horizon, out _))
         {
             Error("$.outcome.horizon", $"'{horizon}' is not a positive ISO 8601 duration", "for example P30D, PT12H or P3M");
             return null;
@@ -86,7 +85,7 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
         var positive = Str(o, "positive");
         return name is null || positive is null || horizon is null || negatives is null
             ? null
-            : new OutcomeSpec(name, positive, horizon, span, negatives.Value);
+            : new OutcomeSpec(name, positive, horizon, negatives.Value);
     }
 
     private ImmutableArray<FeatureSpec> ReadFeatures(JsonElement root)

@@ -14,7 +14,7 @@ internal static class Models
         Model = "pump",
         Version = "1",
         Link = LinkKind.Logit,
-        Outcome = new OutcomeSpec("failed", "failure within 30 days", "P30D", TimeSpan.FromDays(30), NegativesPolicy.Implicit),
+        Outcome = new OutcomeSpec("failed", "failure within 30 days", "P30D", NegativesPolicy.Implicit),
         Features =
         [
             new FeatureSpec { Name = "vibration", Kind = FeatureKind.Numeric, Min = 0.5, Max = 12 },
