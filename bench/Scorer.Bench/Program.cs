@@ -6,7 +6,6 @@ public static class Program
 {
     public static void Main(string[] args)
     {
-        if (args.Length > 0 && args[0] == "--stages") { Stages.Run(); return; }
         if (args.Length > 0 && args[0] == "--quick")
         {
             QuickRun.Run(args.Length > 1 ? int.Parse(args[1], System.Globalization.CultureInfo.InvariantCulture) : 7);
