@@ -16,6 +16,7 @@ internal sealed class Ceiling
     private readonly int _k;
     private readonly double[] _beta;
     private readonly double[] _l; // k × k row-major, lower triangular
+    private readonly double[] _lt; // its transpose
 
     public Ceiling(CompiledModel model)
     {
@@ -23,6 +24,14 @@ internal sealed class Ceiling
         _beta = model.Coefficients.ToArray();
         _l = new double[_k * _k];
         model.CopyCovarianceFactor(_l);
+        _lt = new double[_k * _k];
+        for (var i = 0; i < _k; i++)
+        {
+            for (var j = 0; j < _k; j++)
+            {
+                _lt[(j * _k) + i] = _l[(i * _k) + j];
+            }
+        }
     }
 
     [SkipLocalsInit]
@@ -67,6 +76,77 @@ internal sealed class Ceiling
                 }
 
                 se[r] = Math.Sqrt(s);
+            }
+        }
+    }
+
+    /// <summary>As <see cref="Simd"/> but accumulating |Lᵀx|² by rows of Lᵀ (each u_j a chain of multiply-adds in a register).</summary>
+    [SkipLocalsInit]
+    public void SimdRows(double[] design, double[] eta, double[] se, bool band)
+    {
+        const int W = 8;
+        var k = _k;
+        Span<double> block = stackalloc double[k * W];
+        for (var r0 = 0; r0 + W <= eta.Length; r0 += W)
+        {
+            for (var lane = 0; lane < W; lane++)
+            {
+                var x = design.AsSpan((r0 + lane) * k, k);
+                for (var j = 0; j < k; j++)
+                {
+                    block[(j * W) + lane] = x[j];
+                }
+            }
+
+            var e0 = Vector512<double>.Zero;
+            var e1 = Vector512<double>.Zero;
+            var jj = 0;
+            for (; jj + 2 <= k; jj += 2)
+            {
+                e0 = Vector512.FusedMultiplyAdd(Vector512.Create(_beta[jj]), Vector512.Create<double>(block.Slice(jj * W, W)), e0);
+                e1 = Vector512.FusedMultiplyAdd(Vector512.Create(_beta[jj + 1]), Vector512.Create<double>(block.Slice((jj + 1) * W, W)), e1);
+            }
+
+            if (jj < k)
+            {
+                e0 = Vector512.FusedMultiplyAdd(Vector512.Create(_beta[jj]), Vector512.Create<double>(block.Slice(jj * W, W)), e0);
+            }
+
+            (e0 + e1).StoreUnsafe(ref eta[r0]);
+            if (band)
+            {
+                var s0 = Vector512<double>.Zero;
+                var s1 = Vector512<double>.Zero;
+                var j = 0;
+                for (; j + 2 <= k; j += 2)
+                {
+                    // u_j = Σ_{i ≥ j} L[i, j]·x_i, two rows of Lᵀ at once for two independent chains.
+                    var u0 = Vector512<double>.Zero;
+                    var u1 = Vector512<double>.Zero;
+                    u0 = Vector512.FusedMultiplyAdd(Vector512.Create(_lt[(j * k) + j]), Vector512.Create<double>(block.Slice(j * W, W)), u0);
+                    for (var i = j + 1; i < k; i++)
+                    {
+                        var xi = Vector512.Create<double>(block.Slice(i * W, W));
+                        u0 = Vector512.FusedMultiplyAdd(Vector512.Create(_lt[(j * k) + i]), xi, u0);
+                        u1 = Vector512.FusedMultiplyAdd(Vector512.Create(_lt[((j + 1) * k) + i]), xi, u1);
+                    }
+
+                    s0 = Vector512.FusedMultiplyAdd(u0, u0, s0);
+                    s1 = Vector512.FusedMultiplyAdd(u1, u1, s1);
+                }
+
+                if (j < k)
+                {
+                    var u = Vector512<double>.Zero;
+                    for (var i = j; i < k; i++)
+                    {
+                        u = Vector512.FusedMultiplyAdd(Vector512.Create(_lt[(j * k) + i]), Vector512.Create<double>(block.Slice(i * W, W)), u);
+                    }
+
+                    s0 = Vector512.FusedMultiplyAdd(u, u, s0);
+                }
+
+                Vector512.Sqrt(s0 + s1).StoreUnsafe(ref se[r0]);
             }
         }
     }

@@ -81,4 +81,7 @@ public class ScoringBenchmarks
 
     [Benchmark(OperationsPerInvoke = BenchModel.Rows)]
     public void CeilingSimd() => _ceiling.Simd(_design, _eta, _se, Band);
+
+    [Benchmark(OperationsPerInvoke = BenchModel.Rows)]
+    public void CeilingSimdRows() => _ceiling.SimdRows(_design, _eta, _se, Band);
 }

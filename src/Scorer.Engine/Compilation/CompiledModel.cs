@@ -37,7 +37,8 @@ public sealed partial class CompiledModel
     internal readonly double[] ColCenter;
     internal readonly double[] ColScale;
 
-    // Terms: factors in FactorRef[TermStart[t] .. TermStart[t+1]); a ref r >= 0 is numeric column r, r < 0 is indicator ~r.
+    // Terms: factors in FactorRef[TermStart[t] .. TermStart[t+1]), each an index into the row's value table: numeric
+    // columns first (0 .. columns-1), then indicators (columns + i). A term's value is the product of its entries.
     internal readonly int[] TermStart;
     internal readonly int[] FactorRef;
     internal readonly int[] IndicatorFeature;
@@ -50,6 +51,12 @@ public sealed partial class CompiledModel
     // and x'Vx = |u|².
     internal readonly double[]? Factor;
     internal readonly int[]? FactorRowStart;
+
+    // The same factor transposed, for the block kernel: row j holds Fᵀ[j, FactorTFirst[j] .. k) packed from
+    // FactorTStart[j] (FactorTFirst[j] = j for the Cholesky factor, 0 otherwise), so u_j = Σ_i Fᵀ[j, i]·x_i.
+    internal readonly double[]? FactorT;
+    internal readonly int[]? FactorTStart;
+    internal readonly int[]? FactorTFirst;
 
     internal CompiledModel(ModelDocument document)
     {
@@ -120,7 +127,7 @@ public sealed partial class CompiledModel
         IndicatorFeature = indicators.Select(i => i.Feature).ToArray();
         IndicatorLevel = indicators.Select(i => i.Level).ToArray();
         TermStart = termStart.ToArray();
-        FactorRef = refs.ToArray();
+        FactorRef = refs.Select(r => r >= 0 ? r : columns.Count + ~r).ToArray();
 
         Beta = document.Terms.Select(t => t.Coefficient).ToArray();
         InterceptIndex = document.Terms.IndexOf(document.Terms.FirstOrDefault(t => t.IsIntercept)!);
@@ -133,6 +140,7 @@ public sealed partial class CompiledModel
         if (document.Covariance is { } cov)
         {
             (Factor, FactorRowStart, FactorIsTriangular) = BuildFactor(cov);
+            (FactorT, FactorTStart, FactorTFirst) = Transpose(Factor, FactorRowStart, FactorIsTriangular);
         }
 
         MaxSe = document.Baseline?.MaxSe ?? double.PositiveInfinity;
@@ -259,5 +267,27 @@ public sealed partial class CompiledModel
 
         start[k] = k * k;
         return (full, start, false);
+    }
+
+    private static (double[], int[], int[]) Transpose(double[] factor, int[] rowStart, bool triangular)
+    {
+        var k = rowStart.Length - 1;
+        var start = new int[k + 1];
+        var first = new int[k];
+        var t = new double[factor.Length];
+        var p = 0;
+        for (var j = 0; j < k; j++)
+        {
+            start[j] = p;
+            first[j] = triangular ? j : 0;
+            for (var i = first[j]; i < k; i++)
+            {
+                // F[i, j] exists when j < length of row i.
+                t[p++] = j < rowStart[i + 1] - rowStart[i] ? factor[rowStart[i] + j] : 0.0;
+            }
+        }
+
+        start[k] = p;
+        return (t, start, first);
     }
 }

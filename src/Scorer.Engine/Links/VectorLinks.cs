@@ -50,4 +50,13 @@ internal static class VectorLinks
         var expm1 = Vector512.ConditionalSelect(small, Vector512.ConditionalSelect(unit, y, corrected), um1);
         return -expm1;
     }
+
+    /// <summary>ln(1 + x) for x &gt; −1, corrected as in <see cref="Numerics.Elementary.Log1P"/>.</summary>
+    [MethodImpl(MethodImplOptions.AggressiveInlining)]
+    public static Vector512<double> Log1P(Vector512<double> x)
+    {
+        var u = Vector512<double>.One + x;
+        var corrected = Vector512.Log(u) * x / (u - Vector512<double>.One);
+        return Vector512.ConditionalSelect(Vector512.Equals(u, Vector512<double>.One), x, corrected);
+    }
 }

@@ -39,17 +39,44 @@ public sealed partial class CompiledModel
         Span<int> levels = n <= 64 ? stackalloc int[n] : new int[n];
         Span<double> x = k <= 128 ? stackalloc double[k] : new double[k];
         Span<double> block = k <= 128 ? stackalloc double[k * BlockRows] : new double[k * BlockRows];
-        Span<Vector512<double>> accumulators = k <= 128 ? stackalloc Vector512<double>[k] : new Vector512<double>[k];
         Span<double> eta = stackalloc double[BlockRows];
         Span<double> ss = stackalloc double[BlockRows];
         Span<bool> ok = stackalloc bool[BlockRows];
         Span<int> warningCounts = stackalloc int[BlockRows];
         var band = settings.Band && Factor is not null;
         var vectorLinks = Vector512.IsHardwareAccelerated && Link != LinkKind.Probit;
+        var vectorDesign = Vector512.IsHardwareAccelerated && n <= 128 && ColFeature.Length + IndicatorFeature.Length <= 256;
+        Span<Vector512<double>> featureVectors = vectorDesign ? stackalloc Vector512<double>[n] : default;
+        Span<Vector512<double>> columnVectors = vectorDesign ? stackalloc Vector512<double>[ColFeature.Length + IndicatorFeature.Length] : default;
 
         for (var r0 = 0; r0 < rows; r0 += BlockRows)
         {
             var count = Math.Min(BlockRows, rows - r0);
+            if (vectorDesign && count == BlockRows && TryDesignBlock(features.Slice(r0 * n, BlockRows * n), featureVectors, columnVectors, block))
+            {
+                LinearPredictorBlock(block, eta);
+                if (band)
+                {
+                    QuadraticFormBlock(block, ss);
+                }
+
+                warningCounts.Clear();
+                if (vectorLinks)
+                {
+                    FinishBlock(eta, ss, band, settings, results.Slice(r0, BlockRows), warningCounts, keepWarnings ? warnings.Slice(r0 * stride, BlockRows * stride) : default, stride);
+                }
+                else
+                {
+                    for (var lane = 0; lane < BlockRows; lane++)
+                    {
+                        var r = r0 + lane;
+                        results[r] = FinishFrom(eta[lane], band ? ss[lane] : double.NaN, settings, keepWarnings ? warnings.Slice(r * stride, stride) : default, 0);
+                    }
+                }
+
+                continue;
+            }
+
             for (var lane = 0; lane < BlockRows; lane++)
             {
                 ok[lane] = false;
@@ -85,7 +112,7 @@ public sealed partial class CompiledModel
             LinearPredictorBlock(block, eta);
             if (band)
             {
-                QuadraticFormBlock(block, accumulators, ss);
+                QuadraticFormBlock(block, ss);
             }
 
             if (vectorLinks && count == BlockRows && !ok.Contains(false))
@@ -104,6 +131,107 @@ public sealed partial class CompiledModel
                 }
             }
         }
+    }
+
+    /// <summary>
+    /// Builds the design of eight rows at once, term-major (<c>block[term * 8 + lane]</c>), when the block is clean:
+    /// every used value present, finite, inside the training range, a valid level code, inside its transform's domain.
+    /// Anything else (a warning or an error to report) returns false, and the caller scores those rows one by one.
+    /// </summary>
+    [MethodImpl(MethodImplOptions.AggressiveInlining)]
+    private bool TryDesignBlock(ReadOnlySpan<double> features, Span<Vector512<double>> fv, Span<Vector512<double>> cv, Span<double> block)
+    {
+        var n = FeatureCount;
+        if (features.Length < BlockRows * n)
+        {
+            return false;
+        }
+
+        for (var f = 0; f < n; f++)
+        {
+            if (!Used[f])
+            {
+                continue;
+            }
+
+            // Built from scalars rather than stored and reloaded, which would stall on store forwarding.
+            var v = Vector512.Create(features[f], features[n + f], features[(2 * n) + f], features[(3 * n) + f],
+                features[(4 * n) + f], features[(5 * n) + f], features[(6 * n) + f], features[(7 * n) + f]);
+            if (Kinds[f] == FeatureKind.Numeric)
+            {
+                // NaN fails both comparisons, so missing values leave the fast path too.
+                if (!Vector512.GreaterThanOrEqualAll(v, Vector512.Create(Min[f])) || !Vector512.LessThanOrEqualAll(v, Vector512.Create(Max[f])))
+                {
+                    return false;
+                }
+            }
+            else if (!Vector512.GreaterThanOrEqualAll(v, Vector512<double>.Zero) || !Vector512.LessThanAll(v, Vector512.Create((double)LevelNames[f].Length))
+                || !Vector512.EqualsAll(Vector512.Floor(v), v))
+            {
+                return false;
+            }
+
+            fv[f] = v;
+        }
+
+        for (var c = 0; c < ColFeature.Length; c++)
+        {
+            var v = fv[ColFeature[c]];
+            Vector512<double> t;
+            switch (ColTransform[c])
+            {
+                case TransformKind.Identity:
+                    t = v;
+                    break;
+                case TransformKind.Log:
+                    if (!Vector512.GreaterThanAll(v, Vector512<double>.Zero))
+                    {
+                        return false;
+                    }
+
+                    t = Vector512.Log(v);
+                    break;
+                case TransformKind.Sqrt:
+                    if (!Vector512.GreaterThanOrEqualAll(v, Vector512<double>.Zero))
+                    {
+                        return false;
+                    }
+
+                    t = Vector512.Sqrt(v);
+                    break;
+                default:
+                    if (!Vector512.GreaterThanAll(v, Vector512.Create(-1.0)))
+                    {
+                        return false;
+                    }
+
+                    t = VectorLinks.Log1P(v);
+                    break;
+            }
+
+            cv[c] = (t - Vector512.Create(ColCenter[c])) / Vector512.Create(ColScale[c]);
+        }
+
+        var cols = ColFeature.Length;
+        for (var i = 0; i < IndicatorFeature.Length; i++)
+        {
+            cv[cols + i] = Vector512.ConditionalSelect(Vector512.Equals(fv[IndicatorFeature[i]], Vector512.Create((double)IndicatorLevel[i])), Vector512<double>.One, Vector512<double>.Zero);
+        }
+
+        var refs = FactorRef;
+        var starts = TermStart;
+        for (var j = 0; j < Beta.Length; j++)
+        {
+            var value = Vector512<double>.One;
+            for (var p = starts[j]; p < starts[j + 1]; p++)
+            {
+                value *= cv[refs[p]];
+            }
+
+            value.CopyTo(block.Slice(j * BlockRows, BlockRows));
+        }
+
+        return true;
     }
 
     /// <summary>η for the eight rows of a block, with two independent partial sums.</summary>
@@ -158,42 +286,50 @@ public sealed partial class CompiledModel
 
     /// <summary>|Fᵀx|² for the eight rows of a block: one accumulator per column of F, so the multiply-adds are independent.</summary>
     [MethodImpl(MethodImplOptions.AggressiveInlining)]
-    private void QuadraticFormBlock(ReadOnlySpan<double> block, Span<Vector512<double>> acc, Span<double> ss)
+    private void QuadraticFormBlock(ReadOnlySpan<double> block, Span<double> ss)
     {
-        var factor = Factor!;
-        var start = FactorRowStart!;
         var k = Beta.Length;
         if (Vector512.IsHardwareAccelerated)
         {
-            acc[..k].Clear();
-            for (var i = 0; i < k; i++)
-            {
-                var xi = Vector512.Create(block.Slice(i * BlockRows, 8));
-                if (xi == Vector512<double>.Zero)
-                {
-                    continue; // an indicator that is 0 in all eight rows
-                }
-
-                var p = start[i];
-                var len = start[i + 1] - p;
-                for (var j = 0; j < len; j++)
-                {
-                    acc[j] = Vector512.FusedMultiplyAdd(Vector512.Create(factor[p + j]), xi, acc[j]);
-                }
-            }
-
+            // u_j = Σ_i Fᵀ[j, i]·x_i as a chain of multiply-adds in a register; two rows of Fᵀ at a time for two chains.
+            var t = FactorT!;
+            var tStart = FactorTStart!;
+            var tFirst = FactorTFirst!;
             var s0 = Vector512<double>.Zero;
             var s1 = Vector512<double>.Zero;
-            var m = 0;
-            for (; m + 2 <= k; m += 2)
+            var j = 0;
+            for (; j + 2 <= k; j += 2)
             {
-                s0 = Vector512.FusedMultiplyAdd(acc[m], acc[m], s0);
-                s1 = Vector512.FusedMultiplyAdd(acc[m + 1], acc[m + 1], s1);
+                var u0 = Vector512<double>.Zero;
+                var u1 = Vector512<double>.Zero;
+                int p0 = tStart[j], p1 = tStart[j + 1];
+                int f0 = tFirst[j], f1 = tFirst[j + 1];
+                for (var i = f0; i < f1; i++)
+                {
+                    u0 = Vector512.FusedMultiplyAdd(Vector512.Create(t[p0++]), Vector512.Create(block.Slice(i * BlockRows, 8)), u0);
+                }
+
+                for (var i = f1; i < k; i++)
+                {
+                    var xi = Vector512.Create(block.Slice(i * BlockRows, 8));
+                    u0 = Vector512.FusedMultiplyAdd(Vector512.Create(t[p0++]), xi, u0);
+                    u1 = Vector512.FusedMultiplyAdd(Vector512.Create(t[p1++]), xi, u1);
+                }
+
+                s0 = Vector512.FusedMultiplyAdd(u0, u0, s0);
+                s1 = Vector512.FusedMultiplyAdd(u1, u1, s1);
             }
 
-            if (m < k)
+            if (j < k)
             {
-                s0 = Vector512.FusedMultiplyAdd(acc[m], acc[m], s0);
+                var u = Vector512<double>.Zero;
+                var p = tStart[j];
+                for (var i = tFirst[j]; i < k; i++)
+                {
+                    u = Vector512.FusedMultiplyAdd(Vector512.Create(t[p++]), Vector512.Create(block.Slice(i * BlockRows, 8)), u);
+                }
+
+                s0 = Vector512.FusedMultiplyAdd(u, u, s0);
             }
 
             (s0 + s1).CopyTo(ss);

@@ -265,7 +265,8 @@ public sealed partial class CompiledModel
     internal RowError Design(ReadOnlySpan<double> values, ReadOnlySpan<int> levels, Span<double> x)
     {
         var cols = ColFeature.Length;
-        Span<double> col = cols <= 256 ? stackalloc double[cols] : new double[cols];
+        var size = cols + IndicatorFeature.Length;
+        Span<double> col = size <= 256 ? stackalloc double[size] : new double[size];
         for (var c = 0; c < cols; c++)
         {
             var f = ColFeature[c];
@@ -305,15 +306,26 @@ public sealed partial class CompiledModel
             col[c] = (t - ColCenter[c]) / ColScale[c];
         }
 
+        for (var i = 0; i < IndicatorFeature.Length; i++)
+        {
+            col[cols + i] = levels[IndicatorFeature[i]] == IndicatorLevel[i] ? 1.0 : 0.0;
+        }
+
         var refs = FactorRef;
         var starts = TermStart;
         for (var j = 0; j < x.Length; j++)
         {
-            var value = 1.0;
-            for (var p = starts[j]; p < starts[j + 1]; p++)
+            int p = starts[j], end = starts[j + 1];
+            if (end - p == 1)
             {
-                var r = refs[p];
-                value *= r >= 0 ? col[r] : (levels[IndicatorFeature[~r]] == IndicatorLevel[~r] ? 1.0 : 0.0);
+                x[j] = col[refs[p]];
+                continue;
+            }
+
+            var value = 1.0;
+            for (; p < end; p++)
+            {
+                value *= col[refs[p]];
             }
 
             x[j] = value;
