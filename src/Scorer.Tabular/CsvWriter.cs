@@ -1,6 +1,6 @@
 using System.Globalization;
 
-namespace Scorer.Cli.Csv;
+namespace Scorer.Tabular;
 
 /// <summary>Writes CSV records; quotes a field only when it must; numbers in shortest round-trip form.</summary>
 public sealed class CsvWriter(TextWriter writer, char separator = ',')

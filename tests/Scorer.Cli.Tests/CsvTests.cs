@@ -1,4 +1,4 @@
-using Scorer.Cli.Csv;
+using Scorer.Tabular;
 
 namespace Scorer.Cli.Tests;
 
@@ -8,7 +8,7 @@ public sealed class CsvTests
     [Fact]
     public void Quoted_fields_keep_commas_quotes_and_line_breaks()
     {
-        var reader = new CsvReader(new StringReader("a,\"b,c\",\"say \"\"hi\"\"\",\"two\nlines\"\r\nx,,z\n"));
+        using var reader = new CsvReader(new StringReader("a,\"b,c\",\"say \"\"hi\"\"\",\"two\nlines\"\r\nx,,z\n"));
         var fields = new List<string>();
         Assert.True(reader.TryRead(fields));
         Assert.Equal(["a", "b,c", "say \"hi\"", "two\nlines"], fields);
@@ -42,5 +42,34 @@ public sealed class CsvTests
         new CsvReader(new StringReader(sw.ToString())).TryRead(fields);
         Assert.Equal(["plain", "with,comma", "with \"quote\"", "0.30000000000000004", ""], fields);
         Assert.Equal(0.1 + 0.2, double.Parse(fields[3], System.Globalization.CultureInfo.InvariantCulture));
+    }
+
+    [Fact]
+    public void Fields_and_records_that_cross_the_read_buffer_come_out_whole()
+    {
+        // 70,000-character fields (longer than the 64 Ki-character buffer), quoted and plain, across many records.
+        var big = new string('x', 70_000);
+        var text = string.Concat(Enumerable.Range(0, 50).Select(i => $"{i},\"{big}\"\"q\",{big}\r\n"));
+        using var reader = new CsvReader(new StringReader(text));
+        var fields = new List<string>();
+        for (var i = 0; i < 50; i++)
+        {
+            Assert.True(reader.TryRead(fields));
+            Assert.Equal([i.ToString(System.Globalization.CultureInfo.InvariantCulture), big + "\"q", big], fields);
+        }
+
+        Assert.False(reader.TryRead(fields));
+    }
+
+    [Fact]
+    public void A_last_record_without_a_line_end_and_a_trailing_empty_field_are_read()
+    {
+        using var reader = new CsvReader(new StringReader("a,b,\n1,2,"));
+        var fields = new List<string>();
+        Assert.True(reader.TryRead(fields));
+        Assert.Equal(["a", "b", ""], fields);
+        Assert.True(reader.TryRead(fields));
+        Assert.Equal(["1", "2", ""], fields);
+        Assert.False(reader.TryRead(fields));
     }
 }

@@ -1,3 +1,5 @@
+using Scorer.Tabular;
+
 using System.Globalization;
 
 namespace Scorer.Cli.Tests;
@@ -107,7 +109,7 @@ public sealed class ScoreCommandTests : IDisposable
     private static List<Dictionary<string, string>> ReadCsv(string path)
     {
         using var reader = new StreamReader(path);
-        var csv = new Csv.CsvReader(reader);
+        var csv = new CsvReader(reader);
         var header = new List<string>();
         csv.TryRead(header);
         var rows = new List<Dictionary<string, string>>();

@@ -1,6 +1,6 @@
 using System.Diagnostics;
 using System.Globalization;
-using Scorer.Cli.Csv;
+using Scorer.Tabular;
 using Scorer.Engine;
 using Scorer.Engine.Scoring;
 using Scorer.ModelFile;
