@@ -13,6 +13,7 @@ public static class Program
         var root = new RootCommand("scorer: score rows with fitted binary GLMs (logit, probit, cloglog) and check model files.");
         root.Subcommands.Add(Check(stdout, stderr));
         root.Subcommands.Add(Score(stdout, stderr));
+        root.Subcommands.Add(Fit(stdout, stderr));
         return root.Parse(args).Invoke(new InvocationConfiguration { Output = stdout, Error = stderr });
     }
 
@@ -40,6 +41,72 @@ public static class Program
         command.SetAction(r => ScoreCommand.Run(
             new ScoreCommand.Options(r.GetValue(model)!, r.GetValue(input)!, r.GetValue(output), r.GetValue(level), r.GetValue(contributions), !r.GetValue(quiet)),
             stdout, stderr));
+        return command;
+    }
+
+    private static Command Fit(TextWriter stdout, TextWriter stderr)
+    {
+        Option<string[]> List(string name, string description) => new(name) { Description = description, AllowMultipleArgumentsPerToken = false, Arity = ArgumentArity.ZeroOrMore };
+        var data = new Option<string>("--data") { Description = "CSV of labelled rows, header first.", Required = true };
+        var outcome = new Option<string>("--outcome") { Description = "The outcome column.", Required = true };
+        var positive = new Option<string?>("--positive") { Description = "The outcome value that means 1 (default: the column holds 0/1 or false/true)." };
+        var numeric = List("--numeric", "Numeric features, comma-separated (repeatable).");
+        var categorical = List("--categorical", "Categorical features, comma-separated (repeatable); treatment coding.");
+        var interaction = List("--interaction", "Interactions such as vibration:site (repeatable, or comma-separated).");
+        var transform = List("--transform", "Transforms such as vibration=log (identity, log, log1p, sqrt).");
+        var reference = List("--reference", "Reference levels such as site=north (default: the first level in sorted order).");
+        var center = new Option<bool>("--center") { Description = "Centre each numeric factor at its training mean." };
+        var link = new Option<string?>("--link") { Description = "logit (default), probit or cloglog." };
+        var weights = new Option<string?>("--weights") { Description = "Column of prior weights." };
+        var offset = new Option<string?>("--offset") { Description = "Column added to the linear predictor with coefficient 1." };
+        var model = new Option<string?>("--model") { Description = "Model name (default with --like: the live model's)." };
+        var version = new Option<string>("--version") { Description = "Version of the new model file.", Required = true };
+        var output = new Option<string?>("--output", "-o") { Description = "Where to write the model file." };
+        var spec = new Option<string?>("--spec") { Description = "A model file without coefficients giving the design (features and terms)." };
+        var like = new Option<string?>("--like") { Description = "An existing model file whose design (features and terms) the refit reproduces." };
+        var dropMissing = new Option<bool>("--drop-missing") { Description = "Leave out rows with a missing value (counted) instead of refusing the data." };
+        var json = new Option<bool>("--json") { Description = "Print the fit statistics as JSON." };
+        var maxIterations = new Option<int>("--max-iterations") { Description = "Iteration cap.", DefaultValueFactory = _ => 100 };
+        var threshold = new Option<double?>("--threshold") { Description = "Decision threshold on the probability, written into the model file." };
+        var horizon = new Option<string?>("--horizon") { Description = "ISO 8601 duration within which the outcome is defined (default P30D)." };
+        var negatives = new Option<string?>("--negatives") { Description = "explicit (default) or implicit: no positive report within the horizon counts as 0." };
+        var description = new Option<string?>("--description") { Description = "Description written into the model file." };
+        var quiet = new Option<bool>("--quiet", "-q") { Description = "No progress display." };
+        var command = new Command("fit", "Fit a binary GLM (IRLS) to labelled rows and write the model file.")
+        {
+            data, outcome, positive, numeric, categorical, interaction, transform, reference, center, link, weights, offset, model, version,
+            output, spec, like, dropMissing, json, maxIterations, threshold, horizon, negatives, description, quiet,
+        };
+
+        static string[] Split(string[]? values) => values is null ? [] : [.. values.SelectMany(v => v.Split(',', StringSplitOptions.TrimEntries | StringSplitOptions.RemoveEmptyEntries))];
+        command.SetAction(r => FitCommand.Run(new FitCommand.Options
+        {
+            Data = r.GetValue(data)!,
+            Outcome = r.GetValue(outcome)!,
+            Positive = r.GetValue(positive),
+            Numeric = Split(r.GetValue(numeric)),
+            Categorical = Split(r.GetValue(categorical)),
+            Interactions = Split(r.GetValue(interaction)),
+            Transforms = Split(r.GetValue(transform)),
+            References = Split(r.GetValue(reference)),
+            Center = r.GetValue(center),
+            Link = r.GetValue(link),
+            Weights = r.GetValue(weights),
+            Offset = r.GetValue(offset),
+            Model = r.GetValue(model),
+            Version = r.GetValue(version)!,
+            Output = r.GetValue(output),
+            Spec = r.GetValue(spec),
+            Like = r.GetValue(like),
+            DropMissing = r.GetValue(dropMissing),
+            Json = r.GetValue(json),
+            MaxIterations = r.GetValue(maxIterations),
+            Threshold = r.GetValue(threshold),
+            Horizon = r.GetValue(horizon),
+            Negatives = r.GetValue(negatives),
+            Description = r.GetValue(description),
+            Progress = !r.GetValue(quiet),
+        }, stdout, stderr));
         return command;
     }
 }

@@ -75,4 +75,29 @@ public static class Link
         var e = Math.Exp(eta);
         return double.IsPositiveInfinity(e) ? 0.0 : Math.Exp(eta - e);
     }
+
+    /// <summary>1 − μ, computed without cancellation: 1/(1 + e^η), Φ(−η), exp(−e^η).</summary>
+    [MethodImpl(MethodImplOptions.AggressiveInlining)]
+    public static double Complement(LinkKind link, double eta) => link switch
+    {
+        LinkKind.Logit => Logistic(-eta),
+        LinkKind.Probit => NormalCdf(-eta),
+        _ => Math.Exp(-Math.Exp(eta)),
+    };
+
+    /// <summary>ln μ, finite wherever μ &gt; 0 is representable in logarithm: −log1p(e^−η), ln Φ(η), ln(−expm1(−e^η)).</summary>
+    public static double LogInverse(LinkKind link, double eta) => link switch
+    {
+        LinkKind.Logit => eta >= 0 ? -Numerics.Elementary.Log1P(Math.Exp(-eta)) : eta - Numerics.Elementary.Log1P(Math.Exp(eta)),
+        LinkKind.Probit => Math.Log(NormalCdf(eta)),
+        _ => Math.Log(InverseCLogLog(eta)),
+    };
+
+    /// <summary>ln(1 − μ): −log1p(e^η), ln Φ(−η), −e^η.</summary>
+    public static double LogComplement(LinkKind link, double eta) => link switch
+    {
+        LinkKind.Logit => LogInverse(LinkKind.Logit, -eta),
+        LinkKind.Probit => Math.Log(NormalCdf(-eta)),
+        _ => -Math.Exp(eta),
+    };
 }

@@ -70,6 +70,21 @@ public sealed partial class CompiledModel
         return error.IsError ? error : Design(values, levels, x);
     }
 
+    /// <summary>
+    /// Builds the design row x of a row in model feature order (categoricals as level codes, as
+    /// <see cref="ScoreFeatures"/> takes them), applying the file's policies; returns the error when it cannot.
+    /// </summary>
+    public RowError BuildDesignFromFeatures(ReadOnlySpan<double> featureValues, Span<double> x)
+    {
+        var n = FeatureCount;
+        Span<double> values = n <= 64 ? stackalloc double[n] : new double[n];
+        Span<int> levels = n <= 64 ? stackalloc int[n] : new int[n];
+        BindDense(featureValues, values, levels);
+        var warningCount = 0;
+        var error = Resolve(values, levels, default, ref warningCount);
+        return error.IsError ? error : Design(values, levels, x);
+    }
+
     internal ScoredRow ScoreBound(Span<double> values, Span<int> levels, in ScoreSettings settings, Span<double> contributions, Span<RowWarning> warnings, int warningCount)
     {
         var error = Resolve(values, levels, warnings, ref warningCount);
