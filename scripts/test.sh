@@ -1,7 +1,7 @@
 #!/usr/bin/env bash
 # Runs every test of the repository and ends with one line: "N passed, N failed[, N skipped]".
 #   1. checks that the reference tools are installed (R with MASS); as root it installs what is missing with apt-get;
-#   2. regenerates the reference values (tests/reference/scoring-reference.R) into tests/reference/out/;
+#   2. regenerates the reference values (tests/reference/*.R) into tests/reference/out/;
 #   3. runs `dotnet test` on the solution and counts the results from the TRX files.
 # Exit status: 0 when every test passed, 1 otherwise (also when no test ran).
 set -euo pipefail
@@ -25,6 +25,7 @@ fi
 echo "== reference values (R $(Rscript -e 'cat(as.character(getRversion()))'))"
 rm -rf tests/reference/out
 Rscript tests/reference/scoring-reference.R tests/reference/out
+Rscript tests/reference/fitting-reference.R tests/reference/out
 
 echo "== dotnet test"
 rm -rf TestResults

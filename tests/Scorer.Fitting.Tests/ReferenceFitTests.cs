@@ -105,4 +105,40 @@ public sealed class ReferenceFitTests
         Assert.Equal(fit.Events, baseline.Events);
         Assert.Equal(1.0, baseline.LinearPredictor!.Proportions.Sum(), 12);
     }
+
+    [Fact]
+    public void A_fit_with_prior_weights_and_an_offset_agrees_with_R_glm()
+    {
+        // R: glm(case ~ parity + education, binomial, weights = w, offset = off) on infert (fitting-reference.R).
+        var columns = new TrainingColumns { Outcome = "case", Numeric = ["parity"], Categorical = ["education"], Weights = "w", Offset = "off" };
+        var data = TrainingData.ReadCsv(Reference.File("infert.train.csv"), columns);
+        var fit = Fitter.Fit(new FitRequest
+        {
+            Data = data,
+            Options = new DesignOptions { Numeric = ["parity"], Categorical = ["education"] },
+            Model = "infert",
+            Version = "weighted",
+            Outcome = new OutcomeSpec("case", "1", "P1D", NegativesPolicy.Explicit),
+            OffsetColumn = "off",
+        });
+        var expected = Reference.Csv("fit-infert-weighted.coefficients.csv");
+        foreach (var (e, c) in expected.Zip(fit.Coefficients))
+        {
+            Assert.Equal(e["term"], c.Term);
+            Reference.Relative(Reference.D(e["estimate"]), c.Estimate, Rel, $"{c.Term} estimate");
+            Reference.Relative(Reference.D(e["se"]), c.StandardError, Rel, $"{c.Term} standard error");
+        }
+
+        var stats = Reference.Csv("fit-infert-weighted.stats.csv")[0];
+        Reference.Relative(Reference.D(stats["deviance"]), fit.Deviance, Rel, "deviance");
+        Reference.Relative(Reference.D(stats["null_deviance"]), fit.NullDeviance, Rel, "null deviance (intercept-only fit with the offset)");
+        Reference.Relative(Reference.D(stats["aic"]), fit.Aic, Rel, "AIC");
+
+        // The offset travels into the model file as a term with coefficient 1 and no variance.
+        var offsetTerm = fit.Document.Terms[^1];
+        Assert.Equal("offset(off)", offsetTerm.Name);
+        Assert.Equal(1.0, offsetTerm.Coefficient);
+        Assert.All(fit.Document.Covariance!.Value[^1], v => Assert.Equal(0.0, v));
+        Assert.True(ModelFileReader.Read(System.Text.Encoding.UTF8.GetBytes(ModelFileWriter.WriteToString(fit.Document))).IsValid);
+    }
 }

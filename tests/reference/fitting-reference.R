@@ -45,6 +45,8 @@ tight_glm <- function(formula, data, link) {
 inf <- infert[, c("case", "education", "age", "parity", "spontaneous", "induced")]
 inf$education <- as.character(inf$education)
 inf$total <- inf$spontaneous + inf$induced
+inf$w <- (infert$stratum %% 3) + 1   # integer prior weights, for the weighted fit below
+inf$off <- 0.05 * infert$age         # an offset, for the same
 write.csv(inf, file.path(out, "infert.train.csv"), row.names = FALSE, quote = TRUE)
 inf$education <- factor(inf$education, levels = sort(unique(inf$education), method = "radix"))  # ordinal order, as Scorer sorts
 infert_terms <- list("(Intercept)" = "(intercept)", "I(age - mean(age))" = "age", "I(parity - mean(parity))" = "parity",
@@ -55,6 +57,12 @@ for (link in c("logit", "probit", "cloglog")) {
                      I(induced - mean(induced)) + education, inf, link)
   write_fit(paste0("infert-", link), fit, infert_terms)
 }
+
+# Prior weights and an offset (logit).
+fit <- glm(case ~ parity + education, data = inf, family = binomial, weights = w, offset = off,
+           control = glm.control(epsilon = 1e-16, maxit = 1000))
+write_fit("infert-weighted", fit, list("(Intercept)" = "(intercept)", "parity" = "parity",
+  "education12+ yrs" = "education=12+ yrs", "education6-11yrs" = "education=6-11yrs"))
 
 # --- birthwt (MASS): categorical race with reference white, log(lwt), and the interaction log(lwt):race. ---
 bw <- birthwt[, c("low", "age", "lwt", "race", "smoke", "ht", "ui", "ptl", "bwt")]
