@@ -6,6 +6,12 @@ public static class Program
 {
     public static void Main(string[] args)
     {
+        if (args.Length > 2 && args[0] == "--fit-data")
+        {
+            FitData.Write(args[1], int.Parse(args[2], System.Globalization.CultureInfo.InvariantCulture));
+            return;
+        }
+
         if (args.Length > 0 && args[0] == "--quick")
         {
             QuickRun.Run(args.Length > 1 ? int.Parse(args[1], System.Globalization.CultureInfo.InvariantCulture) : 7);
