@@ -84,4 +84,34 @@ public sealed class FitCommandTests : IDisposable
         Assert.Equal(1, exit2);
         Assert.Contains("education: is not binary", stderr2, StringComparison.Ordinal);
     }
+
+    [Fact]
+    public void A_spec_without_coefficients_gives_the_design()
+    {
+        var spec = _cli.Write("spec.json", """
+            {
+              "link": "probit",
+              "features": [
+                {"name": "vibration_rms", "type": "numeric"},
+                {"name": "site", "type": "categorical", "levels": ["north", "east", "river"], "reference": "north"}
+              ],
+              "terms": [
+                {"name": "(intercept)", "factors": []},
+                {"name": "log(vibration_rms)", "factors": [{"feature": "vibration_rms", "transform": "log", "center": 1}]},
+                {"name": "site=river", "factors": [{"feature": "site", "level": "river"}]},
+                {"name": "site=east", "factors": [{"feature": "site", "level": "east"}]}
+              ]
+            }
+            """);
+        var output = Path.Combine(_cli.Folder, "fromspec.json");
+        var (exit, _, stderr) = _cli.Run("fit", "--data", Example("training.csv"), "--outcome", "failed_within_30d", "--spec", spec,
+            "--model", "pump-spec", "--version", "1", "--output", output, "--quiet");
+        Assert.True(exit == 0, stderr);
+        var doc = ModelFileReader.ReadValidFile(output);
+        Assert.Equal(LinkKind.Probit, doc.Link);
+        Assert.Equal(["(intercept)", "log(vibration_rms)", "site=river", "site=east"], doc.Terms.Select(t => t.Name));
+        Assert.Equal(1.0, doc.Terms[1].Factors[0].Center);
+        Assert.NotNull(doc.Features[0].Min);
+        Assert.Equal(4, doc.Covariance!.Value.Length);
+    }
 }
