@@ -10,14 +10,9 @@ internal sealed class CliRunner : IDisposable
 
     public string Folder { get; }
 
-    public static string RepositoryRoot { get; } = FindRoot();
+    public static string RepositoryRoot => Scorer.Testing.TestRepository.Root;
 
-    public static string Reference(string file)
-    {
-        var path = Path.Combine(RepositoryRoot, "tests", "reference", "out", file);
-        return File.Exists(path) ? path : throw new InvalidOperationException(
-            $"{path} is missing. Run scripts/test.sh, or: Rscript tests/reference/scoring-reference.R tests/reference/out");
-    }
+    public static string Reference(string file) => Scorer.Testing.TestRepository.ReferenceFile(file);
 
     public string Write(string name, string content)
     {
@@ -35,15 +30,4 @@ internal sealed class CliRunner : IDisposable
     }
 
     public void Dispose() => Directory.Delete(Folder, recursive: true);
-
-    private static string FindRoot()
-    {
-        var dir = new DirectoryInfo(AppContext.BaseDirectory);
-        while (dir is not null && !File.Exists(Path.Combine(dir.FullName, "Scorer.sln")))
-        {
-            dir = dir.Parent;
-        }
-
-        return dir?.FullName ?? throw new InvalidOperationException("Scorer.sln not found");
-    }
 }

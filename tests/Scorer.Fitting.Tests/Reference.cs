@@ -5,14 +5,9 @@ namespace Scorer.Fitting.Tests;
 /// <summary>Files written by tests/reference/fitting-reference.R (R's glm on open datasets).</summary>
 internal static class Reference
 {
-    public static string Root { get; } = FindRoot();
+    public static string Root => Scorer.Testing.TestRepository.Root;
 
-    public static string File(string name)
-    {
-        var path = Path.Combine(Root, "tests", "reference", "out", name);
-        return System.IO.File.Exists(path) ? path : throw new InvalidOperationException(
-            $"{path} is missing. Run scripts/test.sh, or: Rscript tests/reference/fitting-reference.R tests/reference/out");
-    }
+    public static string File(string name) => Scorer.Testing.TestRepository.ReferenceFile(name);
 
     public static List<Dictionary<string, string>> Csv(string name)
     {
@@ -36,16 +31,5 @@ internal static class Reference
     {
         var err = expected == actual ? 0 : Math.Abs(actual - expected) / Math.Abs(expected);
         Assert.True(err <= rel, $"{what}: R {expected:R}, Scorer {actual:R} (relative error {err:E2} > {rel:E0})");
-    }
-
-    private static string FindRoot()
-    {
-        var dir = new DirectoryInfo(AppContext.BaseDirectory);
-        while (dir is not null && !System.IO.File.Exists(Path.Combine(dir.FullName, "Scorer.sln")))
-        {
-            dir = dir.Parent;
-        }
-
-        return dir?.FullName ?? throw new InvalidOperationException("Scorer.sln not found");
     }
 }

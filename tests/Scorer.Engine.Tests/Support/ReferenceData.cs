@@ -7,22 +7,9 @@ namespace Scorer.Engine.Tests.Support;
 /// <summary>Reads the values written by tests/reference/scoring-reference.R (R's glm and predict.glm).</summary>
 internal static class ReferenceData
 {
-    public static string RepositoryRoot { get; } = FindRoot();
+    public static string RepositoryRoot => Scorer.Testing.TestRepository.Root;
 
-    public static string OutputFolder
-    {
-        get
-        {
-            var dir = Path.Combine(RepositoryRoot, "tests", "reference", "out");
-            if (!File.Exists(Path.Combine(dir, "quantiles.csv")))
-            {
-                throw new InvalidOperationException(
-                    $"The reference values are missing from {dir}. Run scripts/test.sh, or: Rscript tests/reference/scoring-reference.R tests/reference/out");
-            }
-
-            return dir;
-        }
-    }
+    public static string OutputFolder => Path.GetDirectoryName(Scorer.Testing.TestRepository.ReferenceFile("quantiles.csv"))!;
 
     public static ModelDocument Model(string name) => ModelFileReader.ReadValidFile(Path.Combine(OutputFolder, name + ".model.json"));
 
@@ -83,17 +70,6 @@ internal static class ReferenceData
 
         fields.Add(sb.ToString());
         return fields;
-    }
-
-    private static string FindRoot()
-    {
-        var dir = new DirectoryInfo(AppContext.BaseDirectory);
-        while (dir is not null && !File.Exists(Path.Combine(dir.FullName, "Scorer.sln")))
-        {
-            dir = dir.Parent;
-        }
-
-        return dir?.FullName ?? throw new InvalidOperationException("Scorer.sln not found above " + AppContext.BaseDirectory);
     }
 }
 
