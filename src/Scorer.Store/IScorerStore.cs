@@ -1,0 +1,67 @@
+namespace Scorer.Store;
+
+/// <summary>Where a model version stands.</summary>
+public enum Stage
+{
+    /// <summary>Answers score requests.</summary>
+    Live,
+
+    /// <summary>Scores every row beside the live version, off the request path; its results are logged, not returned.</summary>
+    Shadow,
+
+    /// <summary>Loaded but not used.</summary>
+    Retired,
+}
+
+/// <summary>A model version the registry has loaded: its file's hash and its current stage.</summary>
+public sealed record ModelVersionRecord(string Model, string Version, string FileSha256, DateTimeOffset LoadedAt, Stage Stage);
+
+/// <summary>One stage change: who moved which version from where to where, and when. <see cref="From"/> is null for the first stage.</summary>
+public sealed record StageChange(string Model, string Version, Stage? From, Stage To, string Actor, DateTimeOffset At);
+
+/// <summary>One scored row as logged: <see cref="FeaturesJson"/> holds the row's feature values as a JSON object.</summary>
+public sealed record PredictionRecord(
+    Guid Id,
+    string Model,
+    string Version,
+    Stage Stage,
+    DateTimeOffset ScoredAt,
+    string? Key,
+    double Eta,
+    double Probability,
+    string FeaturesJson);
+
+/// <summary>
+/// The service's durable state. Every implementation (SQLite now, PostgreSQL later) passes the same contract tests.
+/// Methods are safe to call concurrently. Times are stored with at least millisecond precision, in UTC.
+/// </summary>
+public interface IScorerStore : IAsyncDisposable
+{
+    /// <summary>Creates or upgrades the schema (numbered migrations, applied in order, once each).</summary>
+    Task MigrateAsync(CancellationToken cancellationToken = default);
+
+    /// <summary>Every model version known to the store, with its stage.</summary>
+    Task<IReadOnlyList<ModelVersionRecord>> GetVersionsAsync(CancellationToken cancellationToken = default);
+
+    /// <summary>
+    /// Records a newly loaded version with its initial stage and a history entry (From = null), unless the store knows
+    /// it already; returns the stored record (the existing one when known, whose stage wins over <paramref name="version"/>'s).
+    /// </summary>
+    Task<ModelVersionRecord> AddVersionAsync(ModelVersionRecord version, string actor, CancellationToken cancellationToken = default);
+
+    /// <summary>Applies stage changes atomically (all or none), each also appended to the history.</summary>
+    Task ChangeStagesAsync(IReadOnlyList<StageChange> changes, CancellationToken cancellationToken = default);
+
+    /// <summary>The stage history of a model, oldest first.</summary>
+    Task<IReadOnlyList<StageChange>> GetHistoryAsync(string model, CancellationToken cancellationToken = default);
+
+    /// <summary>Writes a batch of predictions in one transaction. Ids are unique; writing an id twice is an error.</summary>
+    Task WritePredictionsAsync(IReadOnlyList<PredictionRecord> batch, CancellationToken cancellationToken = default);
+
+    Task<PredictionRecord?> GetPredictionAsync(Guid id, CancellationToken cancellationToken = default);
+
+    /// <summary>The predictions of a model (optionally one version) scored in [from, to), in time order.</summary>
+    Task<IReadOnlyList<PredictionRecord>> GetPredictionsAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken = default);
+
+    Task<long> CountPredictionsAsync(string model, string? version = null, CancellationToken cancellationToken = default);
+}
