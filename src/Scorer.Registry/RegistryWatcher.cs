@@ -1,0 +1,89 @@
+using Microsoft.Extensions.Logging;
+
+namespace Scorer.Registry;
+
+/// <summary>
+/// Keeps the registry in step with its folder: a file watcher triggers a reload at once, and a periodic rescan catches
+/// what watchers miss (network volumes, ConfigMap symlink swaps). New or changed files serve within the rescan interval.
+/// </summary>
+public sealed class RegistryWatcher(ModelRegistry registry, RegistryOptions options, TimeProvider time, ILogger<RegistryWatcher> logger) : IAsyncDisposable
+{
+    private readonly CancellationTokenSource _stop = new();
+    private readonly SemaphoreSlim _poke = new(0, 1);
+    private FileSystemWatcher? _watcher;
+    private Task? _loop;
+
+    /// <summary>How often the folder is rescanned without a watcher event. Default 1 s.</summary>
+    public TimeSpan RescanInterval { get; init; } = TimeSpan.FromSeconds(1);
+
+    public void Start()
+    {
+        if (Directory.Exists(options.ModelsPath))
+        {
+            _watcher = new FileSystemWatcher(options.ModelsPath, "*.json") { IncludeSubdirectories = true, EnableRaisingEvents = true };
+            _watcher.Created += (_, _) => Poke();
+            _watcher.Changed += (_, _) => Poke();
+            _watcher.Renamed += (_, _) => Poke();
+            _watcher.Deleted += (_, _) => Poke();
+        }
+
+        _loop = Task.Run(() => LoopAsync(_stop.Token));
+    }
+
+    public async ValueTask DisposeAsync()
+    {
+        await _stop.CancelAsync().ConfigureAwait(false);
+        _watcher?.Dispose();
+        if (_loop is not null)
+        {
+            try
+            {
+                await _loop.ConfigureAwait(false);
+            }
+            catch (OperationCanceledException)
+            {
+            }
+        }
+
+        _stop.Dispose();
+    }
+
+    private void Poke()
+    {
+        if (_poke.CurrentCount == 0)
+        {
+            try
+            {
+                _poke.Release();
+            }
+            catch (SemaphoreFullException)
+            {
+            }
+        }
+    }
+
+    private async Task LoopAsync(CancellationToken stop)
+    {
+        while (!stop.IsCancellationRequested)
+        {
+            await _poke.WaitAsync(RescanInterval, stop).ConfigureAwait(false);
+
+            // Let a writer finish the file before reading it.
+            await Task.Delay(TimeSpan.FromMilliseconds(100), time, stop).ConfigureAwait(false);
+            try
+            {
+                await registry.ReloadAsync(stop).ConfigureAwait(false);
+            }
+            catch (OperationCanceledException) when (stop.IsCancellationRequested)
+            {
+                return;
+            }
+#pragma warning disable CA1031 // a failed scan is logged and retried on the next turn; it must not stop the watcher
+            catch (Exception ex)
+#pragma warning restore CA1031
+            {
+                logger.LogError(ex, "Rescan of {Folder} failed; retrying", options.ModelsPath);
+            }
+        }
+    }
+}

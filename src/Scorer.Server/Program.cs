@@ -1,0 +1,6 @@
+namespace Scorer.Server;
+
+public static class Program
+{
+    public static Task<int> Main(string[] args) => ScorerServer.RunAsync(args);
+}

@@ -1,0 +1,128 @@
+using System.Net;
+using Scorer.Store;
+using Scorer.Transport;
+
+namespace Scorer.Server;
+
+/// <summary>The service's settings, bound from the <c>Scorer</c> section (appsettings.json, SCORER__… variables, flags).</summary>
+public sealed class ScorerOptions
+{
+    /// <summary>Folder of model files. Default <c>models</c> (seeded with the demo models when missing).</summary>
+    public string ModelsPath { get; set; } = "models";
+
+    /// <summary>SQLite database file or connection string. Default <c>data/scorer.db</c>.</summary>
+    public string Store { get; set; } = Path.Combine("data", "scorer.db");
+
+    /// <summary>REST (HTTP/1.1 and HTTP/2) and the page. Default <c>127.0.0.1:8080</c>.</summary>
+    public string Http { get; set; } = "127.0.0.1:8080";
+
+    /// <summary>gRPC over HTTP/2 without TLS (h2c). Default <c>127.0.0.1:8081</c>.</summary>
+    public string Grpc { get; set; } = "127.0.0.1:8081";
+
+    /// <summary>Copy the demo models into the models folder when it does not exist. Default true.</summary>
+    public bool SeedDemoModels { get; set; } = true;
+
+    /// <summary>Largest request body, in bytes. Default 8 MiB.</summary>
+    public long MaxRequestBodyBytes { get; set; } = 8L * 1024 * 1024;
+
+    /// <summary>How often the models folder is rescanned. Default 1 s.</summary>
+    public TimeSpan RescanInterval { get; set; } = TimeSpan.FromSeconds(1);
+
+    /// <summary>Requests per second per client address (0 = no limit). Default 0.</summary>
+    public int RateLimitPerSecond { get; set; }
+
+    public List<ApiKey> Keys { get; set; } = [];
+
+    public ScoringLimits Limits { get; set; } = new();
+
+    public PredictionLogOptions Log { get; set; } = new();
+
+    /// <summary>Every problem of the settings at once, each naming the setting.</summary>
+    public IReadOnlyList<string> Validate()
+    {
+        var problems = new List<string>();
+        var http = ParseEndpoint(Http, "Scorer:Http", problems);
+        var grpc = ParseEndpoint(Grpc, "Scorer:Grpc", problems);
+        if (http is not null && grpc is not null && http.Port == grpc.Port && http.Port != 0)
+        {
+            problems.Add($"Scorer:Http and Scorer:Grpc both use port {http.Port}; give them different ports");
+        }
+
+        if (string.IsNullOrWhiteSpace(ModelsPath))
+        {
+            problems.Add("Scorer:ModelsPath is empty; name the folder of model files");
+        }
+
+        if (string.IsNullOrWhiteSpace(Store))
+        {
+            problems.Add("Scorer:Store is empty; name a SQLite file or connection string");
+        }
+
+        if (MaxRequestBodyBytes < 1024)
+        {
+            problems.Add($"Scorer:MaxRequestBodyBytes is {MaxRequestBodyBytes}; give at least 1024");
+        }
+
+        if (Log.Capacity < 1 || Log.MaxBatch < 1)
+        {
+            problems.Add("Scorer:Log:Capacity and Scorer:Log:MaxBatch must be at least 1");
+        }
+
+        for (var i = 0; i < Keys.Count; i++)
+        {
+            var k = Keys[i];
+            if (string.IsNullOrWhiteSpace(k.Name) || string.IsNullOrWhiteSpace(k.Key))
+            {
+                problems.Add($"Scorer:Keys:{i} needs a Name and a Key");
+            }
+            else if (k.Key.Length < 16)
+            {
+                problems.Add($"Scorer:Keys:{i} ({k.Name}): the key is shorter than 16 characters");
+            }
+
+            foreach (var role in k.Roles.Where(r => r is not ("score" or "feedback" or "admin")))
+            {
+                problems.Add($"Scorer:Keys:{i} ({k.Name}): unknown role '{role}' (roles: score, feedback, admin)");
+            }
+        }
+
+        foreach (var dup in Keys.GroupBy(k => k.Name, StringComparer.Ordinal).Where(g => g.Count() > 1))
+        {
+            problems.Add($"Scorer:Keys: the name '{dup.Key}' is used twice");
+        }
+
+        if (Keys.Count == 0)
+        {
+            foreach (var (name, endpoint) in new[] { ("Scorer:Http", http), ("Scorer:Grpc", grpc) })
+            {
+                if (endpoint is not null && !IPAddress.IsLoopback(endpoint.Address))
+                {
+                    problems.Add($"{name} binds {endpoint} beyond this machine but no API keys are configured (Scorer:Keys); configure keys or bind 127.0.0.1");
+                }
+            }
+        }
+
+        return problems;
+    }
+
+    internal static IPEndPoint? ParseEndpoint(string text, string name, List<string>? problems = null)
+    {
+        var colon = text.LastIndexOf(':');
+        if (colon > 0 && int.TryParse(text[(colon + 1)..], System.Globalization.CultureInfo.InvariantCulture, out var port) && port is >= 0 and <= 65535)
+        {
+            var host = text[..colon].Trim('[', ']');
+            if (host is "localhost")
+            {
+                return new IPEndPoint(IPAddress.Loopback, port);
+            }
+
+            if (IPAddress.TryParse(host, out var address))
+            {
+                return new IPEndPoint(address, port);
+            }
+        }
+
+        problems?.Add($"{name} is '{text}'; give HOST:PORT with an IP address, e.g. 127.0.0.1:8080 or 0.0.0.0:8080");
+        return null;
+    }
+}

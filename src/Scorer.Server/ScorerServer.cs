@@ -1,0 +1,170 @@
+using System.Net;
+using System.Threading.RateLimiting;
+using Microsoft.AspNetCore.Server.Kestrel.Core;
+using Microsoft.Extensions.Options;
+using Scorer.Registry;
+using Scorer.Store;
+using Scorer.Store.Sqlite;
+using Scorer.Transport;
+using Scorer.Transport.Services;
+
+namespace Scorer.Server;
+
+/// <summary>Builds and runs the service: one process, embedded defaults, everything configurable.</summary>
+public static class ScorerServer
+{
+    private static readonly Dictionary<string, string> Switches = new(StringComparer.Ordinal)
+    {
+        ["--models"] = "Scorer:ModelsPath",
+        ["--store"] = "Scorer:Store",
+        ["--http"] = "Scorer:Http",
+        ["--grpc"] = "Scorer:Grpc",
+    };
+
+    public static async Task<int> RunAsync(string[] args)
+    {
+        WebApplication app;
+        try
+        {
+            app = await BuildAsync(args).ConfigureAwait(false);
+        }
+        catch (OptionsValidationException ex)
+        {
+            await Console.Error.WriteLineAsync("scorer: the settings are not usable:").ConfigureAwait(false);
+            foreach (var failure in ex.Failures)
+            {
+                await Console.Error.WriteLineAsync("  " + failure).ConfigureAwait(false);
+            }
+
+            return 2;
+        }
+
+        await app.RunAsync().ConfigureAwait(false);
+        return 0;
+    }
+
+    /// <summary>Builds the application, migrates the store and loads the models; the caller starts it.</summary>
+    public static async Task<WebApplication> BuildAsync(string[] args, Action<WebApplicationBuilder>? configure = null)
+    {
+        var builder = WebApplication.CreateSlimBuilder(new WebApplicationOptions { Args = args, ContentRootPath = AppContext.BaseDirectory });
+        builder.Configuration.AddCommandLine(args, Switches);
+        configure?.Invoke(builder);
+        var options = builder.Configuration.GetSection("Scorer").Get<ScorerOptions>() ?? new ScorerOptions();
+        var problems = options.Validate();
+        if (problems.Count > 0)
+        {
+            throw new OptionsValidationException("Scorer", typeof(ScorerOptions), problems);
+        }
+
+        var http = ScorerOptions.ParseEndpoint(options.Http, "Scorer:Http")!;
+        var grpc = ScorerOptions.ParseEndpoint(options.Grpc, "Scorer:Grpc")!;
+        builder.WebHost.ConfigureKestrel(k =>
+        {
+            k.Limits.MaxRequestBodySize = options.MaxRequestBodyBytes;
+            k.Listen(http, o => o.Protocols = HttpProtocols.Http1AndHttp2);
+            k.Listen(grpc, o => o.Protocols = HttpProtocols.Http2);
+        });
+
+        builder.Services.AddSingleton(options);
+        builder.Services.AddSingleton(TimeProvider.System);
+        builder.Services.AddSingleton<IScorerStore>(_ => SqliteScorerStore.ForFile(options.Store));
+        builder.Services.AddSingleton(new RegistryOptions { ModelsPath = options.ModelsPath });
+        builder.Services.AddSingleton<ModelRegistry>();
+        builder.Services.AddSingleton(sp => new RegistryWatcher(sp.GetRequiredService<ModelRegistry>(), sp.GetRequiredService<RegistryOptions>(),
+            sp.GetRequiredService<TimeProvider>(), sp.GetRequiredService<ILogger<RegistryWatcher>>()) { RescanInterval = options.RescanInterval });
+        builder.Services.AddSingleton(sp => new PredictionLog(sp.GetRequiredService<IScorerStore>(), options.Log, sp.GetRequiredService<ILogger<PredictionLog>>()));
+        builder.Services.AddSingleton<ShadowScorer>();
+        builder.Services.AddSingleton(options.Limits);
+        builder.Services.AddSingleton(new ApiKeyInterceptor(options.Keys));
+        builder.Services.AddHostedService<Lifecycle>();
+        builder.Services
+            .AddGrpc(g =>
+            {
+                g.Interceptors.Add<ApiKeyInterceptor>();
+                g.MaxReceiveMessageSize = (int)Math.Min(int.MaxValue, options.MaxRequestBodyBytes);
+                g.EnableDetailedErrors = false;
+            })
+            .AddJsonTranscoding(t => t.TypeRegistry = Google.Protobuf.Reflection.TypeRegistry.FromMessages(Google.Rpc.BadRequest.Descriptor));
+        builder.Services.AddGrpcReflection();
+        builder.Services.AddSingleton<ReadinessCheck>();
+        builder.Services.AddGrpcHealthChecks().AddCheck<ReadinessCheck>("ready");
+        if (options.RateLimitPerSecond > 0)
+        {
+            builder.Services.AddRateLimiter(r =>
+            {
+                r.RejectionStatusCode = StatusCodes.Status429TooManyRequests;
+                r.GlobalLimiter = PartitionedRateLimiter.Create<HttpContext, string>(ctx => RateLimitPartition.GetTokenBucketLimiter(
+                    ctx.Connection.RemoteIpAddress?.ToString() ?? "unknown",
+                    _ => new TokenBucketRateLimiterOptions
+                    {
+                        TokenLimit = options.RateLimitPerSecond,
+                        TokensPerPeriod = options.RateLimitPerSecond,
+                        ReplenishmentPeriod = TimeSpan.FromSeconds(1),
+                        QueueLimit = 0,
+                    }));
+            });
+        }
+
+        var app = builder.Build();
+        if (options.RateLimitPerSecond > 0)
+        {
+            app.UseRateLimiter();
+        }
+
+        app.MapGrpcService<ScoringService>();
+        app.MapGrpcService<ModelsService>();
+        app.MapGrpcReflectionService();
+        app.MapGrpcHealthChecksService();
+        app.MapGet("/healthz", () => Results.Text("ok\n"));
+        app.MapGet("/readyz", async ([Microsoft.AspNetCore.Mvc.FromServices] ReadinessCheck check) =>
+        {
+            var (ready, reasons) = await check.EvaluateAsync().ConfigureAwait(false);
+            return Results.Text(ready ? "ready\n" : string.Join('\n', reasons) + "\n", statusCode: ready ? 200 : 503);
+        });
+
+        await PrepareAsync(app, options).ConfigureAwait(false);
+        return app;
+    }
+
+    private static async Task PrepareAsync(WebApplication app, ScorerOptions options)
+    {
+        var logger = app.Services.GetRequiredService<ILoggerFactory>().CreateLogger("Scorer");
+        if (options.SeedDemoModels && !Directory.Exists(options.ModelsPath))
+        {
+            SeedDemoModels(options.ModelsPath);
+            logger.LogInformation("Created {Folder} with the demo models", Path.GetFullPath(options.ModelsPath));
+        }
+
+        var store = app.Services.GetRequiredService<IScorerStore>();
+        await store.MigrateAsync().ConfigureAwait(false);
+        var snapshot = await app.Services.GetRequiredService<ModelRegistry>().ReloadAsync().ConfigureAwait(false);
+        logger.LogInformation("REST on http://{Http}, gRPC (h2c) on http://{Grpc}; store {Store}; models from {Models}",
+            options.Http, options.Grpc, options.Store, Path.GetFullPath(options.ModelsPath));
+        foreach (var version in snapshot.Models.Values.SelectMany(m => m.Versions))
+        {
+            logger.LogInformation("Loaded {Model} {Version} ({Stage})", version.Model, version.Version, ModelsService.StageName(version.Stage));
+        }
+
+        foreach (var failure in snapshot.Failures)
+        {
+            logger.LogWarning("Failed to load {File}: {Problems}", failure.File, string.Join("; ", failure.Problems));
+        }
+
+        if (options.Keys.Count == 0)
+        {
+            logger.LogWarning("NO API KEYS ARE CONFIGURED: every caller on this machine can score and change stages. Configure Scorer:Keys before binding beyond loopback.");
+        }
+    }
+
+    private static void SeedDemoModels(string folder)
+    {
+        Directory.CreateDirectory(folder);
+        var assembly = typeof(ScorerServer).Assembly;
+        foreach (var name in assembly.GetManifestResourceNames().Where(n => n.StartsWith("demo/", StringComparison.Ordinal)))
+        {
+            using var source = assembly.GetManifestResourceStream(name)!;
+            using var target = File.Create(Path.Combine(folder, name["demo/".Length..]));
+            source.CopyTo(target);
+        }
+    }
+}

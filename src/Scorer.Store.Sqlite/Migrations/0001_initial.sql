@@ -1,0 +1,49 @@
+-- 0001: model versions and their stages, the stage history, the prediction log.
+--
+-- Times are INTEGER microseconds since 1970-01-01T00:00:00Z (UTC), so ordering and range queries are exact.
+-- Stages are the text 'live', 'shadow' or 'retired'. Tables are STRICT, so a value of the wrong type is refused.
+
+CREATE TABLE model_versions (
+    model       TEXT    NOT NULL,
+    version     TEXT    NOT NULL,
+    file_sha256 TEXT    NOT NULL,
+    loaded_at   INTEGER NOT NULL,
+    stage       TEXT    NOT NULL CHECK (stage IN ('live', 'shadow', 'retired')),
+    PRIMARY KEY (model, version)
+) STRICT;
+
+-- Append-only; id gives the order in which the changes were made.
+CREATE TABLE stage_changes (
+    id         INTEGER PRIMARY KEY,
+    model      TEXT    NOT NULL,
+    version    TEXT    NOT NULL,
+    from_stage TEXT    NULL CHECK (from_stage IN ('live', 'shadow', 'retired')),
+    to_stage   TEXT    NOT NULL CHECK (to_stage IN ('live', 'shadow', 'retired')),
+    actor      TEXT    NOT NULL,
+    at         INTEGER NOT NULL,
+    FOREIGN KEY (model, version) REFERENCES model_versions (model, version)
+) STRICT;
+
+CREATE INDEX stage_changes_by_model ON stage_changes (model, id);
+
+-- The prediction log. id is the Guid's 16 bytes in big-endian (RFC 9562) order. No foreign key to model_versions:
+-- the log keeps what was scored even if the registry's records are later pruned, and a lookup per row would slow
+-- the batch writes.
+--
+-- eta and probability hold IEEE 754 doubles but are declared ANY, not REAL: a REAL column stores a whole-number
+-- double as an integer on disk, which turns -0.0 into 0.0. ANY keeps the value as bound, bit for bit, and the CHECK
+-- keeps it a double.
+CREATE TABLE predictions (
+    id          BLOB    NOT NULL PRIMARY KEY,
+    model       TEXT    NOT NULL,
+    version     TEXT    NOT NULL,
+    stage       TEXT    NOT NULL CHECK (stage IN ('live', 'shadow', 'retired')),
+    scored_at   INTEGER NOT NULL,
+    "key"       TEXT    NULL,
+    eta         ANY     NOT NULL CHECK (typeof(eta) = 'real'),
+    probability ANY     NOT NULL CHECK (typeof(probability) = 'real'),
+    features    TEXT    NOT NULL
+) STRICT;
+
+CREATE INDEX predictions_by_version_time ON predictions (model, version, scored_at);
+CREATE INDEX predictions_by_key ON predictions (model, "key");

@@ -1,0 +1,584 @@
+using System.Globalization;
+using Microsoft.Data.Sqlite;
+
+namespace Scorer.Store.Sqlite;
+
+/// <summary>
+/// The store in one SQLite file: WAL journal, <c>synchronous=NORMAL</c>, foreign keys on, a busy timeout.
+/// </summary>
+/// <remarks>
+/// <para>
+/// Every call opens its own connection from the provider's pool, so reads run side by side. Writes in one store
+/// instance take turns behind a lock and each runs in a <c>BEGIN IMMEDIATE</c> transaction, so writers in other
+/// processes wait on the busy timeout rather than fail half-way.
+/// </para>
+/// <para>
+/// Times are stored as integer microseconds since the Unix epoch, UTC: they come back to the microsecond (rounded
+/// down, towards the past), with offset zero. Doubles are stored as IEEE 754 binary64 and come back bit for bit.
+/// </para>
+/// <para>
+/// Behaviour beyond the interface, which the contract tests hold every store to:
+/// a stage change naming an unknown (model, version), or whose <see cref="StageChange.From"/> is given and is not the
+/// stored stage, throws <see cref="InvalidOperationException"/> naming it and changes nothing; a change whose From is
+/// null is applied from whatever the stored stage is, and the history records that stage as its From. A prediction
+/// with a NaN or infinite eta or probability throws <see cref="ArgumentException"/> naming the field; a prediction id
+/// repeated in a batch or already stored throws <see cref="InvalidOperationException"/> naming the id. Either way the
+/// batch writes nothing. History comes in the order the changes were made.
+/// </para>
+/// </remarks>
+public sealed class SqliteScorerStore : IScorerStore
+{
+    private const string StageColumns = "model, version, file_sha256, loaded_at, stage";
+    private const string PredictionColumns = "id, model, version, stage, scored_at, \"key\", eta, probability, features";
+
+    /// <summary>SQLITE_CONSTRAINT_PRIMARYKEY: the extended result code of a repeated primary key.</summary>
+    private const int PrimaryKeyConstraint = 1555;
+
+    private readonly string _connectionString;
+    private readonly string _connectionPragmas;
+    private readonly TimeProvider _clock;
+    private readonly SemaphoreSlim _writeLock = new(1, 1);
+    private volatile bool _disposed;
+
+    private SqliteScorerStore(SqliteConnectionStringBuilder builder, TimeProvider clock)
+    {
+        if (builder.Mode == SqliteOpenMode.Memory || string.IsNullOrEmpty(builder.DataSource)
+            || builder.DataSource == ":memory:" || builder.DataSource.Contains("mode=memory", StringComparison.OrdinalIgnoreCase))
+        {
+            throw new ArgumentException(
+                "The SQLite store needs a database file: each call opens its own connection, and an in-memory database lives only as long as one connection.",
+                "connectionString");
+        }
+
+        if (!builder.DataSource.StartsWith("file:", StringComparison.OrdinalIgnoreCase))
+        {
+            var folder = Path.GetDirectoryName(Path.GetFullPath(builder.DataSource));
+            if (!string.IsNullOrEmpty(folder))
+            {
+                Directory.CreateDirectory(folder);
+            }
+        }
+
+        builder.ForeignKeys = true;
+        _connectionString = builder.ToString();
+        var busyTimeoutMs = (long)builder.DefaultTimeout * 1000;
+        _connectionPragmas = string.Create(
+            CultureInfo.InvariantCulture, $"PRAGMA synchronous = NORMAL; PRAGMA busy_timeout = {busyTimeoutMs};");
+        _clock = clock;
+    }
+
+    /// <summary>Opens (creating if missing, with its folder) the database file at <paramref name="path"/>.</summary>
+    /// <param name="path">The database file.</param>
+    /// <param name="clock">The clock that stamps applied migrations; the system clock by default.</param>
+    public static SqliteScorerStore ForFile(string path, TimeProvider? clock = null)
+    {
+        ArgumentException.ThrowIfNullOrWhiteSpace(path);
+        return new SqliteScorerStore(
+            new SqliteConnectionStringBuilder
+            {
+                DataSource = Path.GetFullPath(path),
+                Mode = SqliteOpenMode.ReadWriteCreate,
+                Pooling = true,
+            },
+            clock ?? TimeProvider.System);
+    }
+
+    /// <summary>
+    /// Opens the database a Microsoft.Data.Sqlite connection string names. Its <c>Default Timeout</c> (seconds, 30
+    /// unless set) is also the busy timeout; foreign keys are always turned on.
+    /// </summary>
+    /// <param name="connectionString">A connection string naming a database file (not an in-memory database).</param>
+    /// <param name="clock">The clock that stamps applied migrations; the system clock by default.</param>
+    public static SqliteScorerStore ForConnectionString(string connectionString, TimeProvider? clock = null)
+    {
+        ArgumentException.ThrowIfNullOrWhiteSpace(connectionString);
+        return new SqliteScorerStore(new SqliteConnectionStringBuilder(connectionString), clock ?? TimeProvider.System);
+    }
+
+    /// <summary>The highest migration this build knows; the schema version after <see cref="MigrateAsync"/>.</summary>
+    public static int LatestSchemaVersion => Migration.All[^1].Version;
+
+    /// <inheritdoc />
+    public async Task MigrateAsync(CancellationToken cancellationToken = default)
+    {
+        await _writeLock.WaitAsync(cancellationToken).ConfigureAwait(false);
+        try
+        {
+            await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
+
+            // The journal mode belongs to the file and cannot change inside a transaction.
+            var journalMode = Convert.ToString(Scalar(connection, null, "PRAGMA journal_mode = WAL;"), CultureInfo.InvariantCulture);
+            if (!string.Equals(journalMode, "wal", StringComparison.OrdinalIgnoreCase))
+            {
+                throw new InvalidOperationException($"SQLite would not switch the database to WAL (journal mode is '{journalMode}').");
+            }
+
+            // BEGIN IMMEDIATE takes the write lock before reading which migrations are applied, so a second process
+            // starting at the same moment waits here and then finds them all applied.
+            using var transaction = connection.BeginTransaction(deferred: false);
+            Execute(
+                connection,
+                transaction,
+                "CREATE TABLE IF NOT EXISTS schema_migrations (version INTEGER NOT NULL PRIMARY KEY, applied_at INTEGER NOT NULL);");
+
+            var applied = new HashSet<int>();
+            using (var select = Command(connection, transaction, "SELECT version FROM schema_migrations;"))
+            using (var reader = select.ExecuteReader())
+            {
+                while (reader.Read())
+                {
+                    applied.Add(reader.GetInt32(0));
+                }
+            }
+
+            var newest = applied.Count == 0 ? 0 : applied.Max();
+            if (newest > LatestSchemaVersion)
+            {
+                throw new InvalidOperationException(
+                    $"The database is at schema version {newest}, newer than this build knows ({LatestSchemaVersion}); run a newer build.");
+            }
+
+            foreach (var migration in Migration.All)
+            {
+                cancellationToken.ThrowIfCancellationRequested();
+                if (applied.Contains(migration.Version))
+                {
+                    continue;
+                }
+
+                Execute(connection, transaction, migration.Sql);
+                using var record = Command(connection, transaction, "INSERT INTO schema_migrations (version, applied_at) VALUES ($version, $at);");
+                record.Parameters.AddWithValue("$version", migration.Version);
+                record.Parameters.AddWithValue("$at", StoredValues.ToUnixMicroseconds(_clock.GetUtcNow()));
+                record.ExecuteNonQuery();
+            }
+
+            transaction.Commit();
+        }
+        finally
+        {
+            _writeLock.Release();
+        }
+    }
+
+    /// <inheritdoc />
+    /// <remarks>Ordered by model, then version (ordinal).</remarks>
+    public async Task<IReadOnlyList<ModelVersionRecord>> GetVersionsAsync(CancellationToken cancellationToken = default)
+    {
+        await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
+        using var command = Command(connection, null, $"SELECT {StageColumns} FROM model_versions ORDER BY model, version;");
+        using var reader = command.ExecuteReader();
+        var versions = new List<ModelVersionRecord>();
+        while (reader.Read())
+        {
+            versions.Add(ReadVersion(reader));
+        }
+
+        return versions;
+    }
+
+    /// <inheritdoc />
+    /// <remarks>The history entry is stamped with <see cref="ModelVersionRecord.LoadedAt"/>.</remarks>
+    public Task<ModelVersionRecord> AddVersionAsync(ModelVersionRecord version, string actor, CancellationToken cancellationToken = default)
+    {
+        ArgumentNullException.ThrowIfNull(version);
+        ArgumentException.ThrowIfNullOrEmpty(version.Model, nameof(version));
+        ArgumentException.ThrowIfNullOrEmpty(version.Version, nameof(version));
+        ArgumentNullException.ThrowIfNull(version.FileSha256, nameof(version));
+        ArgumentNullException.ThrowIfNull(actor);
+        var stage = StoredValues.ToText(version.Stage);
+
+        return WriteAsync(
+            (connection, transaction) =>
+            {
+                using var insert = Command(
+                    connection,
+                    transaction,
+                    $"INSERT INTO model_versions ({StageColumns}) VALUES ($model, $version, $sha, $loadedAt, $stage) ON CONFLICT (model, version) DO NOTHING;");
+                insert.Parameters.AddWithValue("$model", version.Model);
+                insert.Parameters.AddWithValue("$version", version.Version);
+                insert.Parameters.AddWithValue("$sha", version.FileSha256);
+                insert.Parameters.AddWithValue("$loadedAt", StoredValues.ToUnixMicroseconds(version.LoadedAt));
+                insert.Parameters.AddWithValue("$stage", stage);
+                if (insert.ExecuteNonQuery() == 1)
+                {
+                    using var history = HistoryInsert(connection, transaction);
+                    BindHistory(history, version.Model, version.Version, null, stage, actor, version.LoadedAt);
+                    history.ExecuteNonQuery();
+                }
+
+                return FindVersion(connection, transaction, version.Model, version.Version)
+                    ?? throw new InvalidOperationException($"Version {version.Model}/{version.Version} vanished while being added.");
+            },
+            cancellationToken);
+    }
+
+    /// <inheritdoc />
+    public Task ChangeStagesAsync(IReadOnlyList<StageChange> changes, CancellationToken cancellationToken = default)
+    {
+        ArgumentNullException.ThrowIfNull(changes);
+        if (changes.Count == 0)
+        {
+            return Task.CompletedTask;
+        }
+
+        for (var i = 0; i < changes.Count; i++)
+        {
+            var change = changes[i] ?? throw new ArgumentException($"changes[{i}] is null.", nameof(changes));
+            ArgumentException.ThrowIfNullOrEmpty(change.Model, nameof(changes));
+            ArgumentException.ThrowIfNullOrEmpty(change.Version, nameof(changes));
+            ArgumentNullException.ThrowIfNull(change.Actor, nameof(changes));
+            _ = StoredValues.ToText(change.To);
+            if (change.From is { } from)
+            {
+                _ = StoredValues.ToText(from);
+            }
+        }
+
+        return WriteAsync(
+            (connection, transaction) =>
+            {
+                using var select = Command(connection, transaction, "SELECT stage FROM model_versions WHERE model = $model AND version = $version;");
+                var selectModel = select.Parameters.Add("$model", SqliteType.Text);
+                var selectVersion = select.Parameters.Add("$version", SqliteType.Text);
+                using var update = Command(connection, transaction, "UPDATE model_versions SET stage = $stage WHERE model = $model AND version = $version;");
+                var updateStage = update.Parameters.Add("$stage", SqliteType.Text);
+                var updateModel = update.Parameters.Add("$model", SqliteType.Text);
+                var updateVersion = update.Parameters.Add("$version", SqliteType.Text);
+                using var history = HistoryInsert(connection, transaction);
+
+                // In order: a later change to the same version sees the stage an earlier one set.
+                foreach (var change in changes)
+                {
+                    cancellationToken.ThrowIfCancellationRequested();
+                    selectModel.Value = change.Model;
+                    selectVersion.Value = change.Version;
+                    var stored = select.ExecuteScalar() as string
+                        ?? throw new InvalidOperationException(
+                            $"No stage was changed: version {change.Model}/{change.Version} is unknown to the store.");
+                    if (change.From is { } from && StoredValues.ToText(from) != stored)
+                    {
+                        throw new InvalidOperationException(
+                            $"No stage was changed: version {change.Model}/{change.Version} is {stored}, not {StoredValues.ToText(from)} as the change expects.");
+                    }
+
+                    var to = StoredValues.ToText(change.To);
+                    updateStage.Value = to;
+                    updateModel.Value = change.Model;
+                    updateVersion.Value = change.Version;
+                    update.ExecuteNonQuery();
+                    BindHistory(history, change.Model, change.Version, stored, to, change.Actor, change.At);
+                    history.ExecuteNonQuery();
+                }
+
+                return true;
+            },
+            cancellationToken);
+    }
+
+    /// <inheritdoc />
+    /// <remarks>In the order the changes were made (which is oldest first unless the callers' clocks disagree).</remarks>
+    public async Task<IReadOnlyList<StageChange>> GetHistoryAsync(string model, CancellationToken cancellationToken = default)
+    {
+        ArgumentNullException.ThrowIfNull(model);
+        await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
+        using var command = Command(
+            connection,
+            null,
+            "SELECT model, version, from_stage, to_stage, actor, at FROM stage_changes WHERE model = $model ORDER BY id;");
+        command.Parameters.AddWithValue("$model", model);
+        using var reader = command.ExecuteReader();
+        var history = new List<StageChange>();
+        while (reader.Read())
+        {
+            history.Add(new StageChange(
+                reader.GetString(0),
+                reader.GetString(1),
+                reader.IsDBNull(2) ? null : StoredValues.ToStage(reader.GetString(2)),
+                StoredValues.ToStage(reader.GetString(3)),
+                reader.GetString(4),
+                StoredValues.FromUnixMicroseconds(reader.GetInt64(5))));
+        }
+
+        return history;
+    }
+
+    /// <inheritdoc />
+    public Task WritePredictionsAsync(IReadOnlyList<PredictionRecord> batch, CancellationToken cancellationToken = default)
+    {
+        ArgumentNullException.ThrowIfNull(batch);
+        if (batch.Count == 0)
+        {
+            return Task.CompletedTask;
+        }
+
+        // Checked before anything is written, so a bad row costs the batch nothing but the call.
+        for (var i = 0; i < batch.Count; i++)
+        {
+            CheckPrediction(batch[i], i);
+        }
+
+        return WriteAsync(
+            (connection, transaction) =>
+            {
+                // One prepared statement for the batch; only the parameter values change from row to row.
+                using var insert = Command(
+                    connection,
+                    transaction,
+                    $"INSERT INTO predictions ({PredictionColumns}) VALUES ($id, $model, $version, $stage, $scoredAt, $key, $eta, $probability, $features);");
+                var id = insert.Parameters.Add("$id", SqliteType.Blob);
+                var model = insert.Parameters.Add("$model", SqliteType.Text);
+                var version = insert.Parameters.Add("$version", SqliteType.Text);
+                var stage = insert.Parameters.Add("$stage", SqliteType.Text);
+                var scoredAt = insert.Parameters.Add("$scoredAt", SqliteType.Integer);
+                var key = insert.Parameters.Add("$key", SqliteType.Text);
+                var eta = insert.Parameters.Add("$eta", SqliteType.Real);
+                var probability = insert.Parameters.Add("$probability", SqliteType.Real);
+                var features = insert.Parameters.Add("$features", SqliteType.Text);
+                insert.Prepare();
+
+                foreach (var row in batch)
+                {
+                    cancellationToken.ThrowIfCancellationRequested();
+                    id.Value = StoredValues.ToBytes(row.Id);
+                    model.Value = row.Model;
+                    version.Value = row.Version;
+                    stage.Value = StoredValues.ToText(row.Stage);
+                    scoredAt.Value = StoredValues.ToUnixMicroseconds(row.ScoredAt);
+                    key.Value = (object?)row.Key ?? DBNull.Value;
+                    eta.Value = row.Eta;
+                    probability.Value = row.Probability;
+                    features.Value = row.FeaturesJson;
+                    try
+                    {
+                        insert.ExecuteNonQuery();
+                    }
+                    catch (SqliteException e) when (e.SqliteExtendedErrorCode == PrimaryKeyConstraint)
+                    {
+                        throw new InvalidOperationException(
+                            $"No prediction of the batch was written: id {row.Id} is repeated in the batch or already stored.", e);
+                    }
+                }
+
+                return true;
+            },
+            cancellationToken);
+    }
+
+    /// <inheritdoc />
+    public async Task<PredictionRecord?> GetPredictionAsync(Guid id, CancellationToken cancellationToken = default)
+    {
+        await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
+        using var command = Command(connection, null, $"SELECT {PredictionColumns} FROM predictions WHERE id = $id;");
+        command.Parameters.Add("$id", SqliteType.Blob).Value = StoredValues.ToBytes(id);
+        using var reader = command.ExecuteReader();
+        return reader.Read() ? ReadPrediction(reader) : null;
+    }
+
+    /// <inheritdoc />
+    /// <remarks>Predictions scored at the same microsecond come in the order they were written.</remarks>
+    public async Task<IReadOnlyList<PredictionRecord>> GetPredictionsAsync(
+        string model, string? version, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken = default)
+    {
+        ArgumentNullException.ThrowIfNull(model);
+        await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
+        var versionFilter = version is null ? string.Empty : "AND version = $version ";
+        using var command = Command(
+            connection,
+            null,
+            $"SELECT {PredictionColumns} FROM predictions WHERE model = $model {versionFilter}AND scored_at >= $from AND scored_at < $to ORDER BY scored_at, rowid;");
+        command.Parameters.AddWithValue("$model", model);
+        if (version is not null)
+        {
+            command.Parameters.AddWithValue("$version", version);
+        }
+
+        command.Parameters.AddWithValue("$from", StoredValues.ToUnixMicroseconds(from));
+        command.Parameters.AddWithValue("$to", StoredValues.ToUnixMicroseconds(to));
+        using var reader = command.ExecuteReader();
+        var predictions = new List<PredictionRecord>();
+        while (reader.Read())
+        {
+            cancellationToken.ThrowIfCancellationRequested();
+            predictions.Add(ReadPrediction(reader));
+        }
+
+        return predictions;
+    }
+
+    /// <inheritdoc />
+    public async Task<long> CountPredictionsAsync(string model, string? version = null, CancellationToken cancellationToken = default)
+    {
+        ArgumentNullException.ThrowIfNull(model);
+        await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
+        using var command = Command(
+            connection,
+            null,
+            version is null
+                ? "SELECT count(*) FROM predictions WHERE model = $model;"
+                : "SELECT count(*) FROM predictions WHERE model = $model AND version = $version;");
+        command.Parameters.AddWithValue("$model", model);
+        if (version is not null)
+        {
+            command.Parameters.AddWithValue("$version", version);
+        }
+
+        return Convert.ToInt64(command.ExecuteScalar(), CultureInfo.InvariantCulture);
+    }
+
+    /// <summary>Closes the pooled connections to the file. Calls after this throw <see cref="ObjectDisposedException"/>.</summary>
+    public ValueTask DisposeAsync()
+    {
+        if (!_disposed)
+        {
+            _disposed = true;
+            using var connection = new SqliteConnection(_connectionString);
+            SqliteConnection.ClearPool(connection);
+        }
+
+        return ValueTask.CompletedTask;
+    }
+
+    /// <summary>A connection with this store's settings applied; for the tests' look at the file.</summary>
+    internal async Task<SqliteConnection> OpenAsync(CancellationToken cancellationToken)
+    {
+        ObjectDisposedException.ThrowIf(_disposed, this);
+        var connection = new SqliteConnection(_connectionString);
+        try
+        {
+            await connection.OpenAsync(cancellationToken).ConfigureAwait(false);
+
+            // Per connection, not per file; cheap enough to repeat on every (pooled) open.
+            Execute(connection, null, _connectionPragmas);
+            return connection;
+        }
+        catch
+        {
+            await connection.DisposeAsync().ConfigureAwait(false);
+            throw;
+        }
+    }
+
+    private async Task<T> WriteAsync<T>(Func<SqliteConnection, SqliteTransaction, T> work, CancellationToken cancellationToken)
+    {
+        await _writeLock.WaitAsync(cancellationToken).ConfigureAwait(false);
+        try
+        {
+            await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
+            using var transaction = connection.BeginTransaction(deferred: false);
+            var result = work(connection, transaction);
+            transaction.Commit();
+            return result;
+        }
+        finally
+        {
+            _writeLock.Release();
+        }
+    }
+
+    private static void CheckPrediction(PredictionRecord? row, int index)
+    {
+        if (row is null)
+        {
+            throw new ArgumentException($"batch[{index}] is null.", "batch");
+        }
+
+        if (string.IsNullOrEmpty(row.Model) || string.IsNullOrEmpty(row.Version))
+        {
+            throw new ArgumentException($"batch[{index}] (id {row.Id}) has no Model or no Version.", "batch");
+        }
+
+        if (!double.IsFinite(row.Eta))
+        {
+            throw new ArgumentException($"batch[{index}] (id {row.Id}) has Eta = {row.Eta.ToString(CultureInfo.InvariantCulture)}; Eta must be finite.", "batch");
+        }
+
+        if (!double.IsFinite(row.Probability))
+        {
+            throw new ArgumentException(
+                $"batch[{index}] (id {row.Id}) has Probability = {row.Probability.ToString(CultureInfo.InvariantCulture)}; Probability must be finite.", "batch");
+        }
+
+        if (row.FeaturesJson is null)
+        {
+            throw new ArgumentException($"batch[{index}] (id {row.Id}) has no FeaturesJson.", "batch");
+        }
+
+        if (!Enum.IsDefined(row.Stage))
+        {
+            throw new ArgumentException($"batch[{index}] (id {row.Id}) has Stage = {(int)row.Stage}, which is not a stage.", "batch");
+        }
+    }
+
+    private static ModelVersionRecord? FindVersion(SqliteConnection connection, SqliteTransaction transaction, string model, string version)
+    {
+        using var command = Command(connection, transaction, $"SELECT {StageColumns} FROM model_versions WHERE model = $model AND version = $version;");
+        command.Parameters.AddWithValue("$model", model);
+        command.Parameters.AddWithValue("$version", version);
+        using var reader = command.ExecuteReader();
+        return reader.Read() ? ReadVersion(reader) : null;
+    }
+
+    private static ModelVersionRecord ReadVersion(SqliteDataReader reader) => new(
+        reader.GetString(0),
+        reader.GetString(1),
+        reader.GetString(2),
+        StoredValues.FromUnixMicroseconds(reader.GetInt64(3)),
+        StoredValues.ToStage(reader.GetString(4)));
+
+    private static PredictionRecord ReadPrediction(SqliteDataReader reader) => new(
+        StoredValues.ToGuid(reader.GetFieldValue<byte[]>(0)),
+        reader.GetString(1),
+        reader.GetString(2),
+        StoredValues.ToStage(reader.GetString(3)),
+        StoredValues.FromUnixMicroseconds(reader.GetInt64(4)),
+        reader.IsDBNull(5) ? null : reader.GetString(5),
+        reader.GetDouble(6),
+        reader.GetDouble(7),
+        reader.GetString(8));
+
+    private static SqliteCommand HistoryInsert(SqliteConnection connection, SqliteTransaction transaction)
+    {
+        var command = Command(
+            connection,
+            transaction,
+            "INSERT INTO stage_changes (model, version, from_stage, to_stage, actor, at) VALUES ($model, $version, $from, $to, $actor, $at);");
+        command.Parameters.Add("$model", SqliteType.Text);
+        command.Parameters.Add("$version", SqliteType.Text);
+        command.Parameters.Add("$from", SqliteType.Text);
+        command.Parameters.Add("$to", SqliteType.Text);
+        command.Parameters.Add("$actor", SqliteType.Text);
+        command.Parameters.Add("$at", SqliteType.Integer);
+        return command;
+    }
+
+    private static void BindHistory(SqliteCommand history, string model, string version, string? from, string to, string actor, DateTimeOffset at)
+    {
+        history.Parameters["$model"].Value = model;
+        history.Parameters["$version"].Value = version;
+        history.Parameters["$from"].Value = (object?)from ?? DBNull.Value;
+        history.Parameters["$to"].Value = to;
+        history.Parameters["$actor"].Value = actor;
+        history.Parameters["$at"].Value = StoredValues.ToUnixMicroseconds(at);
+    }
+
+    private static SqliteCommand Command(SqliteConnection connection, SqliteTransaction? transaction, string sql)
+    {
+        var command = connection.CreateCommand();
+        command.Transaction = transaction;
+        command.CommandText = sql;
+        return command;
+    }
+
+    private static void Execute(SqliteConnection connection, SqliteTransaction? transaction, string sql)
+    {
+        using var command = Command(connection, transaction, sql);
+        command.ExecuteNonQuery();
+    }
+
+    private static object? Scalar(SqliteConnection connection, SqliteTransaction? transaction, string sql)
+    {
+        using var command = Command(connection, transaction, sql);
+        return command.ExecuteScalar();
+    }
+}

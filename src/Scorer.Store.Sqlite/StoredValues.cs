@@ -1,0 +1,45 @@
+namespace Scorer.Store.Sqlite;
+
+/// <summary>How values are written to and read from the SQLite columns.</summary>
+internal static class StoredValues
+{
+    private const long TicksPerMicrosecond = TimeSpan.TicksPerMillisecond / 1000;
+
+    /// <summary>Microseconds since the Unix epoch, UTC, rounded down (towards the past).</summary>
+    public static long ToUnixMicroseconds(DateTimeOffset time)
+    {
+        var ticks = time.UtcTicks - DateTimeOffset.UnixEpoch.UtcTicks;
+        return ticks >= 0 ? ticks / TicksPerMicrosecond : ((ticks + 1) / TicksPerMicrosecond) - 1;
+    }
+
+    public static DateTimeOffset FromUnixMicroseconds(long microseconds) =>
+        new(DateTimeOffset.UnixEpoch.UtcTicks + (microseconds * TicksPerMicrosecond), TimeSpan.Zero);
+
+    public static string ToText(Stage stage) => stage switch
+    {
+        Stage.Live => "live",
+        Stage.Shadow => "shadow",
+        Stage.Retired => "retired",
+        _ => throw new ArgumentOutOfRangeException(nameof(stage), stage, "Not a stage: expected Live, Shadow or Retired."),
+    };
+
+    public static Stage ToStage(string text) => text switch
+    {
+        "live" => Stage.Live,
+        "shadow" => Stage.Shadow,
+        "retired" => Stage.Retired,
+        _ => throw new InvalidOperationException($"The database holds an unknown stage '{text}'."),
+    };
+
+    /// <summary>The Guid's 16 bytes in big-endian (RFC 9562) order, as a PostgreSQL uuid holds them.</summary>
+    public static byte[] ToBytes(Guid id)
+    {
+        var bytes = new byte[16];
+        id.TryWriteBytes(bytes, bigEndian: true, out _);
+        return bytes;
+    }
+
+    public static Guid ToGuid(ReadOnlySpan<byte> bytes) => bytes.Length == 16
+        ? new Guid(bytes, bigEndian: true)
+        : throw new InvalidOperationException($"The database holds a prediction id of {bytes.Length} bytes; ids are 16.");
+}

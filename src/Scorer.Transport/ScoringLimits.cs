@@ -1,0 +1,17 @@
+namespace Scorer.Transport;
+
+/// <summary>Limits on what one request may carry. Each has a documented default.</summary>
+public sealed record ScoringLimits
+{
+    /// <summary>Rows per request message. Default 10,000.</summary>
+    public int MaxRows { get; init; } = 10_000;
+
+    /// <summary>Fields per row. Default 1,000.</summary>
+    public int MaxFeaturesPerRow { get; init; } = 1_000;
+
+    /// <summary>Characters in a level, a key or a feature name. Default 256.</summary>
+    public int MaxStringLength { get; init; } = 256;
+
+    /// <summary>Values in one dense message. Default 10,000,000.</summary>
+    public int MaxDenseValues { get; init; } = 10_000_000;
+}

@@ -1,0 +1,385 @@
+using System.Buffers;
+using System.Globalization;
+using System.Text.Json;
+using Google.Protobuf;
+using Google.Protobuf.WellKnownTypes;
+using Grpc.Core;
+using Scorer.Engine;
+using Scorer.Engine.Scoring;
+using Scorer.ModelFile;
+using Scorer.Registry;
+using Scorer.Store;
+using Scorer.Transport.V1;
+
+namespace Scorer.Transport.Services;
+
+/// <summary>
+/// Scoring over gRPC (and REST through transcoding): reads the registry's snapshot once per message, scores every row
+/// with one version, logs each scored row behind the request, and hands the rows to the shadow versions.
+/// </summary>
+public sealed class ScoringService(ModelRegistry registry, PredictionLog log, ShadowScorer shadows, ScoringLimits limits, TimeProvider time)
+    : Scoring.ScoringBase
+{
+    private static readonly ScoreSettings DefaultSettings = ScoreSettings.Default;
+
+    public override Task<ScoreResponse> Score(ScoreRequest request, ServerCallContext context) => Task.FromResult(ScoreMessage(request));
+
+    public override async Task ScoreStream(IAsyncStreamReader<ScoreRequest> requestStream, IServerStreamWriter<ScoreResponse> responseStream, ServerCallContext context)
+    {
+        await foreach (var request in requestStream.ReadAllAsync(context.CancellationToken).ConfigureAwait(false))
+        {
+            await responseStream.WriteAsync(ScoreMessage(request), context.CancellationToken).ConfigureAwait(false);
+        }
+    }
+
+    public override Task<DenseScoreResponse> ScoreDense(DenseScoreRequest request, ServerCallContext context) =>
+        Task.FromResult(ScoreDenseMessage(request, null));
+
+    public override async Task ScoreDenseStream(IAsyncStreamReader<DenseScoreRequest> requestStream, IServerStreamWriter<DenseScoreResponse> responseStream, ServerCallContext context)
+    {
+        IReadOnlyList<string>? features = null;
+        await foreach (var request in requestStream.ReadAllAsync(context.CancellationToken).ConfigureAwait(false))
+        {
+            if (request.Features.Count > 0)
+            {
+                features = [.. request.Features];
+            }
+
+            await responseStream.WriteAsync(ScoreDenseMessage(request, features), context.CancellationToken).ConfigureAwait(false);
+        }
+    }
+
+    internal ScoreResponse ScoreMessage(ScoreRequest request)
+    {
+        var version = Resolve(request.Model, request.Version, out var entry);
+        var model = version.Compiled;
+        if (request.Rows.Count > limits.MaxRows)
+        {
+            throw Errors.TooMuch("rows", $"{request.Rows.Count} rows in one request; at most {limits.MaxRows}");
+        }
+
+        if (request.Keys.Count != 0 && request.Keys.Count != request.Rows.Count)
+        {
+            throw Errors.Invalid("keys", $"{request.Keys.Count} keys for {request.Rows.Count} rows; give one key per row, or none");
+        }
+
+        var settings = Settings(request.HasLevel, request.Level, "level");
+        var topContributions = request.HasContributions ? request.Contributions : 0;
+        var now = time.GetUtcNow();
+        var response = new ScoreResponse { Model = version.Model, Version = version.Version };
+        var contributions = new double[model.TermCount];
+        var warnings = new Engine.Scoring.RowWarning[model.MaxWarningsPerRow];
+        var rowsForShadow = entry.Shadows.Length > 0 ? new NamedValue[request.Rows.Count][] : null;
+        var featuresJson = new string[request.Rows.Count];
+        var keys = new string?[request.Rows.Count];
+        for (var i = 0; i < request.Rows.Count; i++)
+        {
+            var key = request.Keys.Count > 0 ? request.Keys[i] : null;
+            keys[i] = string.IsNullOrEmpty(key) ? null : key;
+            var result = new RowResult { Id = Guid.CreateVersion7(now).ToString(), Key = key ?? "", Error = Value.ForNull() };
+            response.Results.Add(result);
+            if (key is { Length: > 0 } && key.Length > limits.MaxStringLength)
+            {
+                result.Error = RowErrorValue($"keys[{i}]", $"longer than {limits.MaxStringLength} characters");
+                continue;
+            }
+
+            var row = request.Rows[i];
+            if (!TryBind(row, i, out var values, out var bindError))
+            {
+                result.Error = bindError!;
+                continue;
+            }
+
+            var r = model.Score(values, settings, contributions, warnings);
+            if (r.Failed)
+            {
+                result.Error = RowErrorValue(RowMessages.Field(model, r.Error), RowMessages.Describe(model, r.Error));
+                continue;
+            }
+
+            Fill(result, r, model, contributions, warnings, topContributions);
+            featuresJson[i] = JsonFormatter.Default.Format(row);
+            log.TryEnqueue(new PredictionRecord(Guid.Parse(result.Id), version.Model, version.Version, version.Stage, now, keys[i], r.Eta, r.Probability, featuresJson[i]));
+            if (rowsForShadow is not null)
+            {
+                rowsForShadow[i] = values;
+            }
+        }
+
+        if (rowsForShadow is not null && version.Stage == Stage.Live)
+        {
+            var scored = Enumerable.Range(0, rowsForShadow.Length).Where(i => rowsForShadow[i] is not null).ToArray();
+            shadows.Enqueue(new ShadowWork(entry.Shadows, [.. scored.Select(i => rowsForShadow[i])], [.. scored.Select(i => keys[i])],
+                [.. scored.Select(i => featuresJson[i])], now));
+        }
+
+        return response;
+    }
+
+    internal DenseScoreResponse ScoreDenseMessage(DenseScoreRequest request, IReadOnlyList<string>? streamFeatures)
+    {
+        var version = Resolve(request.Model, request.Version, out _);
+        var model = version.Compiled;
+        var names = request.Features.Count > 0 ? (IReadOnlyList<string>)request.Features : streamFeatures
+            ?? throw Errors.Invalid("features", "name the feature of each column (on a stream, in the first message at least)");
+        if (names.Count == 0)
+        {
+            throw Errors.Invalid("features", "no feature names given");
+        }
+
+        if (request.Values.Count > limits.MaxDenseValues)
+        {
+            throw Errors.TooMuch("values", $"{request.Values.Count} values in one message; at most {limits.MaxDenseValues}");
+        }
+
+        if (request.Values.Count % names.Count != 0)
+        {
+            throw Errors.Invalid("values", $"{request.Values.Count} values are not a whole number of rows of {names.Count} features");
+        }
+
+        var columnOf = new int[names.Count];
+        for (var c = 0; c < names.Count; c++)
+        {
+            columnOf[c] = model.FeatureIndexOf(names[c]);
+            if (columnOf[c] < 0)
+            {
+                throw Errors.Invalid($"features[{c}]", $"'{names[c]}' is not a feature of {version.Model} {version.Version} ({string.Join(", ", model.FeatureNames)})");
+            }
+        }
+
+        var rows = request.Values.Count / names.Count;
+        if (rows > limits.MaxRows * 10)
+        {
+            throw Errors.TooMuch("values", $"{rows} rows in one message; at most {limits.MaxRows * 10}");
+        }
+
+        if (request.Keys.Count != 0 && request.Keys.Count != rows)
+        {
+            throw Errors.Invalid("keys", $"{request.Keys.Count} keys for {rows} rows; give one key per row, or none");
+        }
+
+        var settings = Settings(request.HasLevel, request.Level, "level");
+        var f = model.FeatureCount;
+        var matrix = ArrayPool<double>.Shared.Rent(rows * f);
+        var results = ArrayPool<ScoredRow>.Shared.Rent(rows);
+        try
+        {
+            var dense = matrix.AsSpan(0, rows * f);
+            dense.Fill(double.NaN);
+            var values = request.Values;
+            for (var r = 0; r < rows; r++)
+            {
+                for (var c = 0; c < names.Count; c++)
+                {
+                    dense[(r * f) + columnOf[c]] = values[(r * names.Count) + c];
+                }
+            }
+
+            model.ScoreBatch(dense, results.AsSpan(0, rows), settings);
+            var now = time.GetUtcNow();
+            var response = new DenseScoreResponse { Model = version.Model, Version = version.Version };
+            for (var r = 0; r < rows; r++)
+            {
+                ref readonly var s = ref results[r];
+                var id = Guid.CreateVersion7(now);
+                response.Ids.Add(id.ToString());
+                response.Eta.Add(s.Eta);
+                response.Se.Add(s.Se);
+                response.Probability.Add(s.Probability);
+                response.Lower.Add(s.Lower);
+                response.Upper.Add(s.Upper);
+                response.Flag.Add(s.Flag);
+                response.WarningCount.Add(s.WarningCount);
+                if (s.Failed)
+                {
+                    response.Errors.Add(new DenseRowError { Row = r, Field = RowMessages.Field(model, s.Error), Reason = RowMessages.Describe(model, s.Error) });
+                    continue;
+                }
+
+                if (log.Enabled)
+                {
+                    var key = request.Keys.Count > 0 && request.Keys[r].Length > 0 ? request.Keys[r] : null;
+                    log.TryEnqueue(new PredictionRecord(id, version.Model, version.Version, version.Stage, now, key, s.Eta, s.Probability,
+                        DenseJson(model, dense.Slice(r * f, f))));
+                }
+            }
+
+            return response;
+        }
+        finally
+        {
+            ArrayPool<double>.Shared.Return(matrix);
+            ArrayPool<ScoredRow>.Shared.Return(results);
+        }
+    }
+
+    private LoadedVersion Resolve(string modelName, string versionName, out ModelEntry entry)
+    {
+        if (string.IsNullOrEmpty(modelName))
+        {
+            throw Errors.Invalid("model", "name the model");
+        }
+
+        var snapshot = registry.Current;
+        entry = snapshot.Find(modelName) ?? throw Errors.NotFound("model",
+            $"no model '{modelName}' is loaded" + (snapshot.Models.Count > 0 ? $" (loaded: {string.Join(", ", snapshot.Models.Keys)})" : ""));
+        if (string.IsNullOrEmpty(versionName))
+        {
+            return entry.Live ?? throw Errors.Precondition("version", $"model '{modelName}' has no live version; name a version or promote one");
+        }
+
+        var e = entry;
+        return entry.Find(versionName) ?? throw Errors.NotFound("version",
+            $"model '{modelName}' has no version '{versionName}' (loaded: {string.Join(", ", e.Versions.Select(v => v.Version))})");
+    }
+
+    private static ScoreSettings Settings(bool hasLevel, double level, string field)
+    {
+        if (!hasLevel)
+        {
+            return DefaultSettings;
+        }
+
+        if (!(level > 0 && level < 1))
+        {
+            throw Errors.Invalid(field, $"{level.ToString(CultureInfo.InvariantCulture)} is not a confidence level; give a number strictly between 0 and 1, e.g. 0.95");
+        }
+
+        return ScoreSettings.WithBand(level);
+    }
+
+    private bool TryBind(Struct row, int index, out NamedValue[] values, out Value? error)
+    {
+        values = [];
+        error = null;
+        if (row is null)
+        {
+            error = RowErrorValue($"rows[{index}]", "the row is not a JSON object");
+            return false;
+        }
+
+        if (row.Fields.Count > limits.MaxFeaturesPerRow)
+        {
+            error = RowErrorValue($"rows[{index}]", $"{row.Fields.Count} fields; at most {limits.MaxFeaturesPerRow}");
+            return false;
+        }
+
+        values = new NamedValue[row.Fields.Count];
+        var i = 0;
+        foreach (var (name, value) in row.Fields)
+        {
+            FeatureValue v;
+            switch (value.KindCase)
+            {
+                case Value.KindOneofCase.NumberValue:
+                    v = FeatureValue.Of(value.NumberValue);
+                    break;
+                case Value.KindOneofCase.StringValue:
+                    if (value.StringValue.Length > limits.MaxStringLength)
+                    {
+                        error = RowErrorValue(name, $"longer than {limits.MaxStringLength} characters");
+                        return false;
+                    }
+
+                    v = FeatureValue.Of(value.StringValue);
+                    break;
+                case Value.KindOneofCase.BoolValue:
+                    v = FeatureValue.Of(value.BoolValue ? 1.0 : 0.0);
+                    break;
+                case Value.KindOneofCase.NullValue:
+                case Value.KindOneofCase.None:
+                    v = FeatureValue.Missing;
+                    break;
+                default:
+                    error = RowErrorValue(name, "expects a number or a string, got " + (value.KindCase == Value.KindOneofCase.ListValue ? "a list" : "an object"));
+                    return false;
+            }
+
+            values[i++] = new NamedValue(name, v);
+        }
+
+        return true;
+    }
+
+    /// <summary>A row's error as the JSON object {"field", "reason"}.</summary>
+    internal static Value RowErrorValue(string field, string reason) => Value.ForStruct(new Struct
+    {
+        Fields = { ["field"] = Value.ForString(field), ["reason"] = Value.ForString(reason) },
+    });
+
+    private static void Fill(RowResult result, in ScoredRow r, CompiledModel model, double[] contributions, Engine.Scoring.RowWarning[] warnings, int top)
+    {
+        result.Eta = r.Eta;
+        result.Probability = r.Probability;
+        if (!double.IsNaN(r.Se))
+        {
+            result.Se = r.Se;
+            result.Lower = r.Lower;
+            result.Upper = r.Upper;
+        }
+
+        if (r.FlagValue is { } flag)
+        {
+            result.Flag = flag;
+        }
+
+        if (top >= 0)
+        {
+            var order = Enumerable.Range(0, model.TermCount);
+            if (top > 0)
+            {
+                order = order.OrderByDescending(j => Math.Abs(contributions[j])).Take(top);
+            }
+
+            foreach (var j in order)
+            {
+                result.Contributions.Add(new Contribution { Term = model.TermNames[j], Value = contributions[j] });
+            }
+        }
+
+        for (var w = 0; w < Math.Min(r.WarningCount, warnings.Length); w++)
+        {
+            result.Warnings.Add(new V1.RowWarning
+            {
+                Code = RowMessages.Code(warnings[w].Kind),
+                Field = warnings[w].Feature >= 0 ? model.FeatureNames[warnings[w].Feature] : "",
+                Message = RowMessages.Describe(model, warnings[w]),
+            });
+        }
+    }
+
+    /// <summary>A dense row's values as a JSON object (categorical codes as their level names), for the prediction log.</summary>
+    private static string DenseJson(CompiledModel model, ReadOnlySpan<double> values)
+    {
+        var buffer = new ArrayBufferWriter<byte>(256);
+        using (var w = new Utf8JsonWriter(buffer))
+        {
+            w.WriteStartObject();
+            for (var f = 0; f < values.Length; f++)
+            {
+                var v = values[f];
+                if (double.IsNaN(v))
+                {
+                    w.WriteNull(model.FeatureNames[f]);
+                }
+                else if (model.FeatureKindOf(f) == FeatureKind.Categorical && v >= 0 && v < model.Levels(f).Count && v == Math.Floor(v))
+                {
+                    w.WriteString(model.FeatureNames[f], model.Levels(f)[(int)v]);
+                }
+                else if (double.IsFinite(v))
+                {
+                    w.WriteNumber(model.FeatureNames[f], v);
+                }
+                else
+                {
+                    w.WriteNull(model.FeatureNames[f]);
+                }
+            }
+
+            w.WriteEndObject();
+        }
+
+        return System.Text.Encoding.UTF8.GetString(buffer.WrittenSpan);
+    }
+}

@@ -1,0 +1,81 @@
+using System.Threading.Channels;
+using Microsoft.Extensions.Logging;
+using Scorer.Engine.Scoring;
+using Scorer.Registry;
+using Scorer.Store;
+
+namespace Scorer.Transport;
+
+/// <summary>Rows a live version scored, to be scored again by the model's shadow versions.</summary>
+public sealed record ShadowWork(IReadOnlyList<LoadedVersion> Shadows, NamedValue[][] Rows, string?[] Keys, string[] FeaturesJson, DateTimeOffset ScoredAt);
+
+/// <summary>
+/// Scores rows with the shadow versions off the request path and logs the results (stage shadow); nothing is
+/// returned to the caller. Bounded: when it falls behind, work is dropped and counted.
+/// </summary>
+public sealed class ShadowScorer : IAsyncDisposable
+{
+    private readonly Channel<ShadowWork> _queue = Channel.CreateBounded<ShadowWork>(new BoundedChannelOptions(10_000) { SingleReader = true });
+    private readonly PredictionLog _log;
+    private readonly ILogger<ShadowScorer> _logger;
+    private readonly TimeProvider _time;
+    private readonly Task _loop;
+    private long _dropped;
+    private long _scored;
+
+    public ShadowScorer(PredictionLog log, TimeProvider time, ILogger<ShadowScorer> logger)
+    {
+        _log = log;
+        _time = time;
+        _logger = logger;
+        _loop = Task.Run(LoopAsync);
+    }
+
+    public long Dropped => Interlocked.Read(ref _dropped);
+    public long Scored => Interlocked.Read(ref _scored);
+
+    public void Enqueue(ShadowWork work)
+    {
+        if (!_queue.Writer.TryWrite(work))
+        {
+            Interlocked.Increment(ref _dropped);
+        }
+    }
+
+    public async ValueTask DisposeAsync()
+    {
+        _queue.Writer.TryComplete();
+        await _loop.ConfigureAwait(false);
+    }
+
+    private async Task LoopAsync()
+    {
+        await foreach (var work in _queue.Reader.ReadAllAsync().ConfigureAwait(false))
+        {
+            try
+            {
+                foreach (var shadow in work.Shadows)
+                {
+                    for (var i = 0; i < work.Rows.Length; i++)
+                    {
+                        var r = shadow.Compiled.Score(work.Rows[i], ScoreSettings.PointOnly);
+                        if (r.Failed)
+                        {
+                            continue;
+                        }
+
+                        _log.TryEnqueue(new PredictionRecord(Guid.CreateVersion7(_time.GetUtcNow()), shadow.Model, shadow.Version, Stage.Shadow,
+                            work.ScoredAt, work.Keys[i], r.Eta, r.Probability, work.FeaturesJson[i]));
+                        Interlocked.Increment(ref _scored);
+                    }
+                }
+            }
+#pragma warning disable CA1031 // a shadow failure must never reach callers; it is logged
+            catch (Exception ex)
+#pragma warning restore CA1031
+            {
+                _logger.LogError(ex, "Shadow scoring failed");
+            }
+        }
+    }
+}
