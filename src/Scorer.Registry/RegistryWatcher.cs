@@ -12,6 +12,7 @@ public sealed class RegistryWatcher(ModelRegistry registry, RegistryOptions opti
     private readonly SemaphoreSlim _poke = new(0, 1);
     private FileSystemWatcher? _watcher;
     private Task? _loop;
+    private int _disposed;
 
     /// <summary>How often the folder is rescanned without a watcher event. Default 1 s.</summary>
     public TimeSpan RescanInterval { get; init; } = TimeSpan.FromSeconds(1);
@@ -32,6 +33,11 @@ public sealed class RegistryWatcher(ModelRegistry registry, RegistryOptions opti
 
     public async ValueTask DisposeAsync()
     {
+        if (Interlocked.Exchange(ref _disposed, 1) == 1)
+        {
+            return;
+        }
+
         await _stop.CancelAsync().ConfigureAwait(false);
         _watcher?.Dispose();
         if (_loop is not null)

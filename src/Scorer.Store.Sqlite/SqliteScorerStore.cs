@@ -31,9 +31,6 @@ public sealed class SqliteScorerStore : IScorerStore
     private const string StageColumns = "model, version, file_sha256, loaded_at, stage";
     private const string PredictionColumns = "id, model, version, stage, scored_at, \"key\", eta, probability, features";
 
-    /// <summary>SQLITE_CONSTRAINT_PRIMARYKEY: the extended result code of a repeated primary key.</summary>
-    private const int PrimaryKeyConstraint = 1555;
-
     private readonly string _connectionString;
     private readonly string _connectionPragmas;
     private readonly TimeProvider _clock;
@@ -319,47 +316,9 @@ public sealed class SqliteScorerStore : IScorerStore
         }
 
         return WriteAsync(
-            (connection, transaction) =>
+            (connection, _) =>
             {
-                // One prepared statement for the batch; only the parameter values change from row to row.
-                using var insert = Command(
-                    connection,
-                    transaction,
-                    $"INSERT INTO predictions ({PredictionColumns}) VALUES ($id, $model, $version, $stage, $scoredAt, $key, $eta, $probability, $features);");
-                var id = insert.Parameters.Add("$id", SqliteType.Blob);
-                var model = insert.Parameters.Add("$model", SqliteType.Text);
-                var version = insert.Parameters.Add("$version", SqliteType.Text);
-                var stage = insert.Parameters.Add("$stage", SqliteType.Text);
-                var scoredAt = insert.Parameters.Add("$scoredAt", SqliteType.Integer);
-                var key = insert.Parameters.Add("$key", SqliteType.Text);
-                var eta = insert.Parameters.Add("$eta", SqliteType.Real);
-                var probability = insert.Parameters.Add("$probability", SqliteType.Real);
-                var features = insert.Parameters.Add("$features", SqliteType.Text);
-                insert.Prepare();
-
-                foreach (var row in batch)
-                {
-                    cancellationToken.ThrowIfCancellationRequested();
-                    id.Value = StoredValues.ToBytes(row.Id);
-                    model.Value = row.Model;
-                    version.Value = row.Version;
-                    stage.Value = StoredValues.ToText(row.Stage);
-                    scoredAt.Value = StoredValues.ToUnixMicroseconds(row.ScoredAt);
-                    key.Value = (object?)row.Key ?? DBNull.Value;
-                    eta.Value = row.Eta;
-                    probability.Value = row.Probability;
-                    features.Value = row.FeaturesJson;
-                    try
-                    {
-                        insert.ExecuteNonQuery();
-                    }
-                    catch (SqliteException e) when (e.SqliteExtendedErrorCode == PrimaryKeyConstraint)
-                    {
-                        throw new InvalidOperationException(
-                            $"No prediction of the batch was written: id {row.Id} is repeated in the batch or already stored.", e);
-                    }
-                }
-
+                PredictionBatchInsert.Run(connection, batch, cancellationToken);
                 return true;
             },
             cancellationToken);
