@@ -34,7 +34,10 @@ public sealed class ModelRegistry(RegistryOptions options, IScorerStore store, T
     public const string SystemActor = "registry";
 
     private readonly SemaphoreSlim _gate = new(1, 1);
-    private readonly Dictionary<string, (string Sha256, LoadedVersion? Version, LoadFailure? Failure)> _files = new(StringComparer.Ordinal);
+    // What each file held when last read (a failure, or null when it loaded), and the versions loaded, by (model, version).
+    // A version stays loaded when its file changes or goes: versions are immutable.
+    private readonly Dictionary<string, (string Sha256, LoadFailure? Failure)> _files = new(StringComparer.Ordinal);
+    private readonly Dictionary<(string Model, string Version), LoadedVersion> _versions = [];
     private Dictionary<(string Model, string Version), Stage> _stages = [];
     private bool _stagesRead;
     private RegistrySnapshot _current = RegistrySnapshot.Empty;
@@ -103,7 +106,7 @@ public sealed class ModelRegistry(RegistryOptions options, IScorerStore store, T
                 }
             }
 
-            var loaded = _files.Values.Where(f => f.Version is not null).Select(f => f.Version!).ToList();
+            var loaded = _versions.Values.ToList();
             foreach (var (file, sha, doc, bytes) in fresh.OrderBy(f => f.Doc.Model, StringComparer.Ordinal).ThenBy(f => f.Doc.Version, StringComparer.Ordinal))
             {
                 var existing = loaded.FirstOrDefault(v => v.Model == doc.Model && v.Version == doc.Version);
@@ -111,7 +114,7 @@ public sealed class ModelRegistry(RegistryOptions options, IScorerStore store, T
                 {
                     if (existing.Sha256 == sha)
                     {
-                        _files[file] = (sha, null, null); // the same content under another name
+                        _files[file] = (sha, null); // the same content under another name
                         continue;
                     }
 
@@ -144,7 +147,8 @@ public sealed class ModelRegistry(RegistryOptions options, IScorerStore store, T
                 var record = await store.AddVersionAsync(new ModelVersionRecord(doc.Model, doc.Version, sha, now, stage), SystemActor, cancellationToken).ConfigureAwait(false);
                 _stages[key] = record.Stage;
                 var version = new LoadedVersion(doc.Model, doc.Version, record.Stage, compiled, file, sha, now, bytes);
-                _files[file] = (sha, version, null);
+                _files[file] = (sha, null);
+                _versions[key] = version;
                 loaded.Add(version);
                 logger.LogInformation("Loaded {Model} {Version} ({Stage}) from {File}", doc.Model, doc.Version, record.Stage, file);
             }
@@ -190,11 +194,11 @@ public sealed class ModelRegistry(RegistryOptions options, IScorerStore store, T
                 _stages[(c.Model, c.Version)] = c.To;
             }
 
-            foreach (var (file, value) in _files.ToList())
+            foreach (var (key, v) in _versions.ToList())
             {
-                if (value.Version is { } v && v.Model == model && _stages.TryGetValue((v.Model, v.Version), out var s) && s != v.Stage)
+                if (_stages.TryGetValue(key, out var s) && s != v.Stage)
                 {
-                    _files[file] = (value.Sha256, v with { Stage = s }, null);
+                    _versions[key] = v with { Stage = s };
                 }
             }
 
@@ -228,13 +232,13 @@ public sealed class ModelRegistry(RegistryOptions options, IScorerStore store, T
 
     private void Fail(string file, string sha, IReadOnlyList<ModelFileProblem> problems)
     {
-        _files[file] = (sha, null, new LoadFailure(file, problems, time.GetUtcNow()));
+        _files[file] = (sha, new LoadFailure(file, problems, time.GetUtcNow()));
         logger.LogWarning("Could not load {File}: {Problems}", file, string.Join("; ", problems));
     }
 
     private void Publish()
     {
-        var versions = _files.Values.Where(f => f.Version is not null).Select(f => f.Version!)
+        var versions = _versions.Values
             .GroupBy(v => v.Model, StringComparer.Ordinal)
             .ToImmutableSortedDictionary(g => g.Key, g => new ModelEntry(g.Key, [.. g.OrderBy(v => v.Version, StringComparer.Ordinal)]), StringComparer.Ordinal);
         var failures = _files.Values.Where(f => f.Failure is not null).Select(f => f.Failure!).OrderBy(f => f.File, StringComparer.Ordinal).ToImmutableArray();

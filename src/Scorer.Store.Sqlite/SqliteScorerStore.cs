@@ -60,7 +60,7 @@ public sealed class SqliteScorerStore : IScorerStore
         _connectionString = builder.ToString();
         var busyTimeoutMs = (long)builder.DefaultTimeout * 1000;
         _connectionPragmas = string.Create(
-            CultureInfo.InvariantCulture, $"PRAGMA synchronous = NORMAL; PRAGMA busy_timeout = {busyTimeoutMs};");
+            CultureInfo.InvariantCulture, $"PRAGMA synchronous = NORMAL; PRAGMA cache_size = -65536; PRAGMA busy_timeout = {busyTimeoutMs};");
         _clock = clock;
     }
 
