@@ -14,6 +14,7 @@ public static class Program
         root.Subcommands.Add(Check(stdout, stderr));
         root.Subcommands.Add(Score(stdout, stderr));
         root.Subcommands.Add(Fit(stdout, stderr));
+        root.Subcommands.Add(Serve());
         return root.Parse(args).Invoke(new InvocationConfiguration { Output = stdout, Error = stderr });
     }
 
@@ -107,6 +108,30 @@ public static class Program
             Description = r.GetValue(description),
             Progress = !r.GetValue(quiet),
         }, stdout, stderr));
+        return command;
+    }
+
+    private static Command Serve()
+    {
+        var models = new Option<string?>("--models") { Description = "Folder of model files (default ./models, seeded with the demo models)." };
+        var store = new Option<string?>("--store") { Description = "SQLite file for stages and the prediction log (default ./data/scorer.db)." };
+        var http = new Option<string?>("--http") { Description = "HOST:PORT for REST (default 127.0.0.1:8080)." };
+        var grpc = new Option<string?>("--grpc") { Description = "HOST:PORT for gRPC over h2c (default 127.0.0.1:8081)." };
+        var command = new Command("serve", "Run the scoring service (REST and gRPC) with the models of a folder.") { models, store, http, grpc };
+        command.SetAction(async (r, _) =>
+        {
+            var args = new List<string>();
+            foreach (var (option, name) in new[] { (models, "--models"), (store, "--store"), (http, "--http"), (grpc, "--grpc") })
+            {
+                if (r.GetValue(option) is { } value)
+                {
+                    args.Add(name);
+                    args.Add(value);
+                }
+            }
+
+            return await Scorer.Server.ScorerServer.RunAsync([.. args]).ConfigureAwait(false);
+        });
         return command;
     }
 }
