@@ -106,6 +106,22 @@ public static class ScorerServer
         }
 
         var app = builder.Build();
+
+        // A declared body over the limit is refused before anything reads it (Kestrel's own limit catches the rest).
+        app.Use(async (context, next) =>
+        {
+            if (context.Request.ContentLength > options.MaxRequestBodyBytes)
+            {
+                context.Response.StatusCode = StatusCodes.Status413PayloadTooLarge;
+                context.Response.ContentType = "application/json";
+                await context.Response.WriteAsync(
+                    $"{{\"code\":8,\"message\":\"body: {context.Request.ContentLength} bytes; at most {options.MaxRequestBodyBytes} (Scorer:MaxRequestBodyBytes)\",\"details\":[]}}").ConfigureAwait(false);
+                return;
+            }
+
+            await next(context).ConfigureAwait(false);
+        });
+
         if (options.RateLimitPerSecond > 0)
         {
             app.UseRateLimiter();

@@ -11,7 +11,7 @@ namespace Scorer.Store.Sqlite;
 /// itself sits on) on the connection's own handle, inside the caller's transaction: text is bound as UTF-16 spans
 /// without a managed copy, the id from a stack buffer, and a value equal to the previous row's is not rebound
 /// (bindings outlive <c>sqlite3_reset</c>). Through <see cref="SqliteCommand"/> every row would rebind every
-/// parameter by name and build a data reader; measured on the reference machine that costs about half the rate.
+/// parameter by name and build a data reader; measured side by side, this path wrote about 40% more rows a second.
 /// </remarks>
 internal static class PredictionBatchInsert
 {

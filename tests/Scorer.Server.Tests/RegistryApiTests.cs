@@ -180,4 +180,16 @@ public sealed class RegistryApiTests : IDisposable
             ScorerServer.BuildAsync(["--models", _folder.Models, "--store", _folder.Store, "--http", "0.0.0.0:0", "--grpc", "127.0.0.1:0"]));
         Assert.Contains(ex.Failures, f => f.Contains("no API keys are configured", StringComparison.Ordinal));
     }
+
+    [Fact]
+    public async Task A_body_over_the_size_limit_gets_413()
+    {
+        _folder.AddModel(Files.Example("pump-bearings"), "pump.json");
+        await using var server = await RunningServer.StartAsync(_folder, new Dictionary<string, string?> { ["Scorer:MaxRequestBodyBytes"] = "4096" });
+        var rows = string.Join(",", Enumerable.Repeat("{\"vibration_rms\":3.2,\"bearing_temp_c\":61,\"hours_since_service\":2500,\"site\":\"river\"}", 100));
+        var (status, _) = await PostAsync(server, "/v1/models/pump-bearing-failure/score", "{\"rows\":[" + rows + "]}");
+        Assert.Equal(HttpStatusCode.RequestEntityTooLarge, status);
+        var (ok, _) = await PostAsync(server, "/v1/models/pump-bearing-failure/score", PumpRow);
+        Assert.Equal(HttpStatusCode.OK, ok);
+    }
 }

@@ -31,7 +31,7 @@ CREATE INDEX stage_changes_by_model ON stage_changes (model, id);
 --
 -- Kept lean for write speed: not STRICT and no CHECK constraints (the store writes it only through one bound
 -- statement, from typed values), no foreign key to model_versions (the log keeps what was scored whatever becomes of
--- the registry's records). Measured on the reference machine, STRICT and the CHECKs halved the write rate.
+-- the registry's records). Measured side by side, STRICT and the CHECKs halved the write rate.
 --
 -- eta and probability hold IEEE 754 doubles but have no declared type: a column of REAL affinity stores a
 -- whole-number double as an integer on disk, which turns -0.0 into 0.0. Without affinity the value is kept as bound,
@@ -49,4 +49,5 @@ CREATE TABLE predictions (
 );
 
 CREATE INDEX predictions_by_version_time ON predictions (model, version, scored_at);
-CREATE INDEX predictions_by_key ON predictions (model, "key");
+-- Rows without a key are left out of the key index: a lookup by key never wants them, and they then cost it nothing.
+CREATE INDEX predictions_by_key ON predictions (model, "key") WHERE "key" IS NOT NULL;
