@@ -1,0 +1,113 @@
+using Microsoft.Extensions.Logging.Abstractions;
+using Scorer.Store;
+using Scorer.Store.Sqlite;
+
+namespace Scorer.Server.Tests;
+
+/// <summary>The prediction log over a real SQLite store that is made slow or made to fail for a while.</summary>
+public sealed class PredictionLogTests : IDisposable
+{
+    private readonly TestFolder _folder = new();
+
+    public void Dispose() => _folder.Dispose();
+
+    /// <summary>The real store, with writes held at a gate or failed on demand.</summary>
+    private sealed class ThrottledStore(IScorerStore inner) : IScorerStore
+    {
+        public SemaphoreSlim Gate { get; } = new(0, int.MaxValue);
+        public int FailuresLeft { get; set; }
+        public bool Held { get; set; }
+
+        public async Task WritePredictionsAsync(IReadOnlyList<PredictionRecord> batch, CancellationToken cancellationToken = default)
+        {
+            if (Held)
+            {
+                await Gate.WaitAsync(cancellationToken);
+            }
+
+            if (FailuresLeft > 0)
+            {
+                FailuresLeft--;
+                throw new IOException("store unavailable (test)");
+            }
+
+            await inner.WritePredictionsAsync(batch, cancellationToken);
+        }
+
+        public Task MigrateAsync(CancellationToken cancellationToken = default) => inner.MigrateAsync(cancellationToken);
+        public Task<IReadOnlyList<ModelVersionRecord>> GetVersionsAsync(CancellationToken cancellationToken = default) => inner.GetVersionsAsync(cancellationToken);
+        public Task<ModelVersionRecord> AddVersionAsync(ModelVersionRecord version, string actor, CancellationToken cancellationToken = default) => inner.AddVersionAsync(version, actor, cancellationToken);
+        public Task ChangeStagesAsync(IReadOnlyList<StageChange> changes, CancellationToken cancellationToken = default) => inner.ChangeStagesAsync(changes, cancellationToken);
+        public Task<IReadOnlyList<StageChange>> GetHistoryAsync(string model, CancellationToken cancellationToken = default) => inner.GetHistoryAsync(model, cancellationToken);
+        public Task<PredictionRecord?> GetPredictionAsync(Guid id, CancellationToken cancellationToken = default) => inner.GetPredictionAsync(id, cancellationToken);
+        public Task<IReadOnlyList<PredictionRecord>> GetPredictionsAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken = default) => inner.GetPredictionsAsync(model, version, from, to, cancellationToken);
+        public Task<long> CountPredictionsAsync(string model, string? version = null, CancellationToken cancellationToken = default) => inner.CountPredictionsAsync(model, version, cancellationToken);
+        public ValueTask DisposeAsync() => inner.DisposeAsync();
+    }
+
+    private static PredictionRecord Row(int i) =>
+        new(Guid.CreateVersion7(), "m", "1", Stage.Live, DateTimeOffset.UnixEpoch.AddSeconds(i), null, 0.1 * i, 0.5, "{}");
+
+    private async Task<ThrottledStore> StoreAsync()
+    {
+        var store = new ThrottledStore(SqliteScorerStore.ForFile(_folder.Store));
+        await store.MigrateAsync();
+        return store;
+    }
+
+    [Fact]
+    public async Task A_slow_store_fills_the_queue_to_its_bound_and_every_row_beyond_is_counted_as_dropped()
+    {
+        var store = await StoreAsync();
+        store.Held = true;
+        var log = new PredictionLog(store, new PredictionLogOptions { Capacity = 100, MaxBatch = 10 }, NullLogger<PredictionLog>.Instance);
+        var accepted = Enumerable.Range(0, 1000).Count(i => log.TryEnqueue(Row(i)));
+
+        // Held: at most one batch in the writer's hands plus the queue's bound.
+        Assert.InRange(accepted, 100, 110);
+        Assert.Equal(1000 - accepted, log.Dropped);
+        Assert.InRange(log.Depth, 0, 100);
+
+        store.Held = false;
+        store.Gate.Release(int.MaxValue / 2);
+        await log.StopAsync();
+        Assert.Equal(accepted, log.Written);
+        Assert.Equal(accepted, await store.CountPredictionsAsync("m"));
+        await store.DisposeAsync();
+    }
+
+    [Fact]
+    public async Task A_failing_store_is_retried_and_no_accepted_row_is_lost()
+    {
+        var store = await StoreAsync();
+        store.FailuresLeft = 3;
+        var log = new PredictionLog(store, new PredictionLogOptions { MaxBatch = 50, MaxDelay = TimeSpan.FromMilliseconds(1) }, NullLogger<PredictionLog>.Instance);
+        for (var i = 0; i < 500; i++)
+        {
+            Assert.True(log.TryEnqueue(Row(i)));
+        }
+
+        await log.StopAsync();
+        Assert.Equal(3, log.FailedWrites);
+        Assert.Equal(0, log.Dropped);
+        Assert.Equal(500, await store.CountPredictionsAsync("m"));
+        await store.DisposeAsync();
+    }
+
+    [Fact]
+    public async Task Stopping_drains_what_is_queued_and_refuses_what_comes_after()
+    {
+        var store = await StoreAsync();
+        var log = new PredictionLog(store, new PredictionLogOptions { MaxBatch = 1000, MaxDelay = TimeSpan.FromSeconds(5) }, NullLogger<PredictionLog>.Instance);
+        for (var i = 0; i < 2500; i++)
+        {
+            log.TryEnqueue(Row(i));
+        }
+
+        await log.StopAsync();
+        Assert.Equal(2500, await store.CountPredictionsAsync("m"));
+        Assert.False(log.TryEnqueue(Row(9999)));
+        Assert.Equal(1, log.Dropped);
+        await store.DisposeAsync();
+    }
+}
