@@ -1,6 +1,7 @@
 #!/usr/bin/env bash
 # Runs every test of the repository and ends with one line: "N passed, N failed[, N skipped]".
-#   1. checks that the reference tools are installed (R with MASS); as root it installs what is missing with apt-get;
+#   1. checks that the reference tools are installed (R with MASS, Prometheus's promtool); as root it installs what is
+#      missing with apt-get;
 #   2. regenerates the reference values (tests/reference/*.R) into tests/reference/out/;
 #   3. runs `dotnet test` on the solution and counts the results from the TRX files.
 # Exit status: 0 when every test passed, 1 otherwise (also when no test ran).
@@ -11,6 +12,7 @@ export DOTNET_CLI_TELEMETRY_OPTOUT=1 DOTNET_NOLOGO=1 DOTNET_SKIP_FIRST_TIME_EXPE
 missing=()
 command -v Rscript >/dev/null 2>&1 || missing+=(r-base-core)
 if ! Rscript -e 'suppressPackageStartupMessages(library(MASS))' >/dev/null 2>&1; then missing+=(r-cran-mass); fi
+command -v promtool >/dev/null 2>&1 || missing+=(prometheus)
 if [ ${#missing[@]} -gt 0 ]; then
   if [ "$(id -u)" = 0 ]; then
     echo "installing ${missing[*]}"

@@ -76,10 +76,13 @@ public static class ScorerServer
         builder.Services.AddSingleton<ShadowScorer>();
         builder.Services.AddSingleton(options.Limits);
         builder.Services.AddSingleton(new ApiKeyInterceptor(options.Keys));
+        builder.Services.AddSingleton<ScorerMetrics>();
+        builder.Services.AddSingleton<MetricsInterceptor>();
         builder.Services.AddHostedService<Lifecycle>();
         builder.Services
             .AddGrpc(g =>
             {
+                g.Interceptors.Add<MetricsInterceptor>();
                 g.Interceptors.Add<ApiKeyInterceptor>();
                 g.MaxReceiveMessageSize = (int)Math.Min(int.MaxValue, options.MaxRequestBodyBytes);
                 g.EnableDetailedErrors = false;
@@ -131,6 +134,12 @@ public static class ScorerServer
         app.MapGrpcService<ModelsService>();
         app.MapGrpcReflectionService();
         app.MapGrpcHealthChecksService();
+        var metrics = app.Services.GetRequiredService<ScorerMetrics>();
+        app.MapGet("/metrics", async context =>
+        {
+            context.Response.ContentType = "text/plain; version=0.0.4; charset=utf-8";
+            await metrics.Registry.CollectAndExportAsTextAsync(context.Response.Body, context.RequestAborted).ConfigureAwait(false);
+        });
         app.MapGet("/healthz", () => Results.Text("ok\n"));
         app.MapGet("/readyz", async ([Microsoft.AspNetCore.Mvc.FromServices] ReadinessCheck check) =>
         {

@@ -49,13 +49,22 @@ public interface IScorerStore : IAsyncDisposable
     /// </summary>
     Task<ModelVersionRecord> AddVersionAsync(ModelVersionRecord version, string actor, CancellationToken cancellationToken = default);
 
-    /// <summary>Applies stage changes atomically (all or none), each also appended to the history.</summary>
+    /// <summary>
+    /// Applies stage changes atomically (all or none), in order, each also appended to the history. An unknown
+    /// (model, version), or a <see cref="StageChange.From"/> that is not the stored stage, throws
+    /// <see cref="InvalidOperationException"/> naming it, and nothing changes; a null From applies from the stored stage.
+    /// </summary>
     Task ChangeStagesAsync(IReadOnlyList<StageChange> changes, CancellationToken cancellationToken = default);
 
     /// <summary>The stage history of a model, oldest first.</summary>
     Task<IReadOnlyList<StageChange>> GetHistoryAsync(string model, CancellationToken cancellationToken = default);
 
-    /// <summary>Writes a batch of predictions in one transaction. Ids are unique; writing an id twice is an error.</summary>
+    /// <summary>
+    /// Writes a batch of predictions in one transaction. An id already stored or repeated in the batch throws
+    /// <see cref="InvalidOperationException"/> naming it; a NaN or infinite η or probability throws
+    /// <see cref="ArgumentException"/> naming the field; either way nothing of the batch is written.
+    /// Doubles round-trip bit for bit; times come back in UTC at the store's precision (SQLite: microseconds).
+    /// </summary>
     Task WritePredictionsAsync(IReadOnlyList<PredictionRecord> batch, CancellationToken cancellationToken = default);
 
     Task<PredictionRecord?> GetPredictionAsync(Guid id, CancellationToken cancellationToken = default);

@@ -17,7 +17,7 @@ namespace Scorer.Transport.Services;
 /// Scoring over gRPC (and REST through transcoding): reads the registry's snapshot once per message, scores every row
 /// with one version, logs each scored row behind the request, and hands the rows to the shadow versions.
 /// </summary>
-public sealed class ScoringService(ModelRegistry registry, PredictionLog log, ShadowScorer shadows, ScoringLimits limits, TimeProvider time)
+public sealed class ScoringService(ModelRegistry registry, PredictionLog log, ShadowScorer shadows, ScoringLimits limits, ScorerMetrics metrics, TimeProvider time)
     : Scoring.ScoringBase
 {
     private static readonly ScoreSettings DefaultSettings = ScoreSettings.Default;
@@ -72,6 +72,7 @@ public sealed class ScoringService(ModelRegistry registry, PredictionLog log, Sh
         var rowsForShadow = entry.Shadows.Length > 0 ? new NamedValue[request.Rows.Count][] : null;
         var featuresJson = new string[request.Rows.Count];
         var keys = new string?[request.Rows.Count];
+        int scoredRows = 0, warnedRows = 0;
         for (var i = 0; i < request.Rows.Count; i++)
         {
             var key = request.Keys.Count > 0 ? request.Keys[i] : null;
@@ -88,6 +89,7 @@ public sealed class ScoringService(ModelRegistry registry, PredictionLog log, Sh
             if (!TryBind(row, i, out var values, out var bindError))
             {
                 result.Error = bindError!;
+                metrics.RowErrors.WithLabels(version.Model, "bad_value").Inc();
                 continue;
             }
 
@@ -95,9 +97,12 @@ public sealed class ScoringService(ModelRegistry registry, PredictionLog log, Sh
             if (r.Failed)
             {
                 result.Error = RowErrorValue(RowMessages.Field(model, r.Error), RowMessages.Describe(model, r.Error));
+                metrics.RowErrors.WithLabels(version.Model, ErrorKind(r.Error.Kind)).Inc();
                 continue;
             }
 
+            scoredRows++;
+            warnedRows += r.WarningCount > 0 ? 1 : 0;
             Fill(result, r, model, contributions, warnings, topContributions);
             featuresJson[i] = JsonFormatter.Default.Format(row);
             log.TryEnqueue(new PredictionRecord(Guid.Parse(result.Id), version.Model, version.Version, version.Stage, now, keys[i], r.Eta, r.Probability, featuresJson[i]));
@@ -107,6 +112,7 @@ public sealed class ScoringService(ModelRegistry registry, PredictionLog log, Sh
             }
         }
 
+        Count(version, scoredRows, warnedRows);
         if (rowsForShadow is not null && version.Stage == Stage.Live)
         {
             var scored = Enumerable.Range(0, rowsForShadow.Length).Where(i => rowsForShadow[i] is not null).ToArray();
@@ -179,6 +185,7 @@ public sealed class ScoringService(ModelRegistry registry, PredictionLog log, Sh
             model.ScoreBatch(dense, results.AsSpan(0, rows), settings);
             var now = time.GetUtcNow();
             var response = new DenseScoreResponse { Model = version.Model, Version = version.Version };
+            int scoredRows = 0, warnedRows = 0;
             for (var r = 0; r < rows; r++)
             {
                 ref readonly var s = ref results[r];
@@ -194,8 +201,12 @@ public sealed class ScoringService(ModelRegistry registry, PredictionLog log, Sh
                 if (s.Failed)
                 {
                     response.Errors.Add(new DenseRowError { Row = r, Field = RowMessages.Field(model, s.Error), Reason = RowMessages.Describe(model, s.Error) });
+                    metrics.RowErrors.WithLabels(version.Model, ErrorKind(s.Error.Kind)).Inc();
                     continue;
                 }
+
+                scoredRows++;
+                warnedRows += s.WarningCount > 0 ? 1 : 0;
 
                 if (log.Enabled)
                 {
@@ -205,6 +216,7 @@ public sealed class ScoringService(ModelRegistry registry, PredictionLog log, Sh
                 }
             }
 
+            Count(version, scoredRows, warnedRows);
             return response;
         }
         finally
@@ -213,6 +225,31 @@ public sealed class ScoringService(ModelRegistry registry, PredictionLog log, Sh
             ArrayPool<ScoredRow>.Shared.Return(results);
         }
     }
+
+    private void Count(LoadedVersion version, int scored, int warned)
+    {
+        if (scored > 0)
+        {
+            metrics.RowsScored.WithLabels(version.Model, version.Version, Services.ModelsService.StageName(version.Stage)).Inc(scored);
+        }
+
+        if (warned > 0)
+        {
+            metrics.RowWarnings.WithLabels(version.Model).Inc(warned);
+        }
+    }
+
+    private static string ErrorKind(RowErrorKind kind) => kind switch
+    {
+        RowErrorKind.MissingValue => "missing_value",
+        RowErrorKind.UnknownLevel => "unknown_level",
+        RowErrorKind.NotFinite => "not_finite",
+        RowErrorKind.OutsideTransformDomain => "outside_transform_domain",
+        RowErrorKind.ExpectedNumber => "expected_number",
+        RowErrorKind.ExpectedLevel => "expected_level",
+        RowErrorKind.DuplicateFeature => "duplicate_feature",
+        _ => "other",
+    };
 
     private LoadedVersion Resolve(string modelName, string versionName, out ModelEntry entry)
     {
