@@ -89,6 +89,14 @@ public static class ScorerServer
             })
             .AddJsonTranscoding(t => t.TypeRegistry = Google.Protobuf.Reflection.TypeRegistry.FromMessages(Google.Rpc.BadRequest.Descriptor));
         builder.Services.AddGrpcReflection();
+        builder.Services.AddGrpcSwagger();
+        builder.Services.Configure<RouteOptions>(r => r.SetParameterPolicy<Microsoft.AspNetCore.Routing.Constraints.RegexInlineRouteConstraint>("regex"));
+        builder.Services.AddSwaggerGen(c => c.SwaggerDoc("v1", new Microsoft.OpenApi.Models.OpenApiInfo
+        {
+            Title = "Scorer",
+            Version = "v1",
+            Description = "Scores rows with fitted binary GLMs; REST generated from the gRPC contract in protos/scorer/v1.",
+        }));
         builder.Services.AddSingleton<ReadinessCheck>();
         builder.Services.AddGrpcHealthChecks().AddCheck<ReadinessCheck>("ready");
         if (options.RateLimitPerSecond > 0)
@@ -115,6 +123,19 @@ public static class ScorerServer
         {
             if (context.Request.ContentLength > options.MaxRequestBodyBytes)
             {
+                // Read and discard a moderately large body first: closing a connection with unread data resets it,
+                // and the caller would see a broken connection instead of the 413.
+                if (context.Request.ContentLength <= 64L * 1024 * 1024
+                    && context.Features.Get<Microsoft.AspNetCore.Http.Features.IHttpMaxRequestBodySizeFeature>() is { IsReadOnly: false } size)
+                {
+                    size.MaxRequestBodySize = null;
+                    await context.Request.Body.CopyToAsync(Stream.Null, context.RequestAborted).ConfigureAwait(false);
+                }
+                else
+                {
+                    context.Response.Headers.Connection = "close";
+                }
+
                 context.Response.StatusCode = StatusCodes.Status413PayloadTooLarge;
                 context.Response.ContentType = "application/json";
                 await context.Response.WriteAsync(
@@ -130,6 +151,7 @@ public static class ScorerServer
             app.UseRateLimiter();
         }
 
+        app.UseSwagger(); // the OpenAPI document at /swagger/v1/swagger.json
         app.MapGrpcService<ScoringService>();
         app.MapGrpcService<ModelsService>();
         app.MapGrpcReflectionService();

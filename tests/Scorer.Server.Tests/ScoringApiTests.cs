@@ -224,4 +224,15 @@ public sealed class ScoringApiTests : IAsyncLifetime
         var reply = await health.CheckAsync(new Grpc.Health.V1.HealthCheckRequest());
         Assert.Equal(Grpc.Health.V1.HealthCheckResponse.Types.ServingStatus.Serving, reply.Status);
     }
+
+    [Fact]
+    public async Task The_OpenAPI_document_describes_the_rest_routes()
+    {
+        using var json = JsonDocument.Parse(await _server.Http.GetStringAsync("/swagger/v1/swagger.json"));
+        var paths = json.RootElement.GetProperty("paths");
+        Assert.True(paths.TryGetProperty("/v1/models/{model}/score", out var score));
+        Assert.True(score.TryGetProperty("post", out _));
+        Assert.True(paths.TryGetProperty("/v1/models", out _));
+        Assert.True(paths.TryGetProperty("/v1/models/{model}/versions/{version}/stage", out _));
+    }
 }
