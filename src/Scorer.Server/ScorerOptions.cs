@@ -33,6 +33,12 @@ public sealed class ScorerOptions
 
     public List<ApiKey> Keys { get; set; } = [];
 
+    /// <summary><c>auto</c> (readable text on a terminal, compact JSON otherwise), <c>text</c> or <c>json</c>. Default auto.</summary>
+    public string LogFormat { get; set; } = "auto";
+
+    /// <summary>Least level logged: Verbose, Debug, Information, Warning, Error, Fatal. Default Information.</summary>
+    public string LogLevel { get; set; } = "Information";
+
     public ScoringLimits Limits { get; set; } = new();
 
     public PredictionLogOptions Log { get; set; } = new();
@@ -56,6 +62,16 @@ public sealed class ScorerOptions
         if (string.IsNullOrWhiteSpace(Store))
         {
             problems.Add("Scorer:Store is empty; name a SQLite file or connection string");
+        }
+
+        if (LogFormat is not ("auto" or "text" or "json"))
+        {
+            problems.Add($"Scorer:LogFormat is '{LogFormat}'; give auto, text or json");
+        }
+
+        if (!Enum.TryParse<Serilog.Events.LogEventLevel>(LogLevel, ignoreCase: true, out _))
+        {
+            problems.Add($"Scorer:LogLevel is '{LogLevel}'; give Verbose, Debug, Information, Warning, Error or Fatal");
         }
 
         if (MaxRequestBodyBytes < 1024)

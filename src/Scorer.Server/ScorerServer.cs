@@ -1,3 +1,4 @@
+using Serilog;
 using System.Net;
 using System.Threading.RateLimiting;
 using Microsoft.AspNetCore.Server.Kestrel.Core;
@@ -65,6 +66,23 @@ public static class ScorerServer
             k.Listen(grpc, o => o.Protocols = HttpProtocols.Http2);
         });
 
+        var level = Enum.Parse<Serilog.Events.LogEventLevel>(options.LogLevel, ignoreCase: true);
+        var json = options.LogFormat == "json" || (options.LogFormat == "auto" && Console.IsOutputRedirected);
+        builder.Services.AddSerilog(log =>
+        {
+            log.MinimumLevel.Is(level)
+                .MinimumLevel.Override("Microsoft.AspNetCore", Serilog.Events.LogEventLevel.Warning)
+                .MinimumLevel.Override("Grpc", Serilog.Events.LogEventLevel.Warning)
+                .Enrich.FromLogContext();
+            if (json)
+            {
+                log.WriteTo.Console(new Serilog.Formatting.Compact.CompactJsonFormatter());
+            }
+            else
+            {
+                log.WriteTo.Console(outputTemplate: "{Timestamp:HH:mm:ss} {Level:u3} {Message:lj}{NewLine}{Exception}", formatProvider: System.Globalization.CultureInfo.InvariantCulture);
+            }
+        });
         builder.Services.AddSingleton(options);
         builder.Services.AddSingleton(TimeProvider.System);
         builder.Services.AddSingleton<IScorerStore>(_ => SqliteScorerStore.ForFile(options.Store));

@@ -4,7 +4,6 @@ using Microsoft.AspNetCore.Hosting.Server;
 using Microsoft.AspNetCore.Hosting.Server.Features;
 using Microsoft.Extensions.Configuration;
 using Microsoft.Extensions.DependencyInjection;
-using Microsoft.Extensions.Logging;
 
 namespace Scorer.Server.Tests;
 
@@ -37,13 +36,13 @@ internal sealed class RunningServer : IAsyncDisposable
                 ["Scorer:RescanInterval"] = "00:00:00.250",
                 ["Scorer:SeedDemoModels"] = "false",
                 ["Scorer:Log:MaxDelay"] = "00:00:00.005",
+                ["Scorer:LogLevel"] = "Warning",
             });
             if (settings is not null)
             {
                 b.Configuration.AddInMemoryCollection(settings);
             }
 
-            b.Logging.SetMinimumLevel(LogLevel.Warning);
         });
         await app.StartAsync();
         var addresses = app.Services.GetRequiredService<IServer>().Features.Get<IServerAddressesFeature>()!.Addresses.ToList();
