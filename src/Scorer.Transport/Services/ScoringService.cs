@@ -104,8 +104,11 @@ public sealed class ScoringService(ModelRegistry registry, PredictionLog log, Sh
             scoredRows++;
             warnedRows += r.WarningCount > 0 ? 1 : 0;
             Fill(result, r, model, contributions, warnings, topContributions);
-            featuresJson[i] = JsonFormatter.Default.Format(row);
-            log.TryEnqueue(new PredictionRecord(Guid.Parse(result.Id), version.Model, version.Version, version.Stage, now, keys[i], r.Eta, r.Probability, featuresJson[i]));
+            if (log.Enabled)
+            {
+                featuresJson[i] = JsonFormatter.Default.Format(row);
+                log.TryEnqueue(new PredictionRecord(Guid.Parse(result.Id), version.Model, version.Version, version.Stage, now, keys[i], r.Eta, r.Probability, featuresJson[i]));
+            }
             if (rowsForShadow is not null)
             {
                 rowsForShadow[i] = values;
