@@ -192,4 +192,20 @@ public sealed class RegistryApiTests : IDisposable
         var (ok, _) = await PostAsync(server, "/v1/models/pump-bearing-failure/score", PumpRow);
         Assert.Equal(HttpStatusCode.OK, ok);
     }
+
+    [Fact]
+    public async Task Requests_beyond_the_rate_limit_get_429()
+    {
+        _folder.AddModel(Files.Example("pump-bearings"), "pump.json");
+        await using var server = await RunningServer.StartAsync(_folder, new Dictionary<string, string?> { ["Scorer:RateLimitPerSecond"] = "3" });
+        // 30 requests at once: the bucket holds 3 and refills 3 a second, so most are refused however slow the machine.
+        var statuses = new List<HttpStatusCode>();
+        for (var i = 0; i < 30; i++)
+        {
+            statuses.Add((await PostAsync(server, "/v1/models/pump-bearing-failure/score", PumpRow)).Item1);
+        }
+
+        Assert.Contains(HttpStatusCode.OK, statuses);
+        Assert.Contains(HttpStatusCode.TooManyRequests, statuses);
+    }
 }
