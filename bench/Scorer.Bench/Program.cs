@@ -6,6 +6,13 @@ public static class Program
 {
     public static void Main(string[] args)
     {
+        if (args.Length > 2 && args[0] == "--grpc-dense")
+        {
+            var ci = System.Globalization.CultureInfo.InvariantCulture;
+            DenseStreamLoad.RunAsync(args[1], double.Parse(args[2], ci), args.Length > 3 ? int.Parse(args[3], ci) : 1000).GetAwaiter().GetResult();
+            return;
+        }
+
         if (args.Length > 2 && args[0] == "--fit-data")
         {
             FitData.Write(args[1], int.Parse(args[2], System.Globalization.CultureInfo.InvariantCulture));
