@@ -5,14 +5,10 @@
 set -euo pipefail
 cd "$(dirname "$0")/../.."
 seconds=${1:-10}
-dir=$(mktemp -d)
-pids=()
-cleanup() { for p in "${pids[@]}"; do kill "$p" 2>/dev/null || true; done; rm -rf "$dir"; }
-trap cleanup EXIT
+source bench/load/common.sh
 dotnet build -c Release bench/Scorer.LoadBaseline -v q -nologo >/dev/null
 dotnet build -c Release src/Scorer.Server -v q -nologo >/dev/null
 
-wait_for() { for _ in $(seq 100); do curl -sf "$1" >/dev/null 2>&1 && return 0; sleep 0.1; done; echo "no answer from $1" >&2; return 1; }
 measure() { # name
   # Warm up first, so that the JIT has compiled the hot paths fully before the measured run.
   taskset -c 1 wrk -t1 -c64 -d5s -s bench/load/score.lua http://127.0.0.1:18080/v1/models/pump-bearing-failure/score > /dev/null
@@ -22,15 +18,6 @@ measure() { # name
   p99=$(awk '$1 == "99%" {print $2}' "$dir/$1.txt")
   printf '| %s | %s | %s |\n' "$1" "$rps" "$p99"
 }
-run_server() { # log-enabled
-  rm -rf "$dir/models" "$dir/data"
-  mkdir -p "$dir/models" && cp examples/pump-bearings/model.json "$dir/models/"
-  Scorer__Log__Enabled=$1 Scorer__LogLevel=Warning taskset -c 0 dotnet src/Scorer.Server/bin/Release/net10.0/Scorer.Server.dll \
-    --models "$dir/models" --store "$dir/data/scorer.db" --http 127.0.0.1:18080 --grpc 127.0.0.1:18081 > "$dir/server.log" 2>&1 &
-  pids+=($!)
-  wait_for http://127.0.0.1:18080/readyz
-}
-stop_last() { kill "${pids[-1]}"; wait "${pids[-1]}" 2>/dev/null || true; unset 'pids[-1]'; }
 
 echo "| endpoint | requests/s | p99 latency |"
 echo "| --- | ---: | ---: |"
