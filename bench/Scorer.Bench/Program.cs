@@ -19,6 +19,13 @@ public static class Program
             return;
         }
 
+        if (args.Length > 4 && args[0] == "--store-writes")
+        {
+            var ci = System.Globalization.CultureInfo.InvariantCulture;
+            StoreWrites.RunAsync(args[1], int.Parse(args[2], ci), int.Parse(args[3], ci), args[4] == "keyed").GetAwaiter().GetResult();
+            return;
+        }
+
         if (args.Length > 0 && args[0] == "--quick")
         {
             QuickRun.Run(args.Length > 1 ? int.Parse(args[1], System.Globalization.CultureInfo.InvariantCulture) : 7);

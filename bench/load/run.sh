@@ -34,3 +34,6 @@ stop_last
 run_server true
 measure "Scorer, prediction log on (SQLite)"
 stop_last
+run_server false false
+measure "Scorer through the generic JSON transcoder, log off"
+stop_last

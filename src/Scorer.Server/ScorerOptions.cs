@@ -31,6 +31,12 @@ public sealed class ScorerOptions
     /// <summary>Requests per second per client address (0 = no limit). Default 0.</summary>
     public int RateLimitPerSecond { get; set; }
 
+    /// <summary>
+    /// Reads REST score requests with Scorer's own JSON reader (same contract, several times faster, more specific
+    /// errors for malformed bodies). False sends them through the generic gRPC JSON transcoder instead. Default true.
+    /// </summary>
+    public bool DirectRestScoring { get; set; } = true;
+
     public List<ApiKey> Keys { get; set; } = [];
 
     /// <summary><c>auto</c> (readable text on a terminal, compact JSON otherwise), <c>text</c> or <c>json</c>. Default auto.</summary>

@@ -92,8 +92,11 @@ public static class ScorerServer
             sp.GetRequiredService<TimeProvider>(), sp.GetRequiredService<ILogger<RegistryWatcher>>()) { RescanInterval = options.RescanInterval });
         builder.Services.AddSingleton(sp => new PredictionLog(sp.GetRequiredService<IScorerStore>(), options.Log, sp.GetRequiredService<ILogger<PredictionLog>>()));
         builder.Services.AddSingleton<ShadowScorer>();
+        builder.Services.AddSingleton<ScoringCore>();
+        builder.Services.AddSingleton<Scorer.Transport.Rest.RestScoring>();
         builder.Services.AddSingleton(options.Limits);
-        builder.Services.AddSingleton(new ApiKeyInterceptor(options.Keys));
+        var apiKeys = new ApiKeyInterceptor(options.Keys);
+        builder.Services.AddSingleton(apiKeys);
         builder.Services.AddSingleton<ScorerMetrics>();
         builder.Services.AddSingleton<MetricsInterceptor>();
         builder.Services.AddHostedService<Lifecycle>();
@@ -167,6 +170,25 @@ public static class ScorerServer
         if (options.RateLimitPerSecond > 0)
         {
             app.UseRateLimiter();
+        }
+
+        if (options.DirectRestScoring)
+        {
+            // In front of the transcoded endpoint of the same route (routing has already matched it).
+            var rest = app.Services.GetRequiredService<Scorer.Transport.Rest.RestScoring>();
+            app.Use((context, next) =>
+            {
+                if (HttpMethods.IsPost(context.Request.Method)
+                    && context.GetEndpoint()?.Metadata.GetMetadata<Grpc.AspNetCore.Server.GrpcMethodMetadata>() is { } grpcMethod
+                    && grpcMethod.Method.FullName == Scorer.Transport.Rest.RestScoring.Method
+                    && context.Request.RouteValues.TryGetValue("model", out var model) && model is string modelName
+                    && context.Request.ContentType?.StartsWith("application/grpc", StringComparison.OrdinalIgnoreCase) != true)
+                {
+                    return rest.HandleAsync(context, modelName);
+                }
+
+                return next(context);
+            });
         }
 
         app.UseSwagger(); // the OpenAPI document at /swagger/v1/swagger.json

@@ -63,12 +63,25 @@ public sealed class ApiKeyInterceptor(IReadOnlyList<ApiKey> keys) : Interceptor
 
     private void Authorize(ServerCallContext context)
     {
-        if (keys.Count == 0 || context.Method.StartsWith("/grpc.", StringComparison.Ordinal))
+        if (context.Method.StartsWith("/grpc.", StringComparison.Ordinal))
         {
-            return; // no keys configured; health and reflection are open
+            return; // health and reflection are open
         }
 
-        var header = context.RequestHeaders.GetValue("authorization");
+        context.UserState[ActorKey] = Authorize(context.RequestHeaders.GetValue("authorization"), context.Method);
+    }
+
+    /// <summary>
+    /// Checks an <c>Authorization</c> header for a gRPC method (<c>/scorer.v1.Service/Method</c>); returns who called
+    /// ("anonymous" without configured keys) or throws the Unauthenticated / PermissionDenied error.
+    /// </summary>
+    public string Authorize(string? header, string method)
+    {
+        if (keys.Count == 0)
+        {
+            return "anonymous";
+        }
+
         if (header is null || !header.StartsWith("Bearer ", StringComparison.OrdinalIgnoreCase))
         {
             throw Errors.Unauthenticated("send 'Authorization: Bearer <key>'");
@@ -77,12 +90,12 @@ public sealed class ApiKeyInterceptor(IReadOnlyList<ApiKey> keys) : Interceptor
         var presented = Encoding.UTF8.GetBytes(header[7..].Trim());
         var key = keys.FirstOrDefault(k => CryptographicOperations.FixedTimeEquals(Encoding.UTF8.GetBytes(k.Key), presented))
             ?? throw Errors.Unauthenticated("the API key is not known");
-        var role = RoleOfMethod.GetValueOrDefault(context.Method, "score");
+        var role = RoleOfMethod.GetValueOrDefault(method, "score");
         if (!key.Roles.Contains(role) && !key.Roles.Contains("admin"))
         {
             throw Errors.Forbidden($"the key '{key.Name}' lacks the '{role}' role this call needs");
         }
 
-        context.UserState[ActorKey] = key.Name;
+        return key.Name;
     }
 }

@@ -191,6 +191,24 @@ public sealed partial class CompiledModel
     /// <summary>Index of a feature by name, or -1.</summary>
     public int FeatureIndexOf(string name) => _featureIndex.TryGetValue(name, out var i) ? i : -1;
 
+    /// <summary>
+    /// The model's own string for a feature name given as characters (so a caller reading JSON need not allocate one),
+    /// or null when the model has no such feature.
+    /// </summary>
+    public string? FeatureName(ReadOnlySpan<char> name)
+    {
+        var f = FeatureIndexOf(name);
+        return f >= 0 ? FeatureNames[f] : null;
+    }
+
+    /// <summary>Index of a feature by name given as characters, or -1.</summary>
+    public int FeatureIndexOf(ReadOnlySpan<char> name) =>
+        _featureIndex.GetAlternateLookup<ReadOnlySpan<char>>().TryGetValue(name, out var i) ? i : -1;
+
+    /// <summary>The model's own string for a level of a categorical feature given as characters, or null when unknown.</summary>
+    public string? LevelName(int feature, ReadOnlySpan<char> level) =>
+        LevelIndex[feature] is { } index && index.GetAlternateLookup<ReadOnlySpan<char>>().TryGetValue(level, out var i) ? LevelNames[feature][i] : null;
+
     public FeatureKind FeatureKindOf(int feature) => Kinds[feature];
 
     public IReadOnlyList<string> Levels(int feature) => LevelNames[feature];

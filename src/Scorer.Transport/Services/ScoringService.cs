@@ -17,10 +17,11 @@ namespace Scorer.Transport.Services;
 /// Scoring over gRPC (and REST through transcoding): reads the registry's snapshot once per message, scores every row
 /// with one version, logs each scored row behind the request, and hands the rows to the shadow versions.
 /// </summary>
-public sealed class ScoringService(ModelRegistry registry, PredictionLog log, ShadowScorer shadows, ScoringLimits limits, ScorerMetrics metrics, TimeProvider time)
-    : Scoring.ScoringBase
+public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
 {
-    private static readonly ScoreSettings DefaultSettings = ScoreSettings.Default;
+    private readonly ScoringLimits limits = core.Limits;
+    private readonly PredictionLog log = core.Log;
+    private readonly TimeProvider time = core.Time;
 
     public override Task<ScoreResponse> Score(ScoreRequest request, ServerCallContext context) => Task.FromResult(ScoreMessage(request));
 
@@ -51,26 +52,18 @@ public sealed class ScoringService(ModelRegistry registry, PredictionLog log, Sh
 
     internal ScoreResponse ScoreMessage(ScoreRequest request)
     {
-        var version = Resolve(request.Model, request.Version, out var entry);
+        var version = core.Resolve(request.Model, request.Version, out var entry);
         var model = version.Compiled;
-        if (request.Rows.Count > limits.MaxRows)
-        {
-            throw Errors.TooMuch("rows", $"{request.Rows.Count} rows in one request; at most {limits.MaxRows}");
-        }
-
-        if (request.Keys.Count != 0 && request.Keys.Count != request.Rows.Count)
-        {
-            throw Errors.Invalid("keys", $"{request.Keys.Count} keys for {request.Rows.Count} rows; give one key per row, or none");
-        }
-
-        var settings = Settings(request.HasLevel, request.Level, "level");
+        core.CheckRowCount(request.Rows.Count);
+        ScoringCore.CheckKeyCount(request.Keys.Count, request.Rows.Count);
+        var settings = ScoringCore.Settings(request.HasLevel, request.Level, "level");
         var topContributions = request.HasContributions ? request.Contributions : 0;
         var now = time.GetUtcNow();
         var response = new ScoreResponse { Model = version.Model, Version = version.Version };
         var contributions = new double[model.TermCount];
         var warnings = new Engine.Scoring.RowWarning[model.MaxWarningsPerRow];
-        var rowsForShadow = entry.Shadows.Length > 0 ? new NamedValue[request.Rows.Count][] : null;
-        var featuresJson = new string[request.Rows.Count];
+        var rowsForShadow = entry.Shadows.Length > 0 ? new NamedValue[]?[request.Rows.Count] : null;
+        var featuresJson = new string?[request.Rows.Count];
         var keys = new string?[request.Rows.Count];
         int scoredRows = 0, warnedRows = 0;
         for (var i = 0; i < request.Rows.Count; i++)
@@ -89,7 +82,7 @@ public sealed class ScoringService(ModelRegistry registry, PredictionLog log, Sh
             if (!TryBind(row, i, out var values, out var bindError))
             {
                 result.Error = bindError!;
-                metrics.RowErrors.WithLabels(version.Model, "bad_value").Inc();
+                core.CountBadValue(version);
                 continue;
             }
 
@@ -97,7 +90,7 @@ public sealed class ScoringService(ModelRegistry registry, PredictionLog log, Sh
             if (r.Failed)
             {
                 result.Error = RowErrorValue(RowMessages.Field(model, r.Error), RowMessages.Describe(model, r.Error));
-                metrics.RowErrors.WithLabels(version.Model, ErrorKind(r.Error.Kind)).Inc();
+                core.CountRowError(version, r.Error.Kind);
                 continue;
             }
 
@@ -106,21 +99,21 @@ public sealed class ScoringService(ModelRegistry registry, PredictionLog log, Sh
             Fill(result, r, model, contributions, warnings, topContributions);
             if (log.Enabled)
             {
-                featuresJson[i] = JsonFormatter.Default.Format(row);
-                log.TryEnqueue(new PredictionRecord(Guid.Parse(result.Id), version.Model, version.Version, version.Stage, now, keys[i], r.Eta, r.Probability, featuresJson[i]));
+                var features = JsonFormatter.Default.Format(row);
+                featuresJson[i] = features;
+                log.TryEnqueue(new PredictionRecord(Guid.Parse(result.Id), version.Model, version.Version, version.Stage, now, keys[i], r.Eta, r.Probability, features));
             }
+
             if (rowsForShadow is not null)
             {
                 rowsForShadow[i] = values;
             }
         }
 
-        Count(version, scoredRows, warnedRows);
-        if (rowsForShadow is not null && version.Stage == Stage.Live)
+        core.Count(version, scoredRows, warnedRows);
+        if (rowsForShadow is not null)
         {
-            var scored = Enumerable.Range(0, rowsForShadow.Length).Where(i => rowsForShadow[i] is not null).ToArray();
-            shadows.Enqueue(new ShadowWork(entry.Shadows, [.. scored.Select(i => rowsForShadow[i])], [.. scored.Select(i => keys[i])],
-                [.. scored.Select(i => featuresJson[i])], now));
+            core.Shadow(version, entry, rowsForShadow, keys, featuresJson, now);
         }
 
         return response;
@@ -128,7 +121,7 @@ public sealed class ScoringService(ModelRegistry registry, PredictionLog log, Sh
 
     internal DenseScoreResponse ScoreDenseMessage(DenseScoreRequest request, IReadOnlyList<string>? streamFeatures)
     {
-        var version = Resolve(request.Model, request.Version, out _);
+        var version = core.Resolve(request.Model, request.Version, out _);
         var model = version.Compiled;
         var names = request.Features.Count > 0 ? (IReadOnlyList<string>)request.Features : streamFeatures
             ?? throw Errors.Invalid("features", "name the feature of each column (on a stream, in the first message at least)");
@@ -168,7 +161,7 @@ public sealed class ScoringService(ModelRegistry registry, PredictionLog log, Sh
             throw Errors.Invalid("keys", $"{request.Keys.Count} keys for {rows} rows; give one key per row, or none");
         }
 
-        var settings = Settings(request.HasLevel, request.Level, "level");
+        var settings = ScoringCore.Settings(request.HasLevel, request.Level, "level");
         var f = model.FeatureCount;
         var matrix = ArrayPool<double>.Shared.Rent(rows * f);
         var results = ArrayPool<ScoredRow>.Shared.Rent(rows);
@@ -204,7 +197,7 @@ public sealed class ScoringService(ModelRegistry registry, PredictionLog log, Sh
                 if (s.Failed)
                 {
                     response.Errors.Add(new DenseRowError { Row = r, Field = RowMessages.Field(model, s.Error), Reason = RowMessages.Describe(model, s.Error) });
-                    metrics.RowErrors.WithLabels(version.Model, ErrorKind(s.Error.Kind)).Inc();
+                    core.CountRowError(version, s.Error.Kind);
                     continue;
                 }
 
@@ -219,7 +212,7 @@ public sealed class ScoringService(ModelRegistry registry, PredictionLog log, Sh
                 }
             }
 
-            Count(version, scoredRows, warnedRows);
+            core.Count(version, scoredRows, warnedRows);
             return response;
         }
         finally
@@ -227,66 +220,6 @@ public sealed class ScoringService(ModelRegistry registry, PredictionLog log, Sh
             ArrayPool<double>.Shared.Return(matrix);
             ArrayPool<ScoredRow>.Shared.Return(results);
         }
-    }
-
-    private void Count(LoadedVersion version, int scored, int warned)
-    {
-        if (scored > 0)
-        {
-            metrics.RowsScored.WithLabels(version.Model, version.Version, Services.ModelsService.StageName(version.Stage)).Inc(scored);
-        }
-
-        if (warned > 0)
-        {
-            metrics.RowWarnings.WithLabels(version.Model).Inc(warned);
-        }
-    }
-
-    private static string ErrorKind(RowErrorKind kind) => kind switch
-    {
-        RowErrorKind.MissingValue => "missing_value",
-        RowErrorKind.UnknownLevel => "unknown_level",
-        RowErrorKind.NotFinite => "not_finite",
-        RowErrorKind.OutsideTransformDomain => "outside_transform_domain",
-        RowErrorKind.ExpectedNumber => "expected_number",
-        RowErrorKind.ExpectedLevel => "expected_level",
-        RowErrorKind.DuplicateFeature => "duplicate_feature",
-        _ => "other",
-    };
-
-    private LoadedVersion Resolve(string modelName, string versionName, out ModelEntry entry)
-    {
-        if (string.IsNullOrEmpty(modelName))
-        {
-            throw Errors.Invalid("model", "name the model");
-        }
-
-        var snapshot = registry.Current;
-        entry = snapshot.Find(modelName) ?? throw Errors.NotFound("model",
-            $"no model '{modelName}' is loaded" + (snapshot.Models.Count > 0 ? $" (loaded: {string.Join(", ", snapshot.Models.Keys)})" : ""));
-        if (string.IsNullOrEmpty(versionName))
-        {
-            return entry.Live ?? throw Errors.Precondition("version", $"model '{modelName}' has no live version; name a version or promote one");
-        }
-
-        var e = entry;
-        return entry.Find(versionName) ?? throw Errors.NotFound("version",
-            $"model '{modelName}' has no version '{versionName}' (loaded: {string.Join(", ", e.Versions.Select(v => v.Version))})");
-    }
-
-    private static ScoreSettings Settings(bool hasLevel, double level, string field)
-    {
-        if (!hasLevel)
-        {
-            return DefaultSettings;
-        }
-
-        if (!(level > 0 && level < 1))
-        {
-            throw Errors.Invalid(field, $"{level.ToString(CultureInfo.InvariantCulture)} is not a confidence level; give a number strictly between 0 and 1, e.g. 0.95");
-        }
-
-        return ScoreSettings.WithBand(level);
     }
 
     private bool TryBind(Struct row, int index, out NamedValue[] values, out Value? error)

@@ -1,0 +1,622 @@
+using System.Buffers;
+using System.Diagnostics;
+using System.Globalization;
+using System.IO.Pipelines;
+using System.Text;
+using System.Text.Encodings.Web;
+using System.Text.Json;
+using Grpc.Core;
+using Microsoft.AspNetCore.Http;
+using Scorer.Engine;
+using Scorer.Engine.Scoring;
+using Scorer.Transport.Services;
+
+namespace Scorer.Transport.Rest;
+
+/// <summary>
+/// <c>POST /v1/models/{model}/score</c> read and written directly with <see cref="Utf8JsonReader"/> and
+/// <see cref="Utf8JsonWriter"/>, in front of the transcoded endpoint of the same route (the busiest REST call; the
+/// generic transcoder costs several times the scoring). The contract is <c>scorer.v1.Scoring/Score</c>: for every
+/// request the transcoder accepts, the response is the same JSON, field for field (tests compare the two). Where the
+/// transcoder gives one vague message for a malformed body, this reader names the field and the reason, and a row
+/// that is not an object, or that names a feature twice, fails that row only.
+/// </summary>
+public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
+{
+    public const string Method = "/scorer.v1.Scoring/Score";
+
+    private const string FieldList = "rows, level, version, keys, contributions";
+
+    private static readonly JsonWriterOptions WriterOptions = new() { Encoder = JavaScriptEncoder.UnsafeRelaxedJsonEscaping, SkipValidation = true };
+
+    private static readonly JsonReaderOptions ReaderOptions = new() { CommentHandling = JsonCommentHandling.Disallow, MaxDepth = 64 };
+
+    private readonly Prometheus.Histogram.Child _callsOk = core.Metrics.Calls.WithLabels("Scoring/Score", "OK");
+
+    /// <summary>Answers the request: a score response, or the error in the transcoder's JSON shape.</summary>
+    public async Task HandleAsync(HttpContext context, string model)
+    {
+        var started = Stopwatch.GetTimestamp();
+        var status = StatusCode.OK;
+        var reader = context.Request.BodyReader;
+        ReadResult read = default;
+        var haveBody = false;
+        try
+        {
+            keys.Authorize(context.Request.Headers.Authorization.Count > 0 ? context.Request.Headers.Authorization.ToString() : null, Method);
+            CheckContentType(context.Request.ContentType);
+            while (true)
+            {
+                read = await reader.ReadAsync(context.RequestAborted).ConfigureAwait(false);
+                haveBody = true;
+                if (read.IsCompleted)
+                {
+                    break;
+                }
+
+                reader.AdvanceTo(read.Buffer.Start, read.Buffer.End);
+            }
+
+            Answer(context, model, read.Buffer);
+        }
+        catch (RpcException ex)
+        {
+            status = ex.StatusCode;
+            WriteError(context.Response, ex);
+        }
+        catch (Microsoft.AspNetCore.Http.BadHttpRequestException ex) when (ex.StatusCode == StatusCodes.Status413PayloadTooLarge)
+        {
+            status = StatusCode.ResourceExhausted;
+            context.Response.StatusCode = StatusCodes.Status413PayloadTooLarge;
+            WriteStatus(context.Response, StatusCode.ResourceExhausted, "body: " + ex.Message, null);
+        }
+        finally
+        {
+            if (haveBody)
+            {
+                reader.AdvanceTo(read.Buffer.End);
+            }
+
+            (status == StatusCode.OK ? _callsOk : core.Metrics.Calls.WithLabels("Scoring/Score", status.ToString())).Observe(Stopwatch.GetElapsedTime(started).TotalSeconds);
+        }
+
+        await context.Response.BodyWriter.FlushAsync(context.RequestAborted).ConfigureAwait(false);
+    }
+
+    private void Answer(HttpContext context, string modelName, ReadOnlySequence<byte> body)
+    {
+        byte[]? copy = null;
+        try
+        {
+            ReadOnlySpan<byte> json;
+            if (body.IsSingleSegment)
+            {
+                json = body.FirstSpan;
+            }
+            else
+            {
+                copy = ArrayPool<byte>.Shared.Rent((int)body.Length);
+                body.CopyTo(copy);
+                json = copy.AsSpan(0, (int)body.Length);
+            }
+
+            var request = ReadRequest(json, modelName);
+            var version = core.Resolve(modelName, request.Version, out var entry);
+            core.CheckRowCount(request.Rows.Count);
+            ScoringCore.CheckKeyCount(request.Keys?.Count ?? 0, request.Rows.Count);
+            var settings = ScoringCore.Settings(request.Level.HasValue, request.Level ?? 0, "level");
+            context.Response.StatusCode = StatusCodes.Status200OK;
+            context.Response.ContentType = "application/json; charset=utf-8";
+            using var writer = new Utf8JsonWriter(context.Response.BodyWriter, WriterOptions);
+            ScoreRows(writer, json, request, version, entry, settings);
+        }
+        finally
+        {
+            if (copy is not null)
+            {
+                ArrayPool<byte>.Shared.Return(copy);
+            }
+        }
+    }
+
+    private void ScoreRows(Utf8JsonWriter w, ReadOnlySpan<byte> json, in ParsedRequest request, Registry.LoadedVersion version, Registry.ModelEntry entry,
+        in ScoreSettings settings)
+    {
+        var model = version.Compiled;
+        var limits = core.Limits;
+        var log = core.Log;
+        var rowCount = request.Rows.Count;
+        var now = core.Time.GetUtcNow();
+        var contributions = new double[model.TermCount];
+        var warnings = new RowWarning[model.MaxWarningsPerRow];
+        var shadowRows = entry.Shadows.Length > 0 && version.Stage == Store.Stage.Live ? new NamedValue[]?[rowCount] : null;
+        var shadowKeys = shadowRows is null ? null : new string?[rowCount];
+        var shadowFeatures = shadowRows is null ? null : new string?[rowCount];
+        var values = ArrayPool<NamedValue>.Shared.Rent(Math.Min(limits.MaxFeaturesPerRow, 1024));
+        int scoredRows = 0, warnedRows = 0;
+        try
+        {
+            w.WriteStartObject();
+            w.WriteString("model"u8, version.Model);
+            w.WriteString("version"u8, version.Version);
+            w.WriteStartArray("results"u8);
+            for (var i = 0; i < rowCount; i++)
+            {
+                var key = request.Keys is { } k ? k[i] : null;
+                var id = Guid.CreateVersion7(now);
+                w.WriteStartObject();
+                w.WriteString("id"u8, id);
+                if (key is { Length: > 0 } && key.Length > limits.MaxStringLength)
+                {
+                    WriteRowError(w, $"keys[{i}]", $"longer than {limits.MaxStringLength} characters", key);
+                    continue;
+                }
+
+                var (start, length) = request.Rows[i];
+                var rowJson = json.Slice(start, length);
+                var bound = Bind(rowJson, i, model, values, out var count, out var bindField, out var bindReason);
+                if (!bound)
+                {
+                    core.CountBadValue(version);
+                    WriteRowError(w, bindField!, bindReason!, key);
+                    continue;
+                }
+
+                var row = values.AsSpan(0, count);
+                var r = model.Score(row, settings, contributions, warnings);
+                if (r.Failed)
+                {
+                    core.CountRowError(version, r.Error.Kind);
+                    WriteRowError(w, RowMessages.Field(model, r.Error), RowMessages.Describe(model, r.Error), key);
+                    continue;
+                }
+
+                scoredRows++;
+                warnedRows += r.WarningCount > 0 ? 1 : 0;
+                WriteScored(w, r, model, contributions, warnings, request.Contributions ?? 0, key);
+                string? features = null;
+                if (log.Enabled)
+                {
+                    features = Encoding.UTF8.GetString(rowJson);
+                    log.TryEnqueue(new Store.PredictionRecord(id, version.Model, version.Version, version.Stage, now, string.IsNullOrEmpty(key) ? null : key,
+                        r.Eta, r.Probability, features));
+                }
+
+                if (shadowRows is not null)
+                {
+                    shadowRows[i] = row.ToArray();
+                    shadowKeys![i] = string.IsNullOrEmpty(key) ? null : key;
+                    shadowFeatures![i] = features ?? Encoding.UTF8.GetString(rowJson);
+                }
+            }
+
+            w.WriteEndArray();
+            w.WriteEndObject();
+        }
+        finally
+        {
+            ArrayPool<NamedValue>.Shared.Return(values, clearArray: true);
+        }
+
+        core.Count(version, scoredRows, warnedRows);
+        if (shadowRows is not null)
+        {
+            core.Shadow(version, entry, shadowRows, shadowKeys!, shadowFeatures!, now);
+        }
+    }
+
+    /// <summary>Binds one row object onto named values; false with the field and reason when the row cannot be read.</summary>
+    private bool Bind(ReadOnlySpan<byte> rowJson, int index, CompiledModel model, NamedValue[] values, out int count, out string? field, out string? reason)
+    {
+        var limits = core.Limits;
+        count = 0;
+        field = null;
+        reason = null;
+        if (rowJson.Length == 0 || rowJson[0] != (byte)'{')
+        {
+            field = $"rows[{index}]";
+            reason = "the row is not a JSON object";
+            return false;
+        }
+
+        var reader = new Utf8JsonReader(rowJson, ReaderOptions);
+        reader.Read(); // StartObject
+        Span<char> nameBuffer = stackalloc char[256];
+        while (reader.Read() && reader.TokenType == JsonTokenType.PropertyName)
+        {
+            if (count >= limits.MaxFeaturesPerRow || count >= values.Length)
+            {
+                var total = count;
+                do
+                {
+                    reader.Read();
+                    reader.Skip();
+                    total++;
+                }
+                while (reader.Read() && reader.TokenType == JsonTokenType.PropertyName);
+
+                field = $"rows[{index}]";
+                reason = $"{total} fields; at most {limits.MaxFeaturesPerRow}";
+                return false;
+            }
+
+            var chars = reader.ValueSpan.Length <= nameBuffer.Length ? nameBuffer : new char[reader.ValueSpan.Length];
+            var nameLength = reader.CopyString(chars);
+            var name = chars[..nameLength];
+            var f = model.FeatureIndexOf(name);
+            var nameText = f >= 0 ? model.FeatureNames[f] : name.ToString();
+            reader.Read();
+            FeatureValue v;
+            switch (reader.TokenType)
+            {
+                case JsonTokenType.Number:
+                    v = FeatureValue.Of(reader.TryGetDouble(out var d) ? d : (reader.ValueSpan[0] == (byte)'-' ? double.NegativeInfinity : double.PositiveInfinity));
+                    break;
+                case JsonTokenType.String:
+                    v = FeatureValue.Of(ReadLevel(ref reader, model, f, limits.MaxStringLength, out var tooLong));
+                    if (tooLong)
+                    {
+                        field = nameText;
+                        reason = $"longer than {limits.MaxStringLength} characters";
+                        return false;
+                    }
+
+                    break;
+                case JsonTokenType.True:
+                    v = FeatureValue.Of(1.0);
+                    break;
+                case JsonTokenType.False:
+                    v = FeatureValue.Of(0.0);
+                    break;
+                case JsonTokenType.Null:
+                    v = FeatureValue.Missing;
+                    break;
+                default:
+                    field = nameText;
+                    reason = "expects a number or a string, got " + (reader.TokenType == JsonTokenType.StartArray ? "a list" : "an object");
+                    return false;
+            }
+
+            values[count++] = new NamedValue(nameText, v);
+        }
+
+        return true;
+    }
+
+    /// <summary>A string value: the model's own level string when it is one (no allocation), else a new string.</summary>
+    private static string? ReadLevel(ref Utf8JsonReader reader, CompiledModel model, int feature, int maxLength, out bool tooLong)
+    {
+        var raw = reader.ValueSpan;
+        Span<char> buffer = stackalloc char[256];
+        var chars = raw.Length <= buffer.Length ? buffer : new char[raw.Length];
+        var text = chars[..reader.CopyString(chars)];
+        tooLong = text.Length > maxLength;
+        if (tooLong)
+        {
+            return null;
+        }
+
+        if (feature >= 0 && model.FeatureKindOf(feature) == ModelFile.FeatureKind.Categorical && model.LevelName(feature, text) is { } level)
+        {
+            return level;
+        }
+
+        return text.ToString();
+    }
+
+    private static void WriteScored(Utf8JsonWriter w, in ScoredRow r, CompiledModel model, double[] contributions, RowWarning[] warnings, int top, string? key)
+    {
+        WriteDouble(w, "eta"u8, r.Eta);
+        if (!double.IsNaN(r.Se))
+        {
+            WriteDouble(w, "se"u8, r.Se);
+            WriteDouble(w, "probability"u8, r.Probability);
+            WriteDouble(w, "lower"u8, r.Lower);
+            WriteDouble(w, "upper"u8, r.Upper);
+        }
+        else
+        {
+            WriteDouble(w, "probability"u8, r.Probability);
+        }
+
+        if (r.FlagValue is { } flag)
+        {
+            w.WriteBoolean("flag"u8, flag);
+        }
+
+        w.WriteStartArray("contributions"u8);
+        if (top >= 0)
+        {
+            if (top == 0)
+            {
+                for (var j = 0; j < model.TermCount; j++)
+                {
+                    WriteContribution(w, model.TermNames[j], contributions[j]);
+                }
+            }
+            else
+            {
+                // Stable by size, as the gRPC path orders them.
+                foreach (var j in Enumerable.Range(0, model.TermCount).OrderByDescending(j => Math.Abs(contributions[j])).Take(top))
+                {
+                    WriteContribution(w, model.TermNames[j], contributions[j]);
+                }
+            }
+        }
+
+        w.WriteEndArray();
+        w.WriteStartArray("warnings"u8);
+        for (var i = 0; i < Math.Min(r.WarningCount, warnings.Length); i++)
+        {
+            w.WriteStartObject();
+            w.WriteString("code"u8, RowMessages.Code(warnings[i].Kind));
+            w.WriteString("field"u8, warnings[i].Feature >= 0 ? model.FeatureNames[warnings[i].Feature] : "");
+            w.WriteString("message"u8, RowMessages.Describe(model, warnings[i]));
+            w.WriteEndObject();
+        }
+
+        w.WriteEndArray();
+        w.WriteNull("error"u8);
+        w.WriteString("key"u8, key ?? "");
+        w.WriteEndObject();
+    }
+
+    private static void WriteContribution(Utf8JsonWriter w, string term, double value)
+    {
+        w.WriteStartObject();
+        w.WriteString("term"u8, term);
+        WriteDouble(w, "value"u8, value);
+        w.WriteEndObject();
+    }
+
+    private static void WriteRowError(Utf8JsonWriter w, string field, string reason, string? key)
+    {
+        w.WriteStartArray("contributions"u8);
+        w.WriteEndArray();
+        w.WriteStartArray("warnings"u8);
+        w.WriteEndArray();
+        w.WriteStartObject("error"u8);
+        w.WriteString("field"u8, field);
+        w.WriteString("reason"u8, reason);
+        w.WriteEndObject();
+        w.WriteString("key"u8, key ?? "");
+        w.WriteEndObject();
+    }
+
+    /// <summary>A double as protobuf's JSON mapping writes it: a number, or the strings NaN / Infinity / -Infinity.</summary>
+    private static void WriteDouble(Utf8JsonWriter w, ReadOnlySpan<byte> name, double value)
+    {
+        if (double.IsFinite(value))
+        {
+            w.WriteNumber(name, value);
+        }
+        else
+        {
+            w.WriteString(name, double.IsNaN(value) ? "NaN" : value > 0 ? "Infinity" : "-Infinity");
+        }
+    }
+
+    private static void CheckContentType(string? contentType)
+    {
+        var type = contentType is null ? "" : contentType.Split(';', 2)[0].Trim();
+        if (!type.Equals("application/json", StringComparison.OrdinalIgnoreCase) && !type.EndsWith("+json", StringComparison.OrdinalIgnoreCase))
+        {
+            throw Errors.Invalid("content-type", $"'{contentType}' is not JSON; send 'Content-Type: application/json'");
+        }
+    }
+
+    /// <summary>The request's fields, with each row kept as its byte range in the body.</summary>
+    private readonly record struct ParsedRequest(List<(int Start, int Length)> Rows, double? Level, string? Version, List<string?>? Keys, int? Contributions);
+
+    private static ParsedRequest ReadRequest(ReadOnlySpan<byte> json, string modelName)
+    {
+        var rows = new List<(int, int)>();
+        double? level = null;
+        string? version = null;
+        List<string?>? keys = null;
+        int? contributions = null;
+        var reader = new Utf8JsonReader(json, ReaderOptions);
+        try
+        {
+            if (json.Trim(" \t\r\n"u8).IsEmpty || !reader.Read())
+            {
+                throw Errors.Invalid("body", "empty; send a JSON object such as {\"rows\": [{\"feature\": 1.5}]}");
+            }
+
+            if (reader.TokenType != JsonTokenType.StartObject)
+            {
+                throw Errors.Invalid("body", $"expected a JSON object, got {Describe(reader.TokenType)}");
+            }
+
+            while (reader.Read() && reader.TokenType == JsonTokenType.PropertyName)
+            {
+                if (reader.ValueTextEquals("rows"u8))
+                {
+                    reader.Read();
+                    if (reader.TokenType == JsonTokenType.Null)
+                    {
+                        continue;
+                    }
+
+                    Expect(ref reader, JsonTokenType.StartArray, "rows", "an array of row objects");
+                    while (reader.Read() && reader.TokenType != JsonTokenType.EndArray)
+                    {
+                        var start = (int)reader.TokenStartIndex;
+                        reader.Skip();
+                        rows.Add((start, (int)reader.BytesConsumed - start));
+                    }
+                }
+                else if (reader.ValueTextEquals("level"u8))
+                {
+                    reader.Read();
+                    level = reader.TokenType switch
+                    {
+                        JsonTokenType.Null => null,
+                        JsonTokenType.Number when reader.TryGetDouble(out var d) => d,
+                        JsonTokenType.String => ParseDoubleString(reader.GetString()!, "level"),
+                        _ => throw Errors.Invalid("level", $"expected a number, got {Describe(reader.TokenType)}"),
+                    };
+                }
+                else if (reader.ValueTextEquals("version"u8))
+                {
+                    reader.Read();
+                    version = reader.TokenType switch
+                    {
+                        JsonTokenType.Null => null,
+                        JsonTokenType.String => reader.GetString(),
+                        _ => throw Errors.Invalid("version", $"expected a string, got {Describe(reader.TokenType)}"),
+                    };
+                }
+                else if (reader.ValueTextEquals("keys"u8))
+                {
+                    reader.Read();
+                    if (reader.TokenType == JsonTokenType.Null)
+                    {
+                        continue;
+                    }
+
+                    Expect(ref reader, JsonTokenType.StartArray, "keys", "an array of strings");
+                    keys = [];
+                    while (reader.Read() && reader.TokenType != JsonTokenType.EndArray)
+                    {
+                        Expect(ref reader, JsonTokenType.String, $"keys[{keys.Count}]", "a string");
+                        keys.Add(reader.GetString());
+                    }
+
+                    if (keys.Count == 0)
+                    {
+                        keys = null;
+                    }
+                }
+                else if (reader.ValueTextEquals("contributions"u8))
+                {
+                    reader.Read();
+                    contributions = reader.TokenType switch
+                    {
+                        JsonTokenType.Null => null,
+                        JsonTokenType.Number when reader.TryGetInt32(out var n) => n,
+                        JsonTokenType.String when int.TryParse(reader.GetString(), NumberStyles.AllowLeadingSign, CultureInfo.InvariantCulture, out var n) => n,
+                        _ => throw Errors.Invalid("contributions", "expected a whole number: how many of the largest contributions to return, 0 for all, -1 for none"),
+                    };
+                }
+                else if (reader.ValueTextEquals("model"u8))
+                {
+                    reader.Read();
+                    var named = reader.TokenType == JsonTokenType.String ? reader.GetString() : null;
+                    if (!string.IsNullOrEmpty(named) && !string.Equals(named, modelName, StringComparison.Ordinal))
+                    {
+                        throw Errors.Invalid("model", $"the body names '{named}' but the path names '{modelName}'; leave it out of the body");
+                    }
+                }
+                else
+                {
+                    var name = reader.GetString();
+                    throw Errors.Invalid(name ?? "body", $"not a field of a score request ({FieldList})");
+                }
+            }
+
+            // Anything after the object is an error (the reader throws on it).
+            if (reader.Read())
+            {
+                throw Errors.Invalid("body", "more than one JSON value");
+            }
+        }
+        catch (JsonException ex)
+        {
+            throw Errors.Invalid("body", $"not well-formed JSON at line {(ex.LineNumber ?? 0) + 1}, byte {(ex.BytePositionInLine ?? 0) + 1}: "
+                + FirstSentence(ex.Message));
+        }
+
+        return new ParsedRequest(rows, level, version, keys, contributions);
+    }
+
+    private static double ParseDoubleString(string text, string field) => text switch
+    {
+        "NaN" => double.NaN,
+        "Infinity" => double.PositiveInfinity,
+        "-Infinity" => double.NegativeInfinity,
+        _ when double.TryParse(text, NumberStyles.Float, CultureInfo.InvariantCulture, out var d) => d,
+        _ => throw Errors.Invalid(field, $"'{text}' is not a number"),
+    };
+
+    private static void Expect(ref Utf8JsonReader reader, JsonTokenType type, string field, string what)
+    {
+        if (reader.TokenType != type)
+        {
+            throw Errors.Invalid(field, $"expected {what}, got {Describe(reader.TokenType)}");
+        }
+    }
+
+    private static string Describe(JsonTokenType type) => type switch
+    {
+        JsonTokenType.StartObject => "an object",
+        JsonTokenType.StartArray => "a list",
+        JsonTokenType.String => "a string",
+        JsonTokenType.Number => "a number",
+        JsonTokenType.True or JsonTokenType.False => "a boolean",
+        JsonTokenType.Null => "null",
+        _ => type.ToString(),
+    };
+
+    private static string FirstSentence(string message)
+    {
+        var cut = message.IndexOf(" LineNumber:", StringComparison.Ordinal);
+        return (cut > 0 ? message[..cut] : message).Trim();
+    }
+
+    /// <summary>Writes an error as the transcoder does: HTTP status from the gRPC code, a google.rpc.Status JSON body.</summary>
+    private static void WriteError(HttpResponse response, RpcException ex)
+    {
+        var status = ex.GetRpcStatus();
+        response.StatusCode = HttpStatus(ex.StatusCode);
+        var violations = status?.Details.Where(d => d.Is(Google.Rpc.BadRequest.Descriptor)).Select(d => d.Unpack<Google.Rpc.BadRequest>()).ToList();
+        WriteStatus(response, ex.StatusCode, status?.Message ?? ex.Status.Detail, violations);
+    }
+
+    private static void WriteStatus(HttpResponse response, StatusCode code, string message, List<Google.Rpc.BadRequest>? details)
+    {
+        response.ContentType = "application/json; charset=utf-8";
+        using var w = new Utf8JsonWriter(response.BodyWriter, WriterOptions);
+        w.WriteStartObject();
+        w.WriteNumber("code"u8, (int)code);
+        w.WriteString("message"u8, message);
+        w.WriteStartArray("details"u8);
+        foreach (var detail in details ?? [])
+        {
+            w.WriteStartObject();
+            w.WriteString("@type"u8, "type.googleapis.com/" + Google.Rpc.BadRequest.Descriptor.FullName);
+            w.WriteStartArray("fieldViolations"u8);
+            foreach (var v in detail.FieldViolations)
+            {
+                w.WriteStartObject();
+                w.WriteString("field"u8, v.Field);
+                w.WriteString("description"u8, v.Description);
+                w.WriteString("reason"u8, v.Reason);
+                w.WriteEndObject();
+            }
+
+            w.WriteEndArray();
+            w.WriteEndObject();
+        }
+
+        w.WriteEndArray();
+        w.WriteEndObject();
+    }
+
+    /// <summary>The HTTP status JSON transcoding gives a gRPC status code (google.rpc.Code's documented mapping).</summary>
+    public static int HttpStatus(StatusCode code) => code switch
+    {
+        StatusCode.OK => 200,
+        StatusCode.Cancelled => 499,
+        StatusCode.InvalidArgument or StatusCode.FailedPrecondition or StatusCode.OutOfRange => 400,
+        StatusCode.Unauthenticated => 401,
+        StatusCode.PermissionDenied => 403,
+        StatusCode.NotFound => 404,
+        StatusCode.AlreadyExists or StatusCode.Aborted => 409,
+        StatusCode.ResourceExhausted => 429,
+        StatusCode.Unimplemented => 501,
+        StatusCode.Unavailable => 503,
+        StatusCode.DeadlineExceeded => 504,
+        _ => 500,
+    };
+}
