@@ -19,7 +19,11 @@ internal static class PredictionBatchInsert
     public const int PrimaryKeyConstraint = 1555;
 
     private const string Sql =
-        "INSERT INTO predictions (id, model, version, stage, scored_at, \"key\", eta, probability, features) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9);";
+        "INSERT INTO predictions (id, model, version, stage, scored_at, \"key\", eta, probability, features, live_id) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10);";
+
+    private const string MinuteSql =
+        "INSERT INTO prediction_minutes (model, version, minute, predictions) VALUES (?1, ?2, ?3, ?4) "
+        + "ON CONFLICT (model, version, minute) DO UPDATE SET predictions = predictions + excluded.predictions;";
 
     /// <summary>Inserts every row or throws; on a throw the caller's transaction must be rolled back.</summary>
     /// <exception cref="InvalidOperationException">An id is repeated in the batch or already stored.</exception>
@@ -30,6 +34,7 @@ internal static class PredictionBatchInsert
         using (statement)
         {
             Span<byte> id = stackalloc byte[16];
+            Span<byte> liveId = stackalloc byte[16];
             string? model = null;
             string? version = null;
             Stage? stage = null;
@@ -61,6 +66,15 @@ internal static class PredictionBatchInsert
                 Check(raw.sqlite3_bind_double(statement, 7, row.Eta), db);
                 Check(raw.sqlite3_bind_double(statement, 8, row.Probability), db);
                 Check(raw.sqlite3_bind_text16(statement, 9, row.FeaturesJson.AsSpan()), db);
+                if (row.LiveId is { } live)
+                {
+                    live.TryWriteBytes(liveId, bigEndian: true, out _);
+                    Check(raw.sqlite3_bind_blob(statement, 10, liveId), db);
+                }
+                else
+                {
+                    Check(raw.sqlite3_bind_null(statement, 10), db);
+                }
 
                 var rc = raw.sqlite3_step(statement);
                 if (rc != raw.SQLITE_DONE)
@@ -77,7 +91,41 @@ internal static class PredictionBatchInsert
                 Check(raw.sqlite3_reset(statement), db);
             }
         }
+
+        CountMinutes(db, batch);
     }
+
+    /// <summary>Adds the batch's rows to the per-minute counts (a batch spans few versions and minutes: a few upserts).</summary>
+    private static void CountMinutes(sqlite3 db, IReadOnlyList<PredictionRecord> batch)
+    {
+        var counts = new Dictionary<(string Model, string Version, long Minute), long>();
+        foreach (var row in batch)
+        {
+            var key = (row.Model, row.Version, StoredValues.ToUnixMicroseconds(row.ScoredAt) / MicrosecondsPerMinute);
+            counts[key] = counts.GetValueOrDefault(key) + 1;
+        }
+
+        Check(raw.sqlite3_prepare_v2(db, MinuteSql, out var statement), db);
+        using (statement)
+        {
+            foreach (var ((model, version, minute), n) in counts)
+            {
+                Check(raw.sqlite3_bind_text16(statement, 1, model.AsSpan()), db);
+                Check(raw.sqlite3_bind_text16(statement, 2, version.AsSpan()), db);
+                Check(raw.sqlite3_bind_int64(statement, 3, minute), db);
+                Check(raw.sqlite3_bind_int64(statement, 4, n), db);
+                var rc = raw.sqlite3_step(statement);
+                if (rc != raw.SQLITE_DONE)
+                {
+                    SqliteException.ThrowExceptionForRC(rc, db);
+                }
+
+                Check(raw.sqlite3_reset(statement), db);
+            }
+        }
+    }
+
+    public const long MicrosecondsPerMinute = 60_000_000;
 
     private static void Check(int rc, sqlite3 db)
     {

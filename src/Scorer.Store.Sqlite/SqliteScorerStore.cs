@@ -29,7 +29,7 @@ namespace Scorer.Store.Sqlite;
 public sealed class SqliteScorerStore : IScorerStore
 {
     private const string StageColumns = "model, version, file_sha256, loaded_at, stage";
-    private const string PredictionColumns = "id, model, version, stage, scored_at, \"key\", eta, probability, features";
+    private const string PredictionColumns = "id, model, version, stage, scored_at, \"key\", eta, probability, features, live_id";
 
     private readonly string _connectionString;
     private readonly string _connectionPragmas;
@@ -488,6 +488,301 @@ public sealed class SqliteScorerStore : IScorerStore
         StoredValues.FromUnixMicroseconds(reader.GetInt64(3)),
         StoredValues.ToStage(reader.GetString(4)));
 
+    /// <inheritdoc />
+    public async Task<long> CountPredictionsByMinuteAsync(string model, string version, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken = default)
+    {
+        ArgumentNullException.ThrowIfNull(model);
+        ArgumentNullException.ThrowIfNull(version);
+        await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
+        using var command = Command(connection, null,
+            "SELECT coalesce(sum(predictions), 0) FROM prediction_minutes WHERE model = $model AND version = $version AND minute >= $from AND minute < $to;");
+        command.Parameters.AddWithValue("$model", model);
+        command.Parameters.AddWithValue("$version", version);
+        command.Parameters.AddWithValue("$from", CeilingMinute(from));
+        command.Parameters.AddWithValue("$to", CeilingMinute(to));
+        return Convert.ToInt64(command.ExecuteScalar(), CultureInfo.InvariantCulture);
+    }
+
+    private static long CeilingMinute(DateTimeOffset time)
+    {
+        var us = StoredValues.ToUnixMicroseconds(time);
+        var minute = us / PredictionBatchInsert.MicrosecondsPerMinute;
+        return minute * PredictionBatchInsert.MicrosecondsPerMinute == us ? minute : minute + 1;
+    }
+
+    /// <inheritdoc />
+    public Task<OutcomeReceipt> RecordOutcomesAsync(string model, IReadOnlyList<OutcomeReport> reports, ConflictPolicy policy, DateTimeOffset recordedAt,
+        CancellationToken cancellationToken = default)
+    {
+        ArgumentException.ThrowIfNullOrEmpty(model);
+        ArgumentNullException.ThrowIfNull(reports);
+        for (var i = 0; i < reports.Count; i++)
+        {
+            var r = reports[i] ?? throw new ArgumentException($"reports[{i}] is null.", nameof(reports));
+            if (r.Id is null == string.IsNullOrEmpty(r.Key))
+            {
+                throw new ArgumentException($"reports[{i}] must give either an id or a key.", nameof(reports));
+            }
+
+            if (r.Outcome > 1)
+            {
+                throw new ArgumentException($"reports[{i}] has outcome {r.Outcome}; outcomes are 0 or 1.", nameof(reports));
+            }
+        }
+
+        var now = StoredValues.ToUnixMicroseconds(recordedAt);
+        return WriteAsync(
+            (connection, transaction) =>
+            {
+                using var byId = Command(connection, transaction,
+                    "SELECT id, version, stage, scored_at, eta, probability FROM predictions WHERE model = $model AND (id = $id OR live_id = $id);");
+                byId.Parameters.AddWithValue("$model", model);
+                var idParameter = byId.Parameters.Add("$id", SqliteType.Blob);
+                using var byKey = Command(connection, transaction,
+                    "SELECT id, version, stage, scored_at, eta, probability FROM predictions WHERE model = $model AND \"key\" = $key;");
+                byKey.Parameters.AddWithValue("$model", model);
+                var keyParameter = byKey.Parameters.Add("$key", SqliteType.Text);
+                using var existing = Command(connection, transaction, "SELECT outcome, implicit FROM outcomes WHERE prediction_id = $id;");
+                var existingId = existing.Parameters.Add("$id", SqliteType.Blob);
+                using var insert = Command(connection, transaction,
+                    "INSERT INTO outcomes (prediction_id, model, version, stage, scored_at, eta, probability, outcome, observed_at, recorded_at, implicit) "
+                    + "VALUES ($id, $model, $version, $stage, $scoredAt, $eta, $p, $outcome, $observedAt, $now, 0);");
+                var insertId = insert.Parameters.Add("$id", SqliteType.Blob);
+                insert.Parameters.AddWithValue("$model", model);
+                var insertVersion = insert.Parameters.Add("$version", SqliteType.Text);
+                var insertStage = insert.Parameters.Add("$stage", SqliteType.Text);
+                var insertScoredAt = insert.Parameters.Add("$scoredAt", SqliteType.Integer);
+                var insertEta = insert.Parameters.Add("$eta", SqliteType.Real);
+                var insertP = insert.Parameters.Add("$p", SqliteType.Real);
+                var insertOutcome = insert.Parameters.Add("$outcome", SqliteType.Integer);
+                var insertObserved = insert.Parameters.Add("$observedAt", SqliteType.Integer);
+                insert.Parameters.AddWithValue("$now", now);
+                using var update = Command(connection, transaction,
+                    "UPDATE outcomes SET outcome = $outcome, observed_at = $observedAt, recorded_at = $now, implicit = 0 WHERE prediction_id = $id;");
+                var updateOutcome = update.Parameters.Add("$outcome", SqliteType.Integer);
+                var updateObserved = update.Parameters.Add("$observedAt", SqliteType.Integer);
+                update.Parameters.AddWithValue("$now", now);
+                var updateId = update.Parameters.Add("$id", SqliteType.Blob);
+                using var conflict = Command(connection, transaction,
+                    "INSERT INTO outcome_conflicts (prediction_id, model, recorded, reported, kept, was_implicit, at) VALUES ($id, $model, $recorded, $reported, $kept, $implicit, $now);");
+                var conflictId = conflict.Parameters.Add("$id", SqliteType.Blob);
+                conflict.Parameters.AddWithValue("$model", model);
+                var conflictRecorded = conflict.Parameters.Add("$recorded", SqliteType.Integer);
+                var conflictReported = conflict.Parameters.Add("$reported", SqliteType.Integer);
+                var conflictKept = conflict.Parameters.Add("$kept", SqliteType.Integer);
+                var conflictImplicit = conflict.Parameters.Add("$implicit", SqliteType.Integer);
+                conflict.Parameters.AddWithValue("$now", now);
+
+                int accepted = 0, duplicates = 0;
+                var unknown = new List<string>();
+                var conflicts = new List<string>();
+                var targets = new List<(byte[] Id, string Version, string Stage, long ScoredAt, double Eta, double P)>();
+                foreach (var report in reports)
+                {
+                    cancellationToken.ThrowIfCancellationRequested();
+                    var name = report.Id is { } g ? g.ToString() : report.Key!;
+                    targets.Clear();
+                    SqliteCommand find;
+                    if (report.Id is { } guid)
+                    {
+                        idParameter.Value = StoredValues.ToBytes(guid);
+                        find = byId;
+                    }
+                    else
+                    {
+                        keyParameter.Value = report.Key;
+                        find = byKey;
+                    }
+
+                    using (var reader = find.ExecuteReader())
+                    {
+                        while (reader.Read())
+                        {
+                            targets.Add((reader.GetFieldValue<byte[]>(0), reader.GetString(1), reader.GetString(2), reader.GetInt64(3), reader.GetDouble(4),
+                                reader.GetDouble(5)));
+                        }
+                    }
+
+                    if (targets.Count == 0)
+                    {
+                        unknown.Add(name);
+                        continue;
+                    }
+
+                    bool labelled = false, differed = false;
+                    object observed = report.ObservedAt is { } o ? StoredValues.ToUnixMicroseconds(o) : DBNull.Value;
+                    foreach (var t in targets)
+                    {
+                        existingId.Value = t.Id;
+                        long? recorded = null;
+                        var wasImplicit = false;
+                        using (var reader = existing.ExecuteReader())
+                        {
+                            if (reader.Read())
+                            {
+                                recorded = reader.GetInt64(0);
+                                wasImplicit = reader.GetInt64(1) == 1;
+                            }
+                        }
+
+                        if (recorded is null)
+                        {
+                            insertId.Value = t.Id;
+                            insertVersion.Value = t.Version;
+                            insertStage.Value = t.Stage;
+                            insertScoredAt.Value = t.ScoredAt;
+                            insertEta.Value = t.Eta;
+                            insertP.Value = t.P;
+                            insertOutcome.Value = (long)report.Outcome;
+                            insertObserved.Value = observed;
+                            insert.ExecuteNonQuery();
+                            labelled = true;
+                        }
+                        else if (recorded != report.Outcome)
+                        {
+                            differed = true;
+                            var keep = policy == ConflictPolicy.TakeLatest ? report.Outcome : recorded.Value;
+                            conflictId.Value = t.Id;
+                            conflictRecorded.Value = recorded.Value;
+                            conflictReported.Value = (long)report.Outcome;
+                            conflictKept.Value = keep;
+                            conflictImplicit.Value = wasImplicit ? 1L : 0L;
+                            conflict.ExecuteNonQuery();
+                            if (policy == ConflictPolicy.TakeLatest)
+                            {
+                                updateOutcome.Value = (long)report.Outcome;
+                                updateObserved.Value = observed;
+                                updateId.Value = t.Id;
+                                update.ExecuteNonQuery();
+                            }
+                        }
+                    }
+
+                    if (differed)
+                    {
+                        conflicts.Add(name);
+                    }
+                    else if (labelled)
+                    {
+                        accepted++;
+                    }
+                    else
+                    {
+                        duplicates++;
+                    }
+                }
+
+                return new OutcomeReceipt(accepted, duplicates, unknown, conflicts);
+            },
+            cancellationToken);
+    }
+
+    /// <inheritdoc />
+    public Task<int> RecordImplicitNegativesAsync(string model, DateTimeOffset maturedBefore, DateTimeOffset recordedAt, int limit = 10_000,
+        CancellationToken cancellationToken = default)
+    {
+        ArgumentException.ThrowIfNullOrEmpty(model);
+        ArgumentOutOfRangeException.ThrowIfLessThan(limit, 1);
+        var cutoff = StoredValues.ToUnixMicroseconds(maturedBefore);
+        var now = StoredValues.ToUnixMicroseconds(recordedAt);
+        return WriteAsync(
+            (connection, transaction) =>
+            {
+                using var cursor = Command(connection, transaction, "SELECT last_row FROM maturity_cursors WHERE model = $model;");
+                cursor.Parameters.AddWithValue("$model", model);
+                var from = cursor.ExecuteScalar() is long l ? l : 0L;
+
+                // Walk the log in the order it was written. The walk stops at the first row of the model not yet mature,
+                // so a row logged late with an early time is still reached by a later call.
+                using var walk = Command(connection, transaction,
+                    "SELECT rowid, id, version, stage, scored_at, eta, probability FROM predictions WHERE model = $model AND rowid > $from ORDER BY rowid LIMIT $limit;");
+                walk.Parameters.AddWithValue("$model", model);
+                walk.Parameters.AddWithValue("$from", from);
+                walk.Parameters.AddWithValue("$limit", limit);
+                using var insert = Command(connection, transaction,
+                    "INSERT INTO outcomes (prediction_id, model, version, stage, scored_at, eta, probability, outcome, observed_at, recorded_at, implicit) "
+                    + "VALUES ($id, $model, $version, $stage, $scoredAt, $eta, $p, 0, NULL, $now, 1) ON CONFLICT (prediction_id) DO NOTHING;");
+                var id = insert.Parameters.Add("$id", SqliteType.Blob);
+                insert.Parameters.AddWithValue("$model", model);
+                var version = insert.Parameters.Add("$version", SqliteType.Text);
+                var stage = insert.Parameters.Add("$stage", SqliteType.Text);
+                var scoredAt = insert.Parameters.Add("$scoredAt", SqliteType.Integer);
+                var eta = insert.Parameters.Add("$eta", SqliteType.Real);
+                var p = insert.Parameters.Add("$p", SqliteType.Real);
+                insert.Parameters.AddWithValue("$now", now);
+                var last = from;
+                var recorded = 0;
+                using (var reader = walk.ExecuteReader())
+                {
+                    while (reader.Read())
+                    {
+                        if (reader.GetInt64(4) >= cutoff)
+                        {
+                            break;
+                        }
+
+                        last = reader.GetInt64(0);
+                        id.Value = reader.GetFieldValue<byte[]>(1);
+                        version.Value = reader.GetString(2);
+                        stage.Value = reader.GetString(3);
+                        scoredAt.Value = reader.GetInt64(4);
+                        eta.Value = reader.GetDouble(5);
+                        p.Value = reader.GetDouble(6);
+                        recorded += insert.ExecuteNonQuery();
+                    }
+                }
+
+                if (last != from)
+                {
+                    using var save = Command(connection, transaction,
+                        "INSERT INTO maturity_cursors (model, last_row) VALUES ($model, $last) ON CONFLICT (model) DO UPDATE SET last_row = excluded.last_row;");
+                    save.Parameters.AddWithValue("$model", model);
+                    save.Parameters.AddWithValue("$last", last);
+                    save.ExecuteNonQuery();
+                }
+
+                return recorded;
+            },
+            cancellationToken);
+    }
+
+    /// <inheritdoc />
+    public async Task<IReadOnlyList<LabelledPrediction>> GetLabelledAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to,
+        CancellationToken cancellationToken = default)
+    {
+        ArgumentNullException.ThrowIfNull(model);
+        await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
+        var versionFilter = version is null ? "" : "AND version = $version ";
+        using var command = Command(connection, null,
+            "SELECT prediction_id, version, stage, scored_at, eta, probability, outcome, implicit, recorded_at FROM outcomes "
+            + $"WHERE model = $model {versionFilter}AND scored_at >= $from AND scored_at < $to ORDER BY scored_at, prediction_id;");
+        command.Parameters.AddWithValue("$model", model);
+        if (version is not null)
+        {
+            command.Parameters.AddWithValue("$version", version);
+        }
+
+        command.Parameters.AddWithValue("$from", StoredValues.ToUnixMicroseconds(from));
+        command.Parameters.AddWithValue("$to", StoredValues.ToUnixMicroseconds(to));
+        using var reader = command.ExecuteReader();
+        var labelled = new List<LabelledPrediction>();
+        while (reader.Read())
+        {
+            labelled.Add(new LabelledPrediction(
+                StoredValues.ToGuid(reader.GetFieldValue<byte[]>(0)),
+                reader.GetString(1),
+                StoredValues.ToStage(reader.GetString(2)),
+                StoredValues.FromUnixMicroseconds(reader.GetInt64(3)),
+                reader.GetDouble(4),
+                reader.GetDouble(5),
+                (byte)reader.GetInt64(6),
+                reader.GetInt64(7) == 1,
+                StoredValues.FromUnixMicroseconds(reader.GetInt64(8))));
+        }
+
+        return labelled;
+    }
+
     private static PredictionRecord ReadPrediction(SqliteDataReader reader) => new(
         StoredValues.ToGuid(reader.GetFieldValue<byte[]>(0)),
         reader.GetString(1),
@@ -497,7 +792,8 @@ public sealed class SqliteScorerStore : IScorerStore
         reader.IsDBNull(5) ? null : reader.GetString(5),
         reader.GetDouble(6),
         reader.GetDouble(7),
-        reader.GetString(8));
+        reader.GetString(8),
+        reader.IsDBNull(9) ? null : StoredValues.ToGuid(reader.GetFieldValue<byte[]>(9)));
 
     private static SqliteCommand HistoryInsert(SqliteConnection connection, SqliteTransaction transaction)
     {

@@ -29,7 +29,32 @@ public sealed record PredictionRecord(
     string? Key,
     double Eta,
     double Probability,
-    string FeaturesJson);
+    string FeaturesJson,
+    Guid? LiveId = null);
+
+/// <summary>An outcome as a caller reports it: for a prediction id, or for every prediction carrying a business key.</summary>
+public sealed record OutcomeReport(Guid? Id, string? Key, byte Outcome, DateTimeOffset? ObservedAt = null);
+
+/// <summary>What happens when a report disagrees with an outcome already recorded for the prediction.</summary>
+public enum ConflictPolicy
+{
+    /// <summary>The first outcome stays; the report is listed as a conflict.</summary>
+    KeepFirst,
+
+    /// <summary>The reported outcome replaces the recorded one; the report is still listed as a conflict.</summary>
+    TakeLatest,
+}
+
+/// <summary>
+/// The answer to a batch of reports. <see cref="Accepted"/> counts reports that labelled at least one prediction anew;
+/// <see cref="Duplicates"/> reports whose outcome was already recorded; <see cref="Unknown"/> the ids or keys with no
+/// prediction of the model; <see cref="Conflicts"/> the ids or keys whose recorded outcome differed.
+/// </summary>
+public sealed record OutcomeReceipt(int Accepted, int Duplicates, IReadOnlyList<string> Unknown, IReadOnlyList<string> Conflicts);
+
+/// <summary>A prediction with its outcome, as the monitor reads it.</summary>
+public sealed record LabelledPrediction(Guid Id, string Version, Stage Stage, DateTimeOffset ScoredAt, double Eta, double Probability, byte Outcome, bool Implicit,
+    DateTimeOffset RecordedAt);
 
 /// <summary>
 /// The service's durable state. Every implementation (SQLite now, PostgreSQL later) passes the same contract tests.
@@ -73,4 +98,31 @@ public interface IScorerStore : IAsyncDisposable
     Task<IReadOnlyList<PredictionRecord>> GetPredictionsAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken = default);
 
     Task<long> CountPredictionsAsync(string model, string? version = null, CancellationToken cancellationToken = default);
+
+    /// <summary>
+    /// Predictions of a model version scored in [from, to), counted by whole minutes of scoring time: a minute counts
+    /// when it starts inside the range. Kept beside the log, so this never scans it.
+    /// </summary>
+    Task<long> CountPredictionsByMinuteAsync(string model, string version, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken = default);
+
+    /// <summary>
+    /// Records outcomes, durably before returning. A report by id labels that prediction of the model and the shadow
+    /// predictions paired with it; a report by key labels every prediction of the model with that key. The same
+    /// outcome twice counts once (a duplicate); a different one is a conflict, recorded, and resolved by
+    /// <paramref name="policy"/>. All reports of the call are applied in one transaction, in order.
+    /// </summary>
+    Task<OutcomeReceipt> RecordOutcomesAsync(string model, IReadOnlyList<OutcomeReport> reports, ConflictPolicy policy, DateTimeOffset recordedAt,
+        CancellationToken cancellationToken = default);
+
+    /// <summary>
+    /// Records a 0 (implicit) for up to <paramref name="limit"/> predictions of the model scored before
+    /// <paramref name="maturedBefore"/> that have no outcome, walking the log in the order it was written from where
+    /// the last call stopped; returns how many it recorded.
+    /// </summary>
+    Task<int> RecordImplicitNegativesAsync(string model, DateTimeOffset maturedBefore, DateTimeOffset recordedAt, int limit = 10_000,
+        CancellationToken cancellationToken = default);
+
+    /// <summary>The labelled predictions of a model (optionally one version) scored in [from, to), in prediction-time order (then id).</summary>
+    Task<IReadOnlyList<LabelledPrediction>> GetLabelledAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to,
+        CancellationToken cancellationToken = default);
 }

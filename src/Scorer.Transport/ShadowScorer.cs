@@ -64,7 +64,7 @@ public sealed class ShadowScorer : IAsyncDisposable
                             continue;
                         }
 
-                        _log.TryEnqueue(new PredictionRecord(Guid.CreateVersion7(_time.GetUtcNow()), shadow.Model, shadow.Version, Stage.Shadow,
+                        _log.TryEnqueue(new PredictionRecord(PredictionIds.Next(_time.GetUtcNow()), shadow.Model, shadow.Version, Stage.Shadow,
                             work.ScoredAt, work.Keys[i], r.Eta, r.Probability, work.FeaturesJson[i]));
                         Interlocked.Increment(ref _scored);
                     }

@@ -17,7 +17,7 @@ namespace Scorer.Store.Tests;
 /// the id; either way the batch writes nothing. Stores return times in UTC (offset zero). After disposal, calls throw
 /// <see cref="ObjectDisposedException"/>.
 /// </remarks>
-public abstract class StoreContractTests : IAsyncLifetime
+public abstract partial class StoreContractTests : IAsyncLifetime
 {
     protected const string Renewal = "renewal";
     protected const string Claims = "claims";
@@ -737,6 +737,7 @@ public abstract class StoreContractTests : IAsyncLifetime
         Assert.Equal(BitConverter.DoubleToInt64Bits(expected.Eta), BitConverter.DoubleToInt64Bits(actual.Eta));
         Assert.Equal(BitConverter.DoubleToInt64Bits(expected.Probability), BitConverter.DoubleToInt64Bits(actual.Probability));
         Assert.Equal(expected.FeaturesJson, actual.FeaturesJson);
+        Assert.Equal(expected.LiveId, actual.LiveId);
     }
 
     private static string SmallFeatures(int i) => string.Create(

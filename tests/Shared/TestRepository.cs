@@ -14,6 +14,14 @@ internal static class TestRepository
             $"{path} is missing. Run scripts/test.sh, or the scripts in tests/reference/ with Rscript: Rscript tests/reference/scoring-reference.R tests/reference/out");
     }
 
+    /// <summary>A file written by tests/reference/calibration/run.sh into tests/reference/calibration/out.</summary>
+    public static string CalibrationFile(string name)
+    {
+        var path = Path.Combine(Root, "tests", "reference", "calibration", "out", name);
+        return File.Exists(path) ? path : throw new InvalidOperationException(
+            $"{path} is missing. Run scripts/test.sh, or tests/reference/calibration/run.sh");
+    }
+
     private static string FindRoot()
     {
         var dir = new DirectoryInfo(AppContext.BaseDirectory);

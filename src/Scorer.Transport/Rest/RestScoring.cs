@@ -9,6 +9,7 @@ using Grpc.Core;
 using Microsoft.AspNetCore.Http;
 using Scorer.Engine;
 using Scorer.Engine.Scoring;
+using Scorer.Store;
 using Scorer.Transport.Services;
 
 namespace Scorer.Transport.Rest;
@@ -129,7 +130,7 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
         var now = core.Time.GetUtcNow();
         var contributions = new double[model.TermCount];
         var warnings = new RowWarning[model.MaxWarningsPerRow];
-        var shadowRows = entry.Shadows.Length > 0 && version.Stage == Store.Stage.Live ? new NamedValue[]?[rowCount] : null;
+        var shadowRows = entry.Shadows.Length > 0 && version.Stage == Stage.Live ? new NamedValue[]?[rowCount] : null;
         var shadowKeys = shadowRows is null ? null : new string?[rowCount];
         var shadowFeatures = shadowRows is null ? null : new string?[rowCount];
         var values = ArrayPool<NamedValue>.Shared.Rent(Math.Min(limits.MaxFeaturesPerRow, 1024));
@@ -143,7 +144,7 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
             for (var i = 0; i < rowCount; i++)
             {
                 var key = request.Keys is { } k ? k[i] : null;
-                var id = Guid.CreateVersion7(now);
+                var id = PredictionIds.Next(now);
                 w.WriteStartObject();
                 w.WriteString("id"u8, id);
                 if (key is { Length: > 0 } && key.Length > limits.MaxStringLength)
@@ -178,7 +179,7 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
                 if (log.Enabled)
                 {
                     features = Encoding.UTF8.GetString(rowJson);
-                    log.TryEnqueue(new Store.PredictionRecord(id, version.Model, version.Version, version.Stage, now, string.IsNullOrEmpty(key) ? null : key,
+                    log.TryEnqueue(new PredictionRecord(id, version.Model, version.Version, version.Stage, now, string.IsNullOrEmpty(key) ? null : key,
                         r.Eta, r.Probability, features));
                 }
 

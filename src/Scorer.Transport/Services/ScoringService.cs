@@ -70,7 +70,7 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
         {
             var key = request.Keys.Count > 0 ? request.Keys[i] : null;
             keys[i] = string.IsNullOrEmpty(key) ? null : key;
-            var result = new RowResult { Id = Guid.CreateVersion7(now).ToString(), Key = key ?? "", Error = Value.ForNull() };
+            var result = new RowResult { Id = PredictionIds.Next(now).ToString(), Key = key ?? "", Error = Value.ForNull() };
             response.Results.Add(result);
             if (key is { Length: > 0 } && key.Length > limits.MaxStringLength)
             {
@@ -185,7 +185,7 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
             for (var r = 0; r < rows; r++)
             {
                 ref readonly var s = ref results[r];
-                var id = Guid.CreateVersion7(now);
+                var id = PredictionIds.Next(now);
                 response.Ids.Add(id.ToString());
                 response.Eta.Add(s.Eta);
                 response.Se.Add(s.Se);
