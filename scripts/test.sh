@@ -1,8 +1,9 @@
 #!/usr/bin/env bash
 # Runs every test of the repository and ends with one line: "N passed, N failed[, N skipped]".
-#   1. checks that the reference tools are installed (R with MASS, Prometheus's promtool); as root it installs what is
-#      missing with apt-get;
-#   2. regenerates the reference values (tests/reference/*.R) into tests/reference/out/;
+#   1. checks that the reference tools are installed (R with MASS and pROC, Python 3 with scikit-learn, statsmodels and
+#      SciPy, Prometheus's promtool); as root it installs what is missing with apt-get;
+#   2. regenerates the reference values (tests/reference/*.R into tests/reference/out/, and
+#      tests/reference/calibration/run.sh into tests/reference/calibration/out/);
 #   3. runs `dotnet test` on the solution and counts the results from the TRX files.
 # Exit status: 0 when every test passed, 1 otherwise (also when no test ran).
 set -euo pipefail
@@ -12,7 +13,11 @@ export DOTNET_CLI_TELEMETRY_OPTOUT=1 DOTNET_NOLOGO=1 DOTNET_SKIP_FIRST_TIME_EXPE
 missing=()
 command -v Rscript >/dev/null 2>&1 || missing+=(r-base-core)
 if ! Rscript -e 'suppressPackageStartupMessages(library(MASS))' >/dev/null 2>&1; then missing+=(r-cran-mass); fi
+if ! Rscript -e 'suppressPackageStartupMessages(library(pROC))' >/dev/null 2>&1; then missing+=(r-cran-proc); fi
 command -v promtool >/dev/null 2>&1 || missing+=(prometheus)
+if ! /usr/bin/python3 -c 'import numpy, scipy, sklearn, statsmodels' >/dev/null 2>&1; then
+  missing+=(python3-numpy python3-scipy python3-sklearn python3-statsmodels)
+fi
 if [ ${#missing[@]} -gt 0 ]; then
   if [ "$(id -u)" = 0 ]; then
     echo "installing ${missing[*]}"
@@ -28,6 +33,7 @@ echo "== reference values (R $(Rscript -e 'cat(as.character(getRversion()))'))"
 rm -rf tests/reference/out
 Rscript tests/reference/scoring-reference.R tests/reference/out
 Rscript tests/reference/fitting-reference.R tests/reference/out
+tests/reference/calibration/run.sh
 
 echo "== dotnet test"
 rm -rf TestResults

@@ -49,10 +49,16 @@ public sealed class ScorerOptions
 
     public PredictionLogOptions Log { get; set; } = new();
 
+    /// <summary>The calibration monitor: windows, the status rules' thresholds, the charts (docs/monitoring.md).</summary>
+    public Scorer.Monitor.Reporting.MonitorOptions Monitor { get; set; } = new();
+
+    /// <summary>How outcomes are taken in: the conflict policy and the reports per request.</summary>
+    public Scorer.Transport.Services.OutcomeSettings Outcomes { get; set; } = new();
+
     /// <summary>Every problem of the settings at once, each naming the setting.</summary>
     public IReadOnlyList<string> Validate()
     {
-        var problems = new List<string>();
+        var problems = new List<string>(Monitor.Validate());
         var http = ParseEndpoint(Http, "Scorer:Http", problems);
         var grpc = ParseEndpoint(Grpc, "Scorer:Grpc", problems);
         if (http is not null && grpc is not null && http.Port == grpc.Port && http.Port != 0)

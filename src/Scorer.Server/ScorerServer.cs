@@ -93,6 +93,11 @@ public static class ScorerServer
         builder.Services.AddSingleton(sp => new PredictionLog(sp.GetRequiredService<IScorerStore>(), options.Log, sp.GetRequiredService<ILogger<PredictionLog>>()));
         builder.Services.AddSingleton<ShadowScorer>();
         builder.Services.AddSingleton<ScoringCore>();
+        builder.Services.AddSingleton(options.Monitor);
+        builder.Services.AddSingleton(options.Outcomes);
+        builder.Services.AddSingleton<Scorer.Monitor.Reporting.ChartRunner>();
+        builder.Services.AddSingleton<Scorer.Monitor.Reporting.MonitorReporter>();
+        builder.Services.AddSingleton<Scorer.Monitor.Reporting.DriftTracker>();
         builder.Services.AddSingleton<Scorer.Transport.Rest.RestScoring>();
         builder.Services.AddSingleton(options.Limits);
         var apiKeys = new ApiKeyInterceptor(options.Keys);
@@ -194,6 +199,8 @@ public static class ScorerServer
         app.UseSwagger(); // the OpenAPI document at /swagger/v1/swagger.json
         app.MapGrpcService<ScoringService>();
         app.MapGrpcService<ModelsService>();
+        app.MapGrpcService<OutcomesService>();
+        app.MapGrpcService<MonitorService>();
         app.MapGrpcReflectionService();
         app.MapGrpcHealthChecksService();
         var metrics = app.Services.GetRequiredService<ScorerMetrics>();

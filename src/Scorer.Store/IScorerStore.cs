@@ -52,6 +52,12 @@ public enum ConflictPolicy
 /// </summary>
 public sealed record OutcomeReceipt(int Accepted, int Duplicates, IReadOnlyList<string> Unknown, IReadOnlyList<string> Conflicts);
 
+/// <summary>
+/// Rows of a model version scored in one hour that fell in one bin of one drift series: <c>score</c> (the linear
+/// predictor) or <c>feature:NAME</c>, binned against the model file's baseline.
+/// </summary>
+public sealed record DriftCount(string Model, string Version, DateTimeOffset Hour, string Series, int Bin, long Rows);
+
 /// <summary>A prediction with its outcome, as the monitor reads it.</summary>
 public sealed record LabelledPrediction(Guid Id, string Version, Stage Stage, DateTimeOffset ScoredAt, double Eta, double Probability, byte Outcome, bool Implicit,
     DateTimeOffset RecordedAt);
@@ -120,6 +126,13 @@ public interface IScorerStore : IAsyncDisposable
     /// the last call stopped; returns how many it recorded.
     /// </summary>
     Task<int> RecordImplicitNegativesAsync(string model, DateTimeOffset maturedBefore, DateTimeOffset recordedAt, int limit = 10_000,
+        CancellationToken cancellationToken = default);
+
+    /// <summary>Adds drift counts (summed with what is stored for the same model, version, hour, series and bin).</summary>
+    Task AddDriftCountsAsync(IReadOnlyList<DriftCount> counts, CancellationToken cancellationToken = default);
+
+    /// <summary>The drift counts of a model version for the hours starting in [from, to), summed over the hours, by series and bin.</summary>
+    Task<IReadOnlyList<DriftCount>> GetDriftCountsAsync(string model, string version, DateTimeOffset from, DateTimeOffset to,
         CancellationToken cancellationToken = default);
 
     /// <summary>The labelled predictions of a model (optionally one version) scored in [from, to), in prediction-time order (then id).</summary>

@@ -29,6 +29,8 @@ public sealed class ApiKeyInterceptor(IReadOnlyList<ApiKey> keys) : Interceptor
     {
         ["/scorer.v1.Models/SetStage"] = "admin",
         ["/scorer.v1.Models/Rollback"] = "admin",
+        ["/scorer.v1.Outcomes/RecordOutcomes"] = "feedback",
+        ["/scorer.v1.Outcomes/RecordOutcomesStream"] = "feedback",
     };
 
     public static string Actor(ServerCallContext context) =>

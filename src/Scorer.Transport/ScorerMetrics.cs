@@ -18,6 +18,7 @@ public sealed class ScorerMetrics
         RowsScored = factory.CreateCounter("scorer_rows_scored_total", "Rows scored, by model, version and stage.", "model", "version", "stage");
         RowErrors = factory.CreateCounter("scorer_row_errors_total", "Rows that could not be scored, by model and reason.", "model", "kind");
         RowWarnings = factory.CreateCounter("scorer_row_warnings_total", "Rows scored with at least one warning, by model.", "model");
+        Outcomes = factory.CreateCounter("scorer_outcome_reports_total", "Outcome reports, by model and result (accepted, duplicate, unknown, conflict).", "model", "result");
         Calls = factory.CreateHistogram("scorer_call_duration_seconds", "Duration of calls, by method and status.",
             new HistogramConfiguration { LabelNames = ["method", "status"], Buckets = Histogram.ExponentialBuckets(0.0001, 2, 18) });
         var versions = factory.CreateGauge("scorer_model_versions", "Loaded versions, by model and stage.", "model", "stage");
@@ -58,4 +59,5 @@ public sealed class ScorerMetrics
     public Counter RowErrors { get; }
     public Counter RowWarnings { get; }
     public Histogram Calls { get; }
+    public Counter Outcomes { get; }
 }

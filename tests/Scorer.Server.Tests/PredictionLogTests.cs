@@ -42,6 +42,12 @@ public sealed class PredictionLogTests : IDisposable
         public Task<PredictionRecord?> GetPredictionAsync(Guid id, CancellationToken cancellationToken = default) => inner.GetPredictionAsync(id, cancellationToken);
         public Task<IReadOnlyList<PredictionRecord>> GetPredictionsAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken = default) => inner.GetPredictionsAsync(model, version, from, to, cancellationToken);
         public Task<long> CountPredictionsAsync(string model, string? version = null, CancellationToken cancellationToken = default) => inner.CountPredictionsAsync(model, version, cancellationToken);
+        public Task<long> CountPredictionsByMinuteAsync(string model, string version, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken = default) => inner.CountPredictionsByMinuteAsync(model, version, from, to, cancellationToken);
+        public Task<OutcomeReceipt> RecordOutcomesAsync(string model, IReadOnlyList<OutcomeReport> reports, ConflictPolicy policy, DateTimeOffset recordedAt, CancellationToken cancellationToken = default) => inner.RecordOutcomesAsync(model, reports, policy, recordedAt, cancellationToken);
+        public Task<int> RecordImplicitNegativesAsync(string model, DateTimeOffset maturedBefore, DateTimeOffset recordedAt, int limit = 10_000, CancellationToken cancellationToken = default) => inner.RecordImplicitNegativesAsync(model, maturedBefore, recordedAt, limit, cancellationToken);
+        public Task AddDriftCountsAsync(IReadOnlyList<DriftCount> counts, CancellationToken cancellationToken = default) => inner.AddDriftCountsAsync(counts, cancellationToken);
+        public Task<IReadOnlyList<DriftCount>> GetDriftCountsAsync(string model, string version, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken = default) => inner.GetDriftCountsAsync(model, version, from, to, cancellationToken);
+        public Task<IReadOnlyList<LabelledPrediction>> GetLabelledAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken = default) => inner.GetLabelledAsync(model, version, from, to, cancellationToken);
         public ValueTask DisposeAsync() => inner.DisposeAsync();
     }
 

@@ -156,6 +156,17 @@ for (link in c("logit", "probit", "cloglog")) {
              bw_features, bw_terms, bw_new, bw_outcome)
 }
 
+# --- Pima (MASS): diabetes, fit on Pima.tr, scored on Pima.te (external data) with its outcomes, for the monitor's
+# end-to-end check against tests/reference/calibration (the same fit as its pima-logit case). ---
+pima_cols <- c("npreg", "glu", "bmi", "ped", "age")
+pima_features <- lapply(pima_cols, function(col) list(name = col, type = "numeric",
+  min = min(Pima.tr[[col]]), max = max(Pima.tr[[col]])))
+pima_terms <- c(list("(Intercept)" = list()), setNames(lapply(pima_cols, function(col) list(list(feature = col))), pima_cols))
+pima_outcome <- '{"name": "diabetes", "positive": "diabetic by WHO criteria", "horizon": "P1D", "negatives": "explicit"}'
+write_rows("pima", Pima.te[, pima_cols])
+write.csv(data.frame(y = as.integer(Pima.te$type == "Yes")), file.path(out, "pima.outcomes.csv"), row.names = FALSE, quote = FALSE)
+write_case("pima", type ~ npreg + glu + bmi + ped + age, Pima.tr, "logit", pima_features, pima_terms, Pima.te[, pima_cols], pima_outcome)
+
 # --- Quantiles (qnorm, qchisq) for the distribution checks. ---
 q <- data.frame(
   kind = c(rep("normal", 6), rep("chisq", 8)),

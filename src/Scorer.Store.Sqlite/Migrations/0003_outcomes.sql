@@ -51,3 +51,14 @@ CREATE TABLE prediction_minutes (
 
 INSERT INTO prediction_minutes (model, version, minute, predictions)
     SELECT model, version, scored_at / 60000000, count(*) FROM predictions GROUP BY model, version, scored_at / 60000000;
+
+-- Rows per hour of scoring time, drift series and baseline bin, for the population stability index without labels.
+CREATE TABLE drift_counts (
+    model   TEXT    NOT NULL,
+    version TEXT    NOT NULL,
+    hour    INTEGER NOT NULL,
+    series  TEXT    NOT NULL,
+    bin     INTEGER NOT NULL,
+    rows    INTEGER NOT NULL,
+    PRIMARY KEY (model, version, hour, series, bin)
+) WITHOUT ROWID;

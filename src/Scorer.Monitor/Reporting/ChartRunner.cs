@@ -1,0 +1,252 @@
+using System.Collections.Concurrent;
+using Microsoft.Extensions.Logging;
+using Scorer.Monitor.Sequential;
+using Scorer.Monitor.Statistics;
+using Scorer.ModelFile;
+using Scorer.Registry;
+using Scorer.Store;
+
+namespace Scorer.Monitor.Reporting;
+
+/// <summary>One signal of a chart: the 1-based position of the prediction among the chart's outcomes, its time, the statistic.</summary>
+public sealed record ChartSignal(long Index, DateTimeOffset Time, double Statistic, Guid PredictionId);
+
+/// <summary>A CUSUM chart as it stands.</summary>
+public sealed record CusumView(double OddsRatio, double Value, double Threshold, double InControlRunLength, double DetectionDelay, long Steps,
+    IReadOnlyList<ChartSignal> Signals);
+
+/// <summary>The EWMA of observed minus expected as it stands: its value, its control limit (L·sd) and whether it is beyond it.</summary>
+public sealed record EwmaView(double Value, double Limit, double Lambda, bool OutOfControl, long Steps);
+
+/// <summary>The charts of one model version; <see cref="Waiting"/> says why they have not started, when they have not.</summary>
+public sealed record ChartsView(CusumView? Up, CusumView? Down, EwmaView Ewma, long Outcomes, DateTimeOffset? Through, string? Waiting);
+
+/// <summary>
+/// Runs the sequential charts of every live and shadow version: takes in each matured outcome once, in
+/// prediction-time order, up to the maturity frontier (now − the model's horizon), so a prediction enters the charts
+/// only when its outcome can be known. Records implicit negatives for models whose negatives are implicit. The CUSUM
+/// thresholds come from the version's own recent predicted probabilities (Markov-chain run length, docs/monitoring.md)
+/// and are set again when those probabilities shift.
+/// </summary>
+/// <remarks>
+/// State is kept in memory and rebuilt from the store's outcomes at start-up by the same walk, so it is the same after a
+/// restart as long as no outcome older than the frontier arrived meanwhile (such a late outcome is counted in the
+/// windows' statistics but not in a chart that has moved past it).
+/// </remarks>
+public sealed class ChartRunner(ModelRegistry registry, IScorerStore store, MonitorOptions options, TimeProvider time, ILogger<ChartRunner> logger)
+{
+    private readonly ConcurrentDictionary<(string Model, string Version), VersionCharts> _charts = new();
+
+    /// <summary>Raised (on the runner's thread) when a chart signals.</summary>
+    public event Action<string, string, string, ChartSignal>? Signalled;
+
+    public ChartsView? View(string model, string version) => _charts.TryGetValue((model, version), out var c) ? c.View() : null;
+
+    /// <summary>Runs until cancelled, catching up every <see cref="MonitorOptions.PollInterval"/>.</summary>
+    public async Task RunAsync(CancellationToken cancellationToken)
+    {
+        using var timer = new PeriodicTimer(options.PollInterval, time);
+        do
+        {
+            try
+            {
+                await CatchUpAsync(cancellationToken).ConfigureAwait(false);
+            }
+            catch (OperationCanceledException) when (cancellationToken.IsCancellationRequested)
+            {
+                return;
+            }
+#pragma warning disable CA1031 // the runner must keep running; the failure is logged and retried at the next tick
+            catch (Exception ex)
+#pragma warning restore CA1031
+            {
+                logger.LogError(ex, "The monitor's charts could not catch up; retrying");
+            }
+        }
+        while (await timer.WaitForNextTickAsync(cancellationToken).ConfigureAwait(false));
+    }
+
+    /// <summary>One catch-up: implicit negatives first, then every version's charts up to its frontier.</summary>
+    public async Task CatchUpAsync(CancellationToken cancellationToken = default)
+    {
+        var now = time.GetUtcNow();
+        foreach (var entry in registry.Current.Models.Values)
+        {
+            var outcome = entry.Versions.Length > 0 ? entry.Versions[^1].Document.Outcome : null;
+            var horizon = outcome?.HorizonSpan ?? TimeSpan.Zero;
+            if (outcome?.Negatives == NegativesPolicy.Implicit && horizon > TimeSpan.Zero)
+            {
+                while (await store.RecordImplicitNegativesAsync(entry.Name, now - horizon, now, 10_000, cancellationToken).ConfigureAwait(false) == 10_000)
+                {
+                }
+            }
+
+            foreach (var version in entry.Versions.Where(v => v.Stage != Stage.Retired))
+            {
+                var charts = _charts.GetOrAdd((entry.Name, version.Version), _ => new VersionCharts(options));
+                await charts.CatchUpAsync(store, entry.Name, version.Version, now - horizon, cancellationToken, OnSignal).ConfigureAwait(false);
+            }
+        }
+
+        void OnSignal(string model, string version, string chart, ChartSignal signal)
+        {
+            logger.LogWarning("CUSUM {Chart} of {Model} {Version} signalled at outcome {Index} (prediction {Id} of {Time:O}): statistic {Statistic:F3}",
+                chart, model, version, signal.Index, signal.PredictionId, signal.Time, signal.Statistic);
+            Signalled?.Invoke(model, version, chart, signal);
+        }
+    }
+
+    /// <summary>The charts of one version and the walk's position.</summary>
+    private sealed class VersionCharts(MonitorOptions options)
+    {
+        private readonly Lock _lock = new();
+        private readonly List<(double P, byte Y, DateTimeOffset At, Guid Id)> _pending = [];
+        private readonly List<double> _recent = [];
+        private readonly List<ChartSignal> _upSignals = [];
+        private readonly List<ChartSignal> _downSignals = [];
+        private readonly ObservedExpectedEwma _ewma = new(options.EwmaLambda, options.EwmaLimit);
+        private RiskAdjustedCusum? _up;
+        private RiskAdjustedCusum? _down;
+        private ThresholdChoice? _upChoice;
+        private ThresholdChoice? _downChoice;
+        private double[] _sampleEdges = [];
+        private DateTimeOffset _cursorTime = DateTimeOffset.UnixEpoch;
+        private Guid _cursorId = Guid.Empty;
+        private long _outcomes;
+        private long _sinceCheck;
+
+        public ChartsView View()
+        {
+            lock (_lock)
+            {
+                var limit = options.EwmaLimit * _ewma.Sd;
+                var ewma = new EwmaView(_ewma.Value, limit, options.EwmaLambda, _ewma.Steps > 0 && Math.Abs(_ewma.Value) > limit, _ewma.Steps);
+                var waiting = _up is null
+                    ? $"the CUSUM charts start once {options.CusumMinSample} outcomes have matured, to set their thresholds from the version's own predictions ({_pending.Count} so far)"
+                    : null;
+                return new ChartsView(Cusum(_up, _upChoice, _upSignals), Cusum(_down, _downChoice, _downSignals), ewma, _outcomes,
+                    _outcomes > 0 ? _cursorTime : null, waiting);
+            }
+        }
+
+        private static CusumView? Cusum(RiskAdjustedCusum? chart, ThresholdChoice? choice, List<ChartSignal> signals) => chart is null || choice is null
+            ? null
+            : new CusumView(chart.OddsRatio, chart.Value, chart.Threshold, choice.InControlRunLength, choice.DetectionDelay, chart.Steps, [.. signals]);
+
+        public async Task CatchUpAsync(IScorerStore store, string model, string version, DateTimeOffset frontier, CancellationToken cancellationToken,
+            Action<string, string, string, ChartSignal> onSignal)
+        {
+            if (frontier <= _cursorTime)
+            {
+                return;
+            }
+
+            var rows = await store.GetLabelledAsync(model, version, _cursorTime, frontier, cancellationToken).ConfigureAwait(false);
+            foreach (var row in rows)
+            {
+                if (row.ScoredAt == _cursorTime && row.Id.CompareTo(_cursorId) <= 0)
+                {
+                    continue; // taken in already (same time, earlier or same id)
+                }
+
+                Take(model, version, row.Probability, row.Outcome, row.ScoredAt, row.Id, onSignal);
+                _cursorTime = row.ScoredAt;
+                _cursorId = row.Id;
+            }
+        }
+
+        private void Take(string model, string version, double p, byte y, DateTimeOffset at, Guid id, Action<string, string, string, ChartSignal> onSignal)
+        {
+            lock (_lock)
+            {
+                _outcomes++;
+                _ewma.Add(p, y);
+                _recent.Add(p);
+                if (_recent.Count > options.CusumSample)
+                {
+                    _recent.RemoveRange(0, _recent.Count - options.CusumSample);
+                }
+
+                if (_up is null)
+                {
+                    _pending.Add((p, y, at, id));
+                    if (_pending.Count < options.CusumMinSample)
+                    {
+                        return;
+                    }
+
+                    SetThresholds();
+                    foreach (var (pp, yy, tt, ii) in _pending)
+                    {
+                        Step(model, version, pp, yy, tt, ii, onSignal);
+                    }
+
+                    _pending.Clear();
+                    return;
+                }
+
+                Step(model, version, p, y, at, id, onSignal);
+                if (++_sinceCheck >= 1_000)
+                {
+                    _sinceCheck = 0;
+                    var shift = PopulationStability.IndexFromCounts(Deciles(), Counts(_recent, _sampleEdges));
+                    if (shift > options.CusumResampleShift)
+                    {
+                        SetThresholds();
+                    }
+                }
+            }
+        }
+
+        private void Step(string model, string version, double p, byte y, DateTimeOffset at, Guid id, Action<string, string, string, ChartSignal> onSignal)
+        {
+            if (_up!.Add(p, y, out var upStatistic))
+            {
+                var signal = new ChartSignal(_up.Steps, at, upStatistic, id);
+                _upSignals.Add(signal);
+                onSignal(model, version, "up", signal);
+            }
+
+            if (_down!.Add(p, y, out var downStatistic))
+            {
+                var signal = new ChartSignal(_down.Steps, at, downStatistic, id);
+                _downSignals.Add(signal);
+                onSignal(model, version, "down", signal);
+            }
+        }
+
+        /// <summary>Thresholds for the configured run length from the recent probabilities; the charts keep their values.</summary>
+        private void SetThresholds()
+        {
+            var sample = _recent.ToArray();
+            _upChoice = RunLength.ThresholdFor(sample, options.CusumUpOddsRatio, options.CusumRunLength);
+            _downChoice = RunLength.ThresholdFor(sample, options.CusumDownOddsRatio, options.CusumRunLength);
+            if (_up is null)
+            {
+                _up = new RiskAdjustedCusum(options.CusumUpOddsRatio, _upChoice.Threshold);
+                _down = new RiskAdjustedCusum(options.CusumDownOddsRatio, _downChoice.Threshold);
+            }
+            else
+            {
+                _up.Threshold = _upChoice.Threshold;
+                _down!.Threshold = _downChoice.Threshold;
+            }
+
+            Array.Sort(sample);
+            _sampleEdges = [.. Enumerable.Range(1, 9).Select(k => SampleQuantile.Type7(sample, k / 10.0))];
+        }
+
+        private static double[] Deciles() => [.. Enumerable.Repeat(0.1, 10)];
+
+        private static long[] Counts(List<double> values, double[] edges)
+        {
+            var counts = new long[edges.Length + 1];
+            foreach (var v in values)
+            {
+                counts[PopulationStability.Bin(edges, v)]++;
+            }
+
+            return counts;
+        }
+    }
+}

@@ -1,0 +1,136 @@
+namespace Scorer.Monitor.Reporting;
+
+/// <summary>The monitor's settings (<c>Scorer:Monitor</c>). Every rule of the status has its threshold here; docs/monitoring.md lists them.</summary>
+public sealed record MonitorOptions
+{
+    /// <summary>Windows of prediction time by name; "all" is every prediction. Defaults 24h, 7d, 30d and all.</summary>
+    public Dictionary<string, TimeSpan?> Windows { get; init; } = new(StringComparer.Ordinal)
+    {
+        ["24h"] = TimeSpan.FromHours(24),
+        ["7d"] = TimeSpan.FromDays(7),
+        ["30d"] = TimeSpan.FromDays(30),
+        ["all"] = null,
+    };
+
+    /// <summary>The window a report uses when none is asked for. Default 7d.</summary>
+    public string DefaultWindow { get; init; } = "7d";
+
+    /// <summary>Confidence level of every interval. Default 0.95.</summary>
+    public double Level { get; init; } = 0.95;
+
+    /// <summary>The window whose statistics decide the status. Default 30d.</summary>
+    public string JudgedWindow { get; init; } = "30d";
+
+    /// <summary>Events (and non-events) a window needs before calibration and discrimination are judged. Default 50 of each.</summary>
+    public int MinEvents { get; init; } = 50;
+
+    /// <summary>The calibration slope's interval must not lie wholly outside 1 ± this. Default 0.2.</summary>
+    public double SlopeTolerance { get; init; } = 0.2;
+
+    /// <summary>The observed/expected interval must not lie wholly outside 1 ± this. Default 0.2.</summary>
+    public double ObservedExpectedTolerance { get; init; } = 0.2;
+
+    /// <summary>PSI above this is a moderate shift (watch). Default 0.1 (common practice).</summary>
+    public double PsiWatch { get; init; } = 0.1;
+
+    /// <summary>PSI above this is a large shift (refit due). Default 0.25 (common practice).</summary>
+    public double PsiLarge { get; init; } = 0.25;
+
+    /// <summary>Rows a window needs before its PSI is judged. Default 500.</summary>
+    public int MinPsiRows { get; init; } = 500;
+
+    /// <summary>The AUC's upper interval end below this means discrimination has fallen (refit due). Default 0.6; set it per model.</summary>
+    public double AucFloor { get; init; } = 0.6;
+
+    /// <summary>Per-model overrides of <see cref="AucFloor"/>.</summary>
+    public Dictionary<string, double> AucFloors { get; init; } = new(StringComparer.Ordinal);
+
+    /// <summary>Odds ratio the upward CUSUM looks for. Default 2.</summary>
+    public double CusumUpOddsRatio { get; init; } = 2.0;
+
+    /// <summary>Odds ratio the downward CUSUM looks for. Default 0.5.</summary>
+    public double CusumDownOddsRatio { get; init; } = 0.5;
+
+    /// <summary>In-control average run length the CUSUM thresholds are set for: labelled predictions per false alarm. Default 100,000.</summary>
+    public double CusumRunLength { get; init; } = 100_000;
+
+    /// <summary>How many of the most recent labelled probabilities the thresholds are computed from. Default 2,000.</summary>
+    public int CusumSample { get; init; } = 2_000;
+
+    /// <summary>Labelled predictions needed before the charts start (to set their thresholds). Default 200.</summary>
+    public int CusumMinSample { get; init; } = 200;
+
+    /// <summary>The thresholds are set again when the PSI of recent probabilities against the sample they came from exceeds this. Default 0.1.</summary>
+    public double CusumResampleShift { get; init; } = 0.1;
+
+    /// <summary>EWMA weight of each outcome. Default 0.01 (common practice: 0.005 to 0.02).</summary>
+    public double EwmaLambda { get; init; } = 0.01;
+
+    /// <summary>EWMA control limit in standard deviations. Default 3 (common practice).</summary>
+    public double EwmaLimit { get; init; } = 3.0;
+
+    /// <summary>How often the charts and the implicit negatives catch up with the store. Default 1 s.</summary>
+    public TimeSpan PollInterval { get; init; } = TimeSpan.FromSeconds(1);
+
+    public double AucFloorOf(string model) => AucFloors.TryGetValue(model, out var floor) ? floor : AucFloor;
+
+    /// <summary>Every problem of the settings, each naming the setting.</summary>
+    public IReadOnlyList<string> Validate()
+    {
+        var problems = new List<string>();
+        if (!(Level > 0 && Level < 1))
+        {
+            problems.Add("Scorer:Monitor:Level must be strictly between 0 and 1.");
+        }
+
+        if (!Windows.ContainsKey(DefaultWindow))
+        {
+            problems.Add($"Scorer:Monitor:DefaultWindow '{DefaultWindow}' is not one of Scorer:Monitor:Windows ({string.Join(", ", Windows.Keys)}).");
+        }
+
+        if (!Windows.ContainsKey(JudgedWindow))
+        {
+            problems.Add($"Scorer:Monitor:JudgedWindow '{JudgedWindow}' is not one of Scorer:Monitor:Windows ({string.Join(", ", Windows.Keys)}).");
+        }
+
+        foreach (var (name, span) in Windows)
+        {
+            if (span is { } s && s <= TimeSpan.Zero)
+            {
+                problems.Add($"Scorer:Monitor:Windows:{name} must be a positive duration.");
+            }
+        }
+
+        if (CusumUpOddsRatio <= 1)
+        {
+            problems.Add("Scorer:Monitor:CusumUpOddsRatio must be above 1.");
+        }
+
+        if (CusumDownOddsRatio is <= 0 or >= 1)
+        {
+            problems.Add("Scorer:Monitor:CusumDownOddsRatio must be between 0 and 1.");
+        }
+
+        if (CusumRunLength < 10)
+        {
+            problems.Add("Scorer:Monitor:CusumRunLength must be at least 10.");
+        }
+
+        if (EwmaLambda is <= 0 or >= 1)
+        {
+            problems.Add("Scorer:Monitor:EwmaLambda must be between 0 and 1.");
+        }
+
+        if (PsiWatch <= 0 || PsiLarge <= PsiWatch)
+        {
+            problems.Add("Scorer:Monitor:PsiWatch must be positive and below Scorer:Monitor:PsiLarge.");
+        }
+
+        if (MinEvents < 1 || CusumMinSample < 10 || CusumSample < CusumMinSample)
+        {
+            problems.Add("Scorer:Monitor:MinEvents must be at least 1, CusumMinSample at least 10, and CusumSample at least CusumMinSample.");
+        }
+
+        return problems;
+    }
+}

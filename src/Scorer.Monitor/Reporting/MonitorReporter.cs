@@ -1,0 +1,105 @@
+using Microsoft.Extensions.Logging;
+using Scorer.ModelFile;
+using Scorer.Monitor.Statistics;
+using Scorer.Registry;
+using Scorer.Store;
+
+namespace Scorer.Monitor.Reporting;
+
+/// <summary>A version's report over one window of prediction time, with the version's status.</summary>
+public sealed record MonitorSnapshot(
+    LoadedVersion Version,
+    string Window,
+    DateTimeOffset From,
+    DateTimeOffset To,
+    long Immature,
+    bool Provisional,
+    CalibrationReport Calibration,
+    DriftView Drift,
+    ChartsView? Charts,
+    StatusJudgement Status,
+    double Level);
+
+/// <summary>
+/// Builds reports from the store: the window's labelled predictions (outcomes table) for the calibration and
+/// discrimination statistics, the per-minute prediction counts for what is still immature, the per-hour drift counts
+/// for the PSI, and the charts from the <see cref="ChartRunner"/>. The status is judged over
+/// <see cref="MonitorOptions.JudgedWindow"/>; a change of status is logged.
+/// </summary>
+public sealed class MonitorReporter(IScorerStore store, ChartRunner charts, MonitorOptions options, TimeProvider time, ILogger<MonitorReporter> logger)
+{
+    private readonly Dictionary<(string, string), MonitorStatus> _lastStatus = [];
+    private readonly Lock _lock = new();
+
+    /// <summary>Raised when a version's status changes: model, version, the new judgement.</summary>
+    public event Action<string, string, StatusJudgement>? StatusChanged;
+
+    public MonitorOptions Options => options;
+
+    /// <summary>The report of a version over a window (a name of <see cref="MonitorOptions.Windows"/>).</summary>
+    public async Task<MonitorSnapshot> ReportAsync(LoadedVersion version, string window, CancellationToken cancellationToken = default)
+    {
+        var now = time.GetUtcNow();
+        var part = await WindowAsync(version, window, now, cancellationToken).ConfigureAwait(false);
+        var judged = window == options.JudgedWindow ? part : await WindowAsync(version, options.JudgedWindow, now, cancellationToken).ConfigureAwait(false);
+        var chartView = charts.View(version.Model, version.Version);
+        var status = StatusRules.Judge(version.Model, options.JudgedWindow, judged.Calibration, judged.Drift, chartView, judged.From, options);
+        Remember(version, status);
+        return new MonitorSnapshot(version, window, part.From, part.To, part.Immature, part.Provisional, part.Calibration, part.Drift, chartView, status,
+            options.Level);
+    }
+
+    /// <summary>The status alone (judged window), e.g. for metrics and the overview.</summary>
+    public async Task<StatusJudgement> JudgeAsync(LoadedVersion version, CancellationToken cancellationToken = default)
+    {
+        var judged = await WindowAsync(version, options.JudgedWindow, time.GetUtcNow(), cancellationToken).ConfigureAwait(false);
+        var status = StatusRules.Judge(version.Model, options.JudgedWindow, judged.Calibration, judged.Drift, charts.View(version.Model, version.Version),
+            judged.From, options);
+        Remember(version, status);
+        return status;
+    }
+
+    private void Remember(LoadedVersion version, StatusJudgement status)
+    {
+        bool changed;
+        lock (_lock)
+        {
+            changed = !_lastStatus.TryGetValue((version.Model, version.Version), out var last) || last != status.Status;
+            _lastStatus[(version.Model, version.Version)] = status.Status;
+        }
+
+        if (changed)
+        {
+            logger.LogInformation("Status of {Model} {Version} is now {Status}: {Reasons}", version.Model, version.Version, status.Name,
+                string.Join(" ", status.Reasons));
+            StatusChanged?.Invoke(version.Model, version.Version, status);
+        }
+    }
+
+    private sealed record WindowPart(DateTimeOffset From, DateTimeOffset To, long Immature, bool Provisional, CalibrationReport Calibration, DriftView Drift);
+
+    private async Task<WindowPart> WindowAsync(LoadedVersion version, string window, DateTimeOffset now, CancellationToken cancellationToken)
+    {
+        var span = options.Windows.TryGetValue(window, out var s) ? s : throw new ArgumentException($"'{window}' is not a window", nameof(window));
+        var from = span is { } length ? now - length : DateTimeOffset.UnixEpoch;
+        var to = now.AddMinutes(1); // the minute being scored belongs to the window
+        var labelled = await store.GetLabelledAsync(version.Model, version.Version, from, to, cancellationToken).ConfigureAwait(false);
+        var p = new double[labelled.Count];
+        var y = new byte[labelled.Count];
+        for (var i = 0; i < labelled.Count; i++)
+        {
+            p[i] = labelled[i].Probability;
+            y[i] = labelled[i].Outcome;
+        }
+
+        var calibration = CalibrationStatistics.Compute(p, y, options.Level);
+        var predictions = await store.CountPredictionsByMinuteAsync(version.Model, version.Version, from, to, cancellationToken).ConfigureAwait(false);
+        var immature = Math.Max(0, predictions - labelled.Count);
+        var horizon = version.Document.Outcome.HorizonSpan;
+        // A window stays provisional while any of its predictions may still get an outcome: some have none yet, or (with
+        // implicit negatives) some are younger than the horizon.
+        var provisional = immature > 0 || (version.Document.Outcome.Negatives == NegativesPolicy.Implicit && now - horizon < to);
+        var counts = await store.GetDriftCountsAsync(version.Model, version.Version, from, to, cancellationToken).ConfigureAwait(false);
+        return new WindowPart(from, to, immature, provisional, calibration, DriftTracker.Psi(version, counts));
+    }
+}

@@ -1,0 +1,175 @@
+using Google.Protobuf.WellKnownTypes;
+using Grpc.Core;
+using Scorer.Monitor.Reporting;
+using Scorer.Monitor.Statistics;
+using Scorer.Registry;
+using Scorer.Transport.V1;
+
+namespace Scorer.Transport.Services;
+
+/// <summary>The monitor's reports over gRPC (and REST through transcoding).</summary>
+public sealed class MonitorService(ModelRegistry registry, MonitorReporter reporter) : V1.Monitor.MonitorBase
+{
+    public override async Task<MonitorReport> GetReport(MonitorRequest request, ServerCallContext context)
+    {
+        if (string.IsNullOrEmpty(request.Model))
+        {
+            throw Errors.Invalid("model", "name the model");
+        }
+
+        var entry = registry.Current.Find(request.Model) ?? throw Errors.NotFound("model", $"no model '{request.Model}' is loaded");
+        LoadedVersion version;
+        if (string.IsNullOrEmpty(request.Version))
+        {
+            version = entry.Live ?? throw Errors.Precondition("version", $"model '{request.Model}' has no live version; name a version");
+        }
+        else
+        {
+            version = entry.Find(request.Version) ?? throw Errors.NotFound("version",
+                $"model '{request.Model}' has no version '{request.Version}' (loaded: {string.Join(", ", entry.Versions.Select(v => v.Version))})");
+        }
+
+        var window = string.IsNullOrEmpty(request.Window) ? reporter.Options.DefaultWindow : request.Window;
+        if (!reporter.Options.Windows.ContainsKey(window))
+        {
+            throw Errors.Invalid("window", $"'{window}' is not a window; use one of {string.Join(", ", reporter.Options.Windows.Keys)}");
+        }
+
+        var snapshot = await reporter.ReportAsync(version, window, context.CancellationToken).ConfigureAwait(false);
+        return ToMessage(snapshot);
+    }
+
+    /// <summary>The report as the proto message (shared with the streams and the page).</summary>
+    public static MonitorReport ToMessage(MonitorSnapshot s)
+    {
+        var c = s.Calibration;
+        var report = new MonitorReport
+        {
+            Model = s.Version.Model,
+            Version = s.Version.Version,
+            Stage = ModelsService.StageName(s.Version.Stage),
+            Window = s.Window,
+            From = Timestamp.FromDateTimeOffset(s.From),
+            To = Timestamp.FromDateTimeOffset(s.To),
+            Labelled = c.Labelled,
+            Events = c.Events,
+            Expected = c.Expected,
+            Immature = s.Immature,
+            Provisional = s.Provisional,
+            Status = s.Status.Name,
+            Reasons = { s.Status.Reasons },
+            Advice = s.Status.Advice,
+            Level = s.Level,
+        };
+        if (c.Labelled > 0)
+        {
+            report.Brier = c.Brier;
+            report.LogLoss = c.LogLoss;
+            report.Ece = c.Ece;
+            report.Murphy = new Murphy
+            {
+                Reliability = c.Murphy.Reliability,
+                Resolution = c.Murphy.Resolution,
+                Uncertainty = c.Murphy.Uncertainty,
+                WithinBin = c.Murphy.WithinBin,
+            };
+        }
+
+        if (c.Auc is { } auc)
+        {
+            report.Auc = new Estimate { Estimate_ = auc.Estimate, Se = auc.Se, Lower = auc.Lower, Upper = auc.Upper };
+        }
+
+        if (c.ObservedExpected is { } oe)
+        {
+            report.ObservedExpected = new Estimate { Estimate_ = oe.Estimate, Lower = oe.Lower, Upper = oe.Upper };
+        }
+
+        if (c.CalibrationIntercept is { } a)
+        {
+            report.CalibrationIntercept = Fitted(a);
+        }
+
+        if (c.CalibrationSlope is { } b)
+        {
+            report.CalibrationSlope = Fitted(b);
+        }
+
+        if (c.Spiegelhalter is { } z)
+        {
+            report.Spiegelhalter = new V1.Spiegelhalter { Z = z.Z, P = z.P };
+        }
+
+        if (c.HosmerLemeshow is { } hl)
+        {
+            report.HosmerLemeshow = new V1.HosmerLemeshow
+            {
+                Statistic = hl.Statistic,
+                Df = hl.Df,
+                P = hl.P,
+                Grouping = "deciles of predicted probability (R quantile type 7, tied breaks merged); df = groups, for data the model was not fit on",
+                Groups =
+                {
+                    hl.Groups.Select(g => new V1.RiskGroup
+                    {
+                        Count = g.Count, Observed = g.Observed, Expected = g.Expected, MinPredicted = g.MinPredicted, MaxPredicted = g.MaxPredicted,
+                    }),
+                },
+            };
+        }
+
+        report.Reliability.AddRange(c.Reliability.Select(r => new V1.ReliabilityBin
+        {
+            Lower = r.Lower,
+            Upper = r.Upper,
+            Count = r.Count,
+            Events = r.Events,
+            MeanPredicted = r.MeanPredicted,
+            ObservedRate = r.ObservedRate,
+            ObservedLower = r.WilsonLower,
+            ObservedUpper = r.WilsonUpper,
+        }));
+
+        report.Psi = new V1.Psi { Rows = s.Drift.Rows };
+        if (s.Drift.Score is { } psi)
+        {
+            report.Psi.Score = psi;
+        }
+
+        foreach (var (name, value) in s.Drift.Features)
+        {
+            report.Psi.Features[name] = value;
+        }
+
+        if (s.Charts is { } charts)
+        {
+            report.Cusum = new V1.Cusum();
+            if (charts.Up is { } up)
+            {
+                report.Cusum.Up = Chart(up);
+            }
+
+            if (charts.Down is { } down)
+            {
+                report.Cusum.Down = Chart(down);
+            }
+
+            report.Ewma = new V1.Ewma { Value = charts.Ewma.Value, Limit = charts.Ewma.Limit, Lambda = charts.Ewma.Lambda, OutOfControl = charts.Ewma.OutOfControl };
+        }
+
+        return report;
+    }
+
+    private static Estimate Fitted(FittedValue f) => new() { Estimate_ = f.Estimate, Se = f.Se, Lower = f.Lower, Upper = f.Upper };
+
+    private static CusumChart Chart(CusumView v) => new()
+    {
+        OddsRatio = v.OddsRatio,
+        Value = v.Value,
+        Threshold = v.Threshold,
+        InControlRunLength = v.InControlRunLength,
+        DetectionDelay = v.DetectionDelay,
+        Steps = v.Steps,
+        Signals = { v.Signals.Select(x => new CusumSignal { Index = x.Index, Time = Timestamp.FromDateTimeOffset(x.Time), Statistic = x.Statistic }) },
+    };
+}

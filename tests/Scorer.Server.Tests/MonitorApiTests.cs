@@ -1,0 +1,187 @@
+using System.Globalization;
+using System.Net;
+using System.Text;
+using System.Text.Json;
+using Scorer.Store;
+
+namespace Scorer.Server.Tests;
+
+/// <summary>
+/// Outcomes and the monitor end to end: MASS's Pima.te scored through REST with the model R fit on Pima.tr, its real
+/// outcomes posted by key, the report read back and checked against R and scikit-learn on the same rows
+/// (tests/reference/calibration, case pima-logit).
+/// </summary>
+public sealed class MonitorApiTests : IAsyncLifetime
+{
+    private readonly TestFolder _folder = new();
+    private RunningServer _server = null!;
+
+    public async Task InitializeAsync()
+    {
+        // Written by R's glm() on MASS::Pima.tr (tests/reference/scoring-reference.R).
+        _folder.AddModel(Files.Reference("pima-logit.model.json"), "pima.json");
+        _server = await RunningServer.StartAsync(_folder);
+    }
+
+    public async Task DisposeAsync()
+    {
+        await _server.DisposeAsync();
+        _folder.Dispose();
+    }
+
+    private async Task<(HttpStatusCode Status, JsonElement Json)> SendAsync(HttpMethod method, string path, string? body = null)
+    {
+        using var request = new HttpRequestMessage(method, path);
+        if (body is not null)
+        {
+            request.Content = new StringContent(body, Encoding.UTF8, "application/json");
+        }
+
+        using var response = await _server.Http.SendAsync(request);
+        var text = await response.Content.ReadAsStringAsync();
+        return (response.StatusCode, JsonDocument.Parse(text.Length == 0 ? "{}" : text).RootElement.Clone());
+    }
+
+    /// <summary>Scores Pima.te with keys te-0 … te-331 and waits until the log holds every row.</summary>
+    private async Task<int> ScorePimaAsync()
+    {
+        var lines = File.ReadAllLines(Files.Reference("pima.rows.csv"));
+        var header = lines[0].Split(',').Select(h => h.Trim('"')).ToArray();
+        var rows = lines.Skip(1).Select(l => "{" + string.Join(",", l.Split(',').Select((v, i) => $"\"{header[i]}\":{v}")) + "}").ToList();
+        var keys = string.Join(",", Enumerable.Range(0, rows.Count).Select(i => $"\"te-{i}\""));
+        var (status, _) = await SendAsync(HttpMethod.Post, "/v1/models/pima/score", "{\"rows\":[" + string.Join(",", rows) + "],\"keys\":[" + keys + "]}");
+        Assert.Equal(HttpStatusCode.OK, status);
+        var store = _server.Service<IScorerStore>();
+        Assert.True(await Files.EventuallyAsync(async () => await store.CountPredictionsAsync("pima") == rows.Count, TimeSpan.FromSeconds(10)));
+        return rows.Count;
+    }
+
+    private static string PimaOutcomes(Func<int, int>? change = null)
+    {
+        var y = File.ReadAllLines(Files.Reference("pima.outcomes.csv")).Skip(1).Select(int.Parse).ToList();
+        return "{\"outcomes\":[" + string.Join(",", y.Select((v, i) => $"{{\"key\":\"te-{i}\",\"outcome\":{(change is null ? v : change(i) is var c && c >= 0 ? c : v)}}}")) + "]}";
+    }
+
+    [Fact]
+    public async Task The_monitor_report_over_posted_outcomes_agrees_with_R_and_sklearn_on_the_same_rows()
+    {
+        var n = await ScorePimaAsync();
+        var (status, receipt) = await SendAsync(HttpMethod.Post, "/v1/models/pima/outcomes", PimaOutcomes());
+        Assert.Equal(HttpStatusCode.OK, status);
+        Assert.Equal(n, receipt.GetProperty("accepted").GetInt32());
+
+        var (reportStatus, report) = await SendAsync(HttpMethod.Get, "/v1/models/pima/monitor?window=all");
+        Assert.Equal(HttpStatusCode.OK, reportStatus);
+
+        // Expected values: tests/reference/calibration/out/pima-logit.json (R glm, pROC, sklearn, statsmodels; see its README).
+        using var expectedDoc = JsonDocument.Parse(File.ReadAllText(Scorer.Testing.TestRepository.CalibrationFile("pima-logit.json")));
+        var e = expectedDoc.RootElement;
+        Assert.Equal(e.GetProperty("n").GetInt32(), report.GetProperty("labelled").GetInt32());
+        Assert.Equal(e.GetProperty("events").GetDouble(), report.GetProperty("events").GetDouble());
+        Assert.Equal(0, report.GetProperty("immature").GetInt32());
+        Assert.False(report.GetProperty("provisional").GetBoolean());
+        Close(e, "brier", report.GetProperty("brier"));                         // sklearn brier_score_loss
+        Close(e, "log_loss", report.GetProperty("logLoss"));                    // sklearn log_loss
+        Close(e, "ece", report.GetProperty("ece"));                             // formula (Naeini et al. 2015) over sklearn's bins
+        Close(e, "auc", report.GetProperty("auc").GetProperty("estimate"));     // sklearn roc_auc_score
+        Close(e, "auc_lower", report.GetProperty("auc").GetProperty("lower"));  // pROC ci.auc, DeLong
+        Close(e, "auc_upper", report.GetProperty("auc").GetProperty("upper"));
+        Close(e, "oe", report.GetProperty("observedExpected").GetProperty("estimate"));
+        Close(e, "oe_lower", report.GetProperty("observedExpected").GetProperty("lower"));
+        Close(e, "oe_upper", report.GetProperty("observedExpected").GetProperty("upper"));
+        Close(e, "cal_intercept", report.GetProperty("calibrationIntercept").GetProperty("estimate"));  // R glm with offset
+        Close(e, "cal_intercept_se", report.GetProperty("calibrationIntercept").GetProperty("se"));
+        Close(e, "cal_slope", report.GetProperty("calibrationSlope").GetProperty("estimate"));          // R glm on logit(p)
+        Close(e, "cal_slope_se", report.GetProperty("calibrationSlope").GetProperty("se"));
+        Close(e, "cal_slope_lower", report.GetProperty("calibrationSlope").GetProperty("lower"));
+        Close(e, "cal_slope_upper", report.GetProperty("calibrationSlope").GetProperty("upper"));
+        Close(e, "spiegelhalter_z", report.GetProperty("spiegelhalter").GetProperty("z"));              // Spiegelhalter (1986) formula
+        Close(e, "spiegelhalter_p", report.GetProperty("spiegelhalter").GetProperty("p"));
+        Close(e, "hl_statistic", report.GetProperty("hosmerLemeshow").GetProperty("statistic"));        // R quantile/cut grouping
+        Assert.Equal(e.GetProperty("hl_df").GetInt32(), report.GetProperty("hosmerLemeshow").GetProperty("df").GetInt32());
+        Close(e, "hl_p", report.GetProperty("hosmerLemeshow").GetProperty("p"));                        // R pchisq
+
+        var bins = report.GetProperty("reliability").EnumerateArray().ToList();
+        var expectedBins = e.GetProperty("reliability").EnumerateArray().ToList();   // sklearn calibration_curve, statsmodels Wilson
+        Assert.Equal(expectedBins.Count, bins.Count);
+        for (var i = 0; i < bins.Count; i++)
+        {
+            Assert.Equal(expectedBins[i].GetProperty("count").GetInt32(), bins[i].GetProperty("count").GetInt32());
+            Assert.Equal(expectedBins[i].GetProperty("lower_edge").GetDouble(), bins[i].GetProperty("lower").GetDouble(), 1e-15);
+            Assert.Equal(expectedBins[i].GetProperty("upper_edge").GetDouble(), bins[i].GetProperty("upper").GetDouble(), 1e-15);
+            Close(expectedBins[i], "mean_predicted", bins[i].GetProperty("meanPredicted"));
+            Close(expectedBins[i], "observed_rate", bins[i].GetProperty("observedRate"));
+            Close(expectedBins[i], "wilson_lower", bins[i].GetProperty("observedLower"));
+            Close(expectedBins[i], "wilson_upper", bins[i].GetProperty("observedUpper"));
+        }
+
+        // Calibration holds on Pima.te (slope 0.955, O/E 0.97, both intervals include 1; AUC 0.865).
+        Assert.Equal("in-tune", report.GetProperty("status").GetString());
+        Assert.Contains(report.GetProperty("reasons").EnumerateArray(), r => r.GetString()!.Contains("hold", StringComparison.Ordinal));
+    }
+
+    /// <summary>Within 1e-8 relative (the issue's tolerance for fitted quantities; sums agree far closer).</summary>
+    private static void Close(JsonElement expected, string name, JsonElement actual)
+    {
+        var x = expected.GetProperty(name).GetDouble();
+        var y = actual.GetDouble();
+        Assert.True(Math.Abs(x - y) <= 1e-8 * Math.Max(1, Math.Abs(x)), string.Create(CultureInfo.InvariantCulture, $"{name}: expected {x:R}, got {y:R}"));
+    }
+
+    [Fact]
+    public async Task Outcomes_are_idempotent_conflicts_are_reported_and_unknown_ids_are_listed()
+    {
+        var n = await ScorePimaAsync();
+        await SendAsync(HttpMethod.Post, "/v1/models/pima/outcomes", PimaOutcomes());
+
+        var (_, again) = await SendAsync(HttpMethod.Post, "/v1/models/pima/outcomes", PimaOutcomes());
+        Assert.Equal(0, again.GetProperty("accepted").GetInt32());
+        Assert.Equal(n, again.GetProperty("duplicates").GetInt32());
+
+        var y0 = int.Parse(File.ReadAllLines(Files.Reference("pima.outcomes.csv"))[1], CultureInfo.InvariantCulture);
+        var stranger = Guid.CreateVersion7().ToString();
+        var (_, mixed) = await SendAsync(HttpMethod.Post, "/v1/models/pima/outcomes",
+            $"{{\"outcomes\":[{{\"key\":\"te-0\",\"outcome\":{1 - y0}}},{{\"id\":\"{stranger}\",\"outcome\":1}}]}}");
+        Assert.Equal(["te-0"], mixed.GetProperty("conflicts").EnumerateArray().Select(c => c.GetString()));
+        Assert.Equal([stranger], mixed.GetProperty("unknown").EnumerateArray().Select(c => c.GetString()));
+
+        // Kept first (the default policy): the report still counts the original outcome.
+        var (_, report) = await SendAsync(HttpMethod.Get, "/v1/models/pima/monitor?window=all");
+        Assert.Equal(n, report.GetProperty("labelled").GetInt32());
+    }
+
+    [Theory]
+    [InlineData("{\"outcomes\":[{\"key\":\"te-0\",\"outcome\":2}]}", "outcomes[0].outcome")]
+    [InlineData("{\"outcomes\":[{\"outcome\":1}]}", "outcomes[0]")]
+    [InlineData("{\"outcomes\":[{\"id\":\"not-a-uuid\",\"outcome\":1}]}", "outcomes[0].id")]
+    [InlineData("{\"outcomes\":[{\"id\":\"01a2343d-ca41-7b68-9cd2-67c04c990efb\",\"key\":\"k\",\"outcome\":1}]}", "outcomes[0]")]
+    public async Task A_bad_outcome_refuses_the_message_naming_the_entry(string body, string field)
+    {
+        var (status, json) = await SendAsync(HttpMethod.Post, "/v1/models/pima/outcomes", body);
+        Assert.Equal(HttpStatusCode.BadRequest, status);
+        Assert.Equal(field, json.GetProperty("details")[0].GetProperty("fieldViolations")[0].GetProperty("field").GetString());
+    }
+
+    [Theory]
+    [InlineData("/v1/models/nope/monitor", HttpStatusCode.NotFound, "model")]
+    [InlineData("/v1/models/pima/monitor?version=v9", HttpStatusCode.NotFound, "version")]
+    [InlineData("/v1/models/pima/monitor?window=fortnight", HttpStatusCode.BadRequest, "window")]
+    public async Task A_bad_monitor_request_names_the_field(string path, HttpStatusCode expected, string field)
+    {
+        var (status, json) = await SendAsync(HttpMethod.Get, path);
+        Assert.Equal(expected, status);
+        Assert.Equal(field, json.GetProperty("details")[0].GetProperty("fieldViolations")[0].GetProperty("field").GetString());
+    }
+
+    [Fact]
+    public async Task Before_any_outcome_every_scored_prediction_is_immature_and_the_window_provisional()
+    {
+        var n = await ScorePimaAsync();
+        var (_, report) = await SendAsync(HttpMethod.Get, "/v1/models/pima/monitor?window=24h");
+        Assert.Equal(0, report.GetProperty("labelled").GetInt32());
+        Assert.Equal(n, report.GetProperty("immature").GetInt32());
+        Assert.True(report.GetProperty("provisional").GetBoolean());
+        Assert.Equal("in-tune", report.GetProperty("status").GetString());
+        Assert.Contains(report.GetProperty("reasons").EnumerateArray(), r => r.GetString()!.StartsWith("Too few outcomes", StringComparison.Ordinal));
+    }
+}
