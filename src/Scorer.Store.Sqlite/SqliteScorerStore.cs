@@ -528,18 +528,18 @@ public sealed class SqliteScorerStore : IScorerStore
             (connection, transaction) =>
             {
                 using var byId = Command(connection, transaction,
-                    "SELECT id, version, stage, scored_at, eta, probability FROM predictions WHERE model = $model AND (id = $id OR live_id = $id);");
+                    "SELECT id, version, stage, scored_at, eta, probability, live_id FROM predictions WHERE model = $model AND (id = $id OR live_id = $id);");
                 byId.Parameters.AddWithValue("$model", model);
                 var idParameter = byId.Parameters.Add("$id", SqliteType.Blob);
                 using var byKey = Command(connection, transaction,
-                    "SELECT id, version, stage, scored_at, eta, probability FROM predictions WHERE model = $model AND \"key\" = $key;");
+                    "SELECT id, version, stage, scored_at, eta, probability, live_id FROM predictions WHERE model = $model AND \"key\" = $key;");
                 byKey.Parameters.AddWithValue("$model", model);
                 var keyParameter = byKey.Parameters.Add("$key", SqliteType.Text);
                 using var existing = Command(connection, transaction, "SELECT outcome, implicit FROM outcomes WHERE prediction_id = $id;");
                 var existingId = existing.Parameters.Add("$id", SqliteType.Blob);
                 using var insert = Command(connection, transaction,
-                    "INSERT INTO outcomes (prediction_id, model, version, stage, scored_at, eta, probability, outcome, observed_at, recorded_at, implicit) "
-                    + "VALUES ($id, $model, $version, $stage, $scoredAt, $eta, $p, $outcome, $observedAt, $now, 0);");
+                    "INSERT INTO outcomes (prediction_id, model, version, stage, scored_at, eta, probability, outcome, observed_at, recorded_at, implicit, live_id) "
+                    + "VALUES ($id, $model, $version, $stage, $scoredAt, $eta, $p, $outcome, $observedAt, $now, 0, $liveId);");
                 var insertId = insert.Parameters.Add("$id", SqliteType.Blob);
                 insert.Parameters.AddWithValue("$model", model);
                 var insertVersion = insert.Parameters.Add("$version", SqliteType.Text);
@@ -549,6 +549,7 @@ public sealed class SqliteScorerStore : IScorerStore
                 var insertP = insert.Parameters.Add("$p", SqliteType.Real);
                 var insertOutcome = insert.Parameters.Add("$outcome", SqliteType.Integer);
                 var insertObserved = insert.Parameters.Add("$observedAt", SqliteType.Integer);
+                var insertLiveId = insert.Parameters.Add("$liveId", SqliteType.Blob);
                 insert.Parameters.AddWithValue("$now", now);
                 using var update = Command(connection, transaction,
                     "UPDATE outcomes SET outcome = $outcome, observed_at = $observedAt, recorded_at = $now, implicit = 0 WHERE prediction_id = $id;");
@@ -569,7 +570,7 @@ public sealed class SqliteScorerStore : IScorerStore
                 int accepted = 0, duplicates = 0;
                 var unknown = new List<string>();
                 var conflicts = new List<string>();
-                var targets = new List<(byte[] Id, string Version, string Stage, long ScoredAt, double Eta, double P)>();
+                var targets = new List<(byte[] Id, string Version, string Stage, long ScoredAt, double Eta, double P, byte[]? LiveId)>();
                 foreach (var report in reports)
                 {
                     cancellationToken.ThrowIfCancellationRequested();
@@ -592,7 +593,7 @@ public sealed class SqliteScorerStore : IScorerStore
                         while (reader.Read())
                         {
                             targets.Add((reader.GetFieldValue<byte[]>(0), reader.GetString(1), reader.GetString(2), reader.GetInt64(3), reader.GetDouble(4),
-                                reader.GetDouble(5)));
+                                reader.GetDouble(5), reader.IsDBNull(6) ? null : reader.GetFieldValue<byte[]>(6)));
                         }
                     }
 
@@ -628,6 +629,7 @@ public sealed class SqliteScorerStore : IScorerStore
                             insertP.Value = t.P;
                             insertOutcome.Value = (long)report.Outcome;
                             insertObserved.Value = observed;
+                            insertLiveId.Value = t.LiveId is null ? DBNull.Value : t.LiveId;
                             insert.ExecuteNonQuery();
                             labelled = true;
                         }
@@ -688,13 +690,13 @@ public sealed class SqliteScorerStore : IScorerStore
                 // Walk the log in the order it was written. The walk stops at the first row of the model not yet mature,
                 // so a row logged late with an early time is still reached by a later call.
                 using var walk = Command(connection, transaction,
-                    "SELECT rowid, id, version, stage, scored_at, eta, probability FROM predictions WHERE model = $model AND rowid > $from ORDER BY rowid LIMIT $limit;");
+                    "SELECT rowid, id, version, stage, scored_at, eta, probability, live_id FROM predictions WHERE model = $model AND rowid > $from ORDER BY rowid LIMIT $limit;");
                 walk.Parameters.AddWithValue("$model", model);
                 walk.Parameters.AddWithValue("$from", from);
                 walk.Parameters.AddWithValue("$limit", limit);
                 using var insert = Command(connection, transaction,
-                    "INSERT INTO outcomes (prediction_id, model, version, stage, scored_at, eta, probability, outcome, observed_at, recorded_at, implicit) "
-                    + "VALUES ($id, $model, $version, $stage, $scoredAt, $eta, $p, 0, NULL, $now, 1) ON CONFLICT (prediction_id) DO NOTHING;");
+                    "INSERT INTO outcomes (prediction_id, model, version, stage, scored_at, eta, probability, outcome, observed_at, recorded_at, implicit, live_id) "
+                    + "VALUES ($id, $model, $version, $stage, $scoredAt, $eta, $p, 0, NULL, $now, 1, $liveId) ON CONFLICT (prediction_id) DO NOTHING;");
                 var id = insert.Parameters.Add("$id", SqliteType.Blob);
                 insert.Parameters.AddWithValue("$model", model);
                 var version = insert.Parameters.Add("$version", SqliteType.Text);
@@ -702,6 +704,7 @@ public sealed class SqliteScorerStore : IScorerStore
                 var scoredAt = insert.Parameters.Add("$scoredAt", SqliteType.Integer);
                 var eta = insert.Parameters.Add("$eta", SqliteType.Real);
                 var p = insert.Parameters.Add("$p", SqliteType.Real);
+                var liveId = insert.Parameters.Add("$liveId", SqliteType.Blob);
                 insert.Parameters.AddWithValue("$now", now);
                 var last = from;
                 var recorded = 0;
@@ -721,6 +724,7 @@ public sealed class SqliteScorerStore : IScorerStore
                         scoredAt.Value = reader.GetInt64(4);
                         eta.Value = reader.GetDouble(5);
                         p.Value = reader.GetDouble(6);
+                        liveId.Value = reader.IsDBNull(7) ? DBNull.Value : reader.GetFieldValue<byte[]>(7);
                         recorded += insert.ExecuteNonQuery();
                     }
                 }
@@ -807,6 +811,31 @@ public sealed class SqliteScorerStore : IScorerStore
         var us = StoredValues.ToUnixMicroseconds(time);
         var n = us / unit;
         return n * unit == us ? n : n + 1;
+    }
+
+    /// <inheritdoc />
+    public async Task<IReadOnlyList<PairedOutcome>> GetPairedAsync(string model, string liveVersion, string shadowVersion, DateTimeOffset from, DateTimeOffset to,
+        CancellationToken cancellationToken = default)
+    {
+        ArgumentNullException.ThrowIfNull(model);
+        await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
+        using var command = Command(connection, null,
+            "SELECT l.probability, s.probability, l.outcome FROM outcomes s JOIN outcomes l ON l.prediction_id = s.live_id "
+            + "WHERE s.model = $model AND s.version = $shadow AND l.version = $live AND l.scored_at >= $from AND l.scored_at < $to "
+            + "ORDER BY l.scored_at, l.prediction_id;");
+        command.Parameters.AddWithValue("$model", model);
+        command.Parameters.AddWithValue("$live", liveVersion);
+        command.Parameters.AddWithValue("$shadow", shadowVersion);
+        command.Parameters.AddWithValue("$from", StoredValues.ToUnixMicroseconds(from));
+        command.Parameters.AddWithValue("$to", StoredValues.ToUnixMicroseconds(to));
+        using var reader = command.ExecuteReader();
+        var pairs = new List<PairedOutcome>();
+        while (reader.Read())
+        {
+            pairs.Add(new PairedOutcome(reader.GetDouble(0), reader.GetDouble(1), (byte)reader.GetInt64(2)));
+        }
+
+        return pairs;
     }
 
     /// <inheritdoc />

@@ -58,6 +58,9 @@ public sealed record OutcomeReceipt(int Accepted, int Duplicates, IReadOnlyList<
 /// </summary>
 public sealed record DriftCount(string Model, string Version, DateTimeOffset Hour, string Series, int Bin, long Rows);
 
+/// <summary>A live prediction and the shadow prediction of the same row, with their outcome.</summary>
+public sealed record PairedOutcome(double LiveProbability, double ShadowProbability, byte Outcome);
+
 /// <summary>A prediction with its outcome, as the monitor reads it.</summary>
 public sealed record LabelledPrediction(Guid Id, string Version, Stage Stage, DateTimeOffset ScoredAt, double Eta, double Probability, byte Outcome, bool Implicit,
     DateTimeOffset RecordedAt);
@@ -133,6 +136,13 @@ public interface IScorerStore : IAsyncDisposable
 
     /// <summary>The drift counts of a model version for the hours starting in [from, to), summed over the hours, by series and bin.</summary>
     Task<IReadOnlyList<DriftCount>> GetDriftCountsAsync(string model, string version, DateTimeOffset from, DateTimeOffset to,
+        CancellationToken cancellationToken = default);
+
+    /// <summary>
+    /// Labelled live predictions of <paramref name="liveVersion"/> scored in [from, to) paired with the labelled shadow
+    /// predictions of <paramref name="shadowVersion"/> made for the same rows, in prediction-time order.
+    /// </summary>
+    Task<IReadOnlyList<PairedOutcome>> GetPairedAsync(string model, string liveVersion, string shadowVersion, DateTimeOffset from, DateTimeOffset to,
         CancellationToken cancellationToken = default);
 
     /// <summary>The labelled predictions of a model (optionally one version) scored in [from, to), in prediction-time order (then id).</summary>

@@ -108,6 +108,9 @@ public abstract partial class StoreContractTests
         var shadowLabels = await store.GetLabelledAsync(Renewal, "2", T0, Later);
         Assert.Equal(shadow.Id, Assert.Single(shadowLabels).Id);
         Assert.Equal(Stage.Shadow, shadowLabels[0].Stage);
+        var pair = Assert.Single(await store.GetPairedAsync(Renewal, "1", "2", T0, Later));
+        Assert.Equal(new PairedOutcome(live.Probability, shadow.Probability, 1), pair);
+        Assert.Empty(await store.GetPairedAsync(Renewal, "2", "1", T0, Later));
     }
 
     [Fact]

@@ -18,7 +18,8 @@ public sealed record MonitorSnapshot(
     DriftView Drift,
     ChartsView? Charts,
     StatusJudgement Status,
-    double Level);
+    double Level,
+    IReadOnlyList<ShadowComparisonView> Shadows);
 
 /// <summary>
 /// Builds reports from the store: the window's labelled predictions (outcomes table) for the calibration and
@@ -26,7 +27,8 @@ public sealed record MonitorSnapshot(
 /// for the PSI, and the charts from the <see cref="ChartRunner"/>. The status is judged over
 /// <see cref="MonitorOptions.JudgedWindow"/>; a change of status is logged.
 /// </summary>
-public sealed class MonitorReporter(IScorerStore store, ChartRunner charts, MonitorOptions options, TimeProvider time, ILogger<MonitorReporter> logger)
+public sealed class MonitorReporter(ModelRegistry registry, IScorerStore store, ChartRunner charts, MonitorOptions options, TimeProvider time,
+    ILogger<MonitorReporter> logger)
 {
     private readonly Dictionary<(string, string), MonitorStatus> _lastStatus = [];
     private readonly Lock _lock = new();
@@ -45,8 +47,18 @@ public sealed class MonitorReporter(IScorerStore store, ChartRunner charts, Moni
         var chartView = charts.View(version.Model, version.Version);
         var status = StatusRules.Judge(version.Model, options.JudgedWindow, judged.Calibration, judged.Drift, chartView, judged.From, options);
         Remember(version, status);
+        var shadows = new List<ShadowComparisonView>();
+        if (version.Stage == Stage.Live && registry.Current.Find(version.Model) is { } entry)
+        {
+            foreach (var shadow in entry.Versions.Where(v => v.Version != version.Version && v.Stage == Stage.Shadow))
+            {
+                var pairs = await store.GetPairedAsync(version.Model, version.Version, shadow.Version, part.From, part.To, cancellationToken).ConfigureAwait(false);
+                shadows.Add(ShadowComparisonView.Compare(shadow.Version, pairs, options.Level, options.MinEvents));
+            }
+        }
+
         return new MonitorSnapshot(version, window, part.From, part.To, part.Immature, part.Provisional, part.Calibration, part.Drift, chartView, status,
-            options.Level);
+            options.Level, shadows);
     }
 
     /// <summary>The status alone (judged window), e.g. for metrics and the overview.</summary>

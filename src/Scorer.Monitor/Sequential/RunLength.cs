@@ -27,6 +27,8 @@ public static class RunLength
 
     private const int MaxStates = 20_000;
     private const double BracketTolerance = 1e-10;
+    private const int MaxHalvings = 6;   // down to h = 0.5/64: shorter targets are below any chart's ARL0 in practice
+    private const int MaxDoublings = 30;
 
     /// <summary>
     /// Markov-chain ARL of the chart with odds ratio <paramref name="chartOddsRatio"/> and threshold h, from S = 0,
@@ -56,7 +58,7 @@ public static class RunLength
     /// The bracketing copies the reference script so that results are comparable: lo = 0.5, hi = 2.5; while
     /// ARL₀(hi) &lt; target, lo = hi and hi = 2·hi; then bisect, keeping ARL₀(lo) &lt; target ≤ ARL₀(hi), until
     /// hi − lo ≤ 1e-10, and return (lo + hi)/2. (If already ARL₀(0.5) ≥ target, which the reference does not allow,
-    /// the bracket is halved downwards instead.) Because ARL₀(h) is a step function with steps of up to about 0.1%, the
+    /// the bracket is halved downwards instead, at most 6 times.) Because ARL₀(h) is a step function with steps of up to about 0.1%, the
     /// in-control ARL reached may be below the target by up to about 0.1%.
     /// </remarks>
     /// <param name="probabilities">The predicted probabilities (non-empty, each in [0, 1]).</param>
@@ -77,39 +79,42 @@ public static class RunLength
 
         double InControl(double h) => chain.AverageRunLength(h, 1.0, states);
 
+        // The reference's bracket. ARL0(2.5) is evaluated first: for the usual targets (ARL0(2.5) < target) the bracket
+        // then only grows, and the costly evaluation at h = 0.5 (where every state can reach every other) is not needed.
         double lo = 0.5, hi = 2.5;
-        var arlLo = InControl(lo);
-        if (double.IsPositiveInfinity(arlLo))
+        var arlHi = InControl(hi);
+        if (double.IsPositiveInfinity(arlHi))
         {
             throw new ArgumentException("The chart cannot signal under these probabilities (for example all are 0, or all are 1).", nameof(probabilities));
         }
 
-        if (arlLo >= target)
+        if (arlHi >= target)
         {
-            for (var halvings = 0; arlLo >= target; halvings++)
+            // The reference requires ARL0(0.5) < target; for shorter targets the bracket moves down by halving.
+            for (var halvings = 0; InControl(lo) >= target; halvings++)
             {
-                if (halvings == 12)
+                if (halvings == MaxHalvings)
                 {
                     throw new ArgumentOutOfRangeException(nameof(targetInControlRunLength), target,
-                        $"The target is shorter than the in-control run length {arlLo:G6} that the chart has even at h = {lo:G3}.");
+                        $"The target is shorter than the in-control run length the chart has even at h = {lo:G3}.");
                 }
 
                 hi = lo;
                 lo *= 0.5;
-                arlLo = InControl(lo);
             }
         }
         else
         {
-            for (var doublings = 0; InControl(hi) < target; doublings++)
+            for (var doublings = 0; arlHi < target; doublings++)
             {
-                if (doublings == 30)
+                if (doublings == MaxDoublings)
                 {
                     throw new ArgumentOutOfRangeException(nameof(targetInControlRunLength), target, $"No threshold up to {hi:G3} reaches the target.");
                 }
 
                 lo = hi;
                 hi *= 2.0;
+                arlHi = InControl(hi);
             }
         }
 

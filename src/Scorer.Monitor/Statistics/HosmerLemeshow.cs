@@ -6,7 +6,7 @@ namespace Scorer.Monitor.Statistics;
 /// k·(1/g), k = 0..g; tied breaks are merged; the groups are [b₀, b₁], (b₁, b₂], ..., closed on the right. Breaks that
 /// fall between the same two neighbouring values (possible only when n is small) would give an empty group, which is
 /// left out. The degrees of freedom are the number of groups, the convention for external validation data (Hosmer,
-/// Lemeshow &amp; Sturdivant 2013, Applied Logistic Regression, 3rd ed., §5.2.2); in-sample data would use groups − 2.
+/// Lemeshow &amp; Sturdivant 2013, Applied Logistic Regression, 3rd ed.); in-sample data would use groups − 2.
 /// </summary>
 public static class HosmerLemeshow
 {

@@ -40,7 +40,7 @@ public sealed record RiskGroup(int Count, int Observed, double Expected, double 
 
 /// <summary>
 /// The Hosmer–Lemeshow goodness-of-fit test, H = Σ (O_g − E_g)² / (E_g (1 − E_g/n_g)), with the degrees of freedom of
-/// external validation data (df = number of groups; Hosmer, Lemeshow &amp; Sturdivant 2013, ch. 5). A group whose
+/// external validation data (df = number of groups; Hosmer, Lemeshow &amp; Sturdivant 2013). A group whose
 /// E_g (1 − E_g/n_g) is 0 (all its p are 0, or all are 1) makes the statistic +∞ (P = 0), or NaN when O_g = E_g too.
 /// </summary>
 /// <param name="Statistic">H.</param>

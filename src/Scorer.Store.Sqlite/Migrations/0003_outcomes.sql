@@ -14,10 +14,13 @@ CREATE TABLE outcomes (
     outcome       INTEGER NOT NULL CHECK (outcome IN (0, 1)),
     observed_at   INTEGER NULL,
     recorded_at   INTEGER NOT NULL,
-    implicit      INTEGER NOT NULL CHECK (implicit IN (0, 1))
+    implicit      INTEGER NOT NULL CHECK (implicit IN (0, 1)),
+    live_id       BLOB    NULL
 );
 
 CREATE INDEX outcomes_by_version_time ON outcomes (model, version, scored_at);
+-- A shadow prediction's outcome carries the live prediction's id (predictions.live_id), to pair the two.
+CREATE INDEX outcomes_by_live_id ON outcomes (live_id) WHERE live_id IS NOT NULL;
 
 -- Every report that disagreed with an outcome already recorded, whichever value was kept.
 CREATE TABLE outcome_conflicts (

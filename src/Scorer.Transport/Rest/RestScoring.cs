@@ -132,6 +132,7 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
         var warnings = new RowWarning[model.MaxWarningsPerRow];
         var shadowRows = entry.Shadows.Length > 0 && version.Stage == Stage.Live ? new NamedValue[]?[rowCount] : null;
         var shadowKeys = shadowRows is null ? null : new string?[rowCount];
+        var shadowIds = shadowRows is null ? null : new Guid[rowCount];
         var shadowFeatures = shadowRows is null ? null : new string?[rowCount];
         var values = ArrayPool<NamedValue>.Shared.Rent(Math.Min(limits.MaxFeaturesPerRow, 1024));
         int scoredRows = 0, warnedRows = 0;
@@ -186,6 +187,7 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
                 if (shadowRows is not null)
                 {
                     shadowRows[i] = row.ToArray();
+                    shadowIds![i] = id;
                     shadowKeys![i] = string.IsNullOrEmpty(key) ? null : key;
                     shadowFeatures![i] = features ?? Encoding.UTF8.GetString(rowJson);
                 }
@@ -202,7 +204,7 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
         core.Count(version, scoredRows, warnedRows);
         if (shadowRows is not null)
         {
-            core.Shadow(version, entry, shadowRows, shadowKeys!, shadowFeatures!, now);
+            core.Shadow(version, entry, shadowRows, shadowIds!, shadowKeys!, shadowFeatures!, now);
         }
     }
 

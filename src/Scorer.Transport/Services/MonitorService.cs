@@ -157,8 +157,38 @@ public sealed class MonitorService(ModelRegistry registry, MonitorReporter repor
             report.Ewma = new V1.Ewma { Value = charts.Ewma.Value, Limit = charts.Ewma.Limit, Lambda = charts.Ewma.Lambda, OutOfControl = charts.Ewma.OutOfControl };
         }
 
+        foreach (var shadow in s.Shadows)
+        {
+            var comparison = new V1.ShadowComparison
+            {
+                Version = shadow.Version,
+                Paired = shadow.Paired,
+                Recommendation = shadow.Recommendation,
+                Reason = shadow.Reason,
+            };
+            if (shadow.LogLoss is { } ll)
+            {
+                comparison.LogLoss = Difference(ll);
+            }
+
+            if (shadow.Brier is { } brier)
+            {
+                comparison.Brier = Difference(brier);
+            }
+
+            if (shadow.Auc is { } pairedAuc)
+            {
+                comparison.Auc = new PairedDifference { Live = pairedAuc.AucB, Shadow = pairedAuc.AucA, Difference = pairedAuc.Difference, Lower = pairedAuc.Lower, Upper = pairedAuc.Upper, P = pairedAuc.P };
+            }
+
+            report.Shadows.Add(comparison);
+        }
+
         return report;
     }
+
+    private static PairedDifference Difference(PairedLossComparison c) =>
+        new() { Live = c.MeanA, Shadow = c.MeanB, Difference = c.Difference, Lower = c.Lower, Upper = c.Upper, P = c.P };
 
     private static Estimate Fitted(FittedValue f) => new() { Estimate_ = f.Estimate, Se = f.Se, Lower = f.Lower, Upper = f.Upper };
 

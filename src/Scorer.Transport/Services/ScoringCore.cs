@@ -101,7 +101,7 @@ public sealed class ScoringCore(ModelRegistry registry, PredictionLog log, Shado
     public void CountBadValue(LoadedVersion version) => metrics.RowErrors.WithLabels(version.Model, "bad_value").Inc();
 
     /// <summary>Hands the rows a live version scored to its shadow versions (nothing happens without shadows).</summary>
-    public void Shadow(LoadedVersion version, ModelEntry entry, NamedValue[]?[] rows, string?[] keys, string?[] featuresJson, DateTimeOffset scoredAt)
+    public void Shadow(LoadedVersion version, ModelEntry entry, NamedValue[]?[] rows, Guid[] liveIds, string?[] keys, string?[] featuresJson, DateTimeOffset scoredAt)
     {
         if (entry.Shadows.Length == 0 || version.Stage != Stage.Live)
         {
@@ -111,7 +111,7 @@ public sealed class ScoringCore(ModelRegistry registry, PredictionLog log, Shado
         var scored = Enumerable.Range(0, rows.Length).Where(i => rows[i] is not null).ToArray();
         if (scored.Length > 0)
         {
-            shadows.Enqueue(new ShadowWork(entry.Shadows, [.. scored.Select(i => rows[i]!)], [.. scored.Select(i => keys[i])],
+            shadows.Enqueue(new ShadowWork(entry.Shadows, [.. scored.Select(i => rows[i]!)], [.. scored.Select(i => liveIds[i])], [.. scored.Select(i => keys[i])],
                 [.. scored.Select(i => featuresJson[i] ?? "{}")], scoredAt));
         }
     }

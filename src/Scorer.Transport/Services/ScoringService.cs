@@ -64,13 +64,15 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
         var warnings = new Engine.Scoring.RowWarning[model.MaxWarningsPerRow];
         var rowsForShadow = entry.Shadows.Length > 0 ? new NamedValue[]?[request.Rows.Count] : null;
         var featuresJson = new string?[request.Rows.Count];
+        var ids = new Guid[request.Rows.Count];
         var keys = new string?[request.Rows.Count];
         int scoredRows = 0, warnedRows = 0;
         for (var i = 0; i < request.Rows.Count; i++)
         {
             var key = request.Keys.Count > 0 ? request.Keys[i] : null;
             keys[i] = string.IsNullOrEmpty(key) ? null : key;
-            var result = new RowResult { Id = PredictionIds.Next(now).ToString(), Key = key ?? "", Error = Value.ForNull() };
+            ids[i] = PredictionIds.Next(now);
+            var result = new RowResult { Id = ids[i].ToString(), Key = key ?? "", Error = Value.ForNull() };
             response.Results.Add(result);
             if (key is { Length: > 0 } && key.Length > limits.MaxStringLength)
             {
@@ -101,7 +103,7 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
             {
                 var features = JsonFormatter.Default.Format(row);
                 featuresJson[i] = features;
-                log.TryEnqueue(new PredictionRecord(Guid.Parse(result.Id), version.Model, version.Version, version.Stage, now, keys[i], r.Eta, r.Probability, features));
+                log.TryEnqueue(new PredictionRecord(ids[i], version.Model, version.Version, version.Stage, now, keys[i], r.Eta, r.Probability, features));
             }
 
             if (rowsForShadow is not null)
@@ -113,7 +115,7 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
         core.Count(version, scoredRows, warnedRows);
         if (rowsForShadow is not null)
         {
-            core.Shadow(version, entry, rowsForShadow, keys, featuresJson, now);
+            core.Shadow(version, entry, rowsForShadow, ids, keys, featuresJson, now);
         }
 
         return response;

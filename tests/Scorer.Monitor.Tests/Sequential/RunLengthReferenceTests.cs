@@ -150,6 +150,35 @@ public class RunLengthReferenceTests
     }
 
     [Fact]
+    public void Tiny_threshold_signals_at_the_first_event_so_the_run_length_is_geometric()
+    {
+        // With h below every y = 1 weight (ln 2 − ln(1 + p) ≥ 0.12 on birthwt-probit, whose largest p is 0.77; not on
+        // pima-logit, whose largest p is 0.997) and every y = 0 weight negative, the upward
+        // chart signals at the first event and not before: the run length is geometric with success probability
+        // mean(p) in control (elementary probability, from memory), and mean(p₁) with p₁ = 2p/(1 + p) under doubled odds.
+        var p = ReferenceCase.Load("birthwt-probit").Probabilities;
+        var meanP = p.Average();
+        var meanP1 = p.Select(x => 2 * x / (1 + x)).Average();
+        Assert.Equal(1 / meanP, RunLength.Average(p, 2.0, 0.01, 1.0, states: 50), 1e-10);
+        Assert.Equal(1 / meanP1, RunLength.Average(p, 2.0, 0.01, 2.0, states: 50), 1e-10);
+    }
+
+    [Fact]
+    public void Threshold_for_a_target_below_the_reference_bracket_is_found_by_halving()
+    {
+        // ARL0(0.5) ≈ 12 on pima-logit, so a target of 6 needs h < 0.5, outside the reference's starting bracket.
+        // M = 100 keeps it fast (at small h every state reaches every other); the chain's steps in h are coarse there,
+        // so the target is met to 2%.
+        var p = ReferenceCase.Load("pima-logit").Probabilities;
+        var choice = RunLength.ThresholdFor(p, 2.0, 6.0, states: 100);
+        Assert.InRange(choice.Threshold, 0.0625, 0.5);
+        Assert.InRange(choice.InControlRunLength, 6.0 * 0.98, 6.0 * 1.02);
+        // Shorter than the 1/mean(p) ≈ 3.02 of the smallest threshold: unreachable.
+        var e = Assert.ThrowsAny<ArgumentException>(() => RunLength.ThresholdFor(p, 2.0, 2.0, states: 50));
+        Assert.Equal("targetInControlRunLength", e.ParamName);
+    }
+
+    [Fact]
     public void A_chart_that_cannot_signal_has_an_infinite_run_length()
     {
         // Every p = 0: y is always 0 and the upward chart's weight −ln(1 + 0) is 0, so S stays at 0 for ever.

@@ -132,10 +132,47 @@ public sealed class EdgeCaseTests
     public void Wilson_interval_of_zero_events_starts_at_zero()
     {
         var z = Scorer.Engine.Numerics.Quantiles.TwoSidedZ(0.95);
-        var w = ReliabilityTable.Wilson(0, 10, z);
+        var w = ReliabilityTable.WilsonInterval(0, 10);
         Assert.Equal(0.0, w.Lower);
         // Upper end z²/(n + z²) when p̂ = 0 (the Wilson formula simplified).
         Assert.Equal(z * z / (10 + z * z), w.Upper, 1e-15);
+    }
+
+    [Fact]
+    public void Wilson_interval_of_all_events_ends_at_one_and_mirrors_zero_events()
+    {
+        var all = ReliabilityTable.WilsonInterval(7, 7);
+        var none = ReliabilityTable.WilsonInterval(0, 7);
+        Assert.Equal(1.0, all.Upper);
+        // The Wilson interval is symmetric under p̂ → 1 − p̂ (its formula).
+        Assert.Equal(1.0 - none.Upper, all.Lower, 1e-15);
+        Assert.True(double.IsNaN(ReliabilityTable.WilsonInterval(0, 0).Lower));
+    }
+
+    [Fact]
+    public void Tied_predictions_merge_quantile_breaks_and_drop_the_empty_group()
+    {
+        // 25 rows each of p = 0.1, 0.2, 0.3, 0.4. R's quantile(p, seq(0, 1, 0.1)) (type 7, index 1 + 99·k/10) is
+        // 0.1, 0.1, 0.1, 0.2, 0.2, 0.25, 0.3, 0.3, 0.4, 0.4, 0.4; unique() leaves 0.1, 0.2, 0.25, 0.3, 0.4, and cut()
+        // gives [0.1, 0.2] (50 rows), (0.2, 0.25] (empty, left out), (0.25, 0.3] (25) and (0.3, 0.4] (25).
+        var p = new[] { 0.1, 0.2, 0.3, 0.4 }.SelectMany(v => Enumerable.Repeat(v, 25)).ToArray();
+        var events = new[] { 4, 6, 5, 12 };
+        var y = Enumerable.Range(0, 100).Select(i => (byte)(i % 25 < events[i / 25] ? 1 : 0)).ToArray();
+        var hl = HosmerLemeshow.Test(p, y);
+        Assert.NotNull(hl);
+        Assert.Equal([50, 25, 25], hl.Groups.Select(g => g.Count));
+        Assert.Equal([10, 5, 12], hl.Groups.Select(g => g.Observed));
+        Assert.Equal(3, hl.Df);
+        Assert.Equal(0.1, hl.Groups[0].MinPredicted);
+        Assert.Equal(0.2, hl.Groups[0].MaxPredicted);
+        // H by the Hosmer–Lemeshow (1980) formula with E = 7.5, 7.5, 10; p = 1 − χ²₃ CDF (MathNet).
+        var h = 2.5 * 2.5 / (7.5 * (1 - 7.5 / 50)) + 2.5 * 2.5 / (7.5 * (1 - 7.5 / 25)) + 2.0 * 2.0 / (10 * (1 - 10.0 / 25));
+        Assert.Equal(h, hl.Statistic, 1e-12);
+        Assert.Equal(1 - MathNet.Numerics.Distributions.ChiSquared.CDF(3, h), hl.P, 1e-12);
+        // The same rows shuffled give the same test.
+        var order = Enumerable.Range(0, 100).OrderBy(i => (i * 37) % 101).ToArray();
+        var shuffled = HosmerLemeshow.Test(order.Select(i => p[i]).ToArray(), order.Select(i => y[i]).ToArray());
+        Assert.Equal(hl.Statistic, shuffled!.Statistic, 1e-12);
     }
 
     [Fact]

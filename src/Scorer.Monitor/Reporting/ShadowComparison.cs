@@ -1,0 +1,72 @@
+using System.Globalization;
+using Scorer.Monitor.Statistics;
+
+namespace Scorer.Monitor.Reporting;
+
+/// <summary>What to do with a shadow version, from its paired comparison with the live one.</summary>
+public enum ShadowVerdict
+{
+    Undecided,
+    Promote,
+    KeepLive,
+}
+
+/// <summary>
+/// A shadow version against the live one on the same labelled rows: paired differences in log loss and Brier score
+/// (live minus shadow; METHODS §9, cases independent) and the paired DeLong test of the AUC difference (shadow minus live).
+/// </summary>
+public sealed record ShadowComparisonView(string Version, int Paired, PairedLossComparison? LogLoss, PairedLossComparison? Brier, PairedAucComparison? Auc,
+    ShadowVerdict Verdict, string Reason)
+{
+    public string Recommendation => Verdict switch
+    {
+        ShadowVerdict.Promote => "promote",
+        ShadowVerdict.KeepLive => "keep-live",
+        _ => "undecided",
+    };
+
+    /// <summary>
+    /// Compares on the pairs: promote when the log loss difference's interval lies above 0 and the AUC's does not lie
+    /// below 0; keep live when the log loss interval lies below 0 or the AUC's lies below 0; otherwise undecided.
+    /// </summary>
+    public static ShadowComparisonView Compare(string version, IReadOnlyList<Store.PairedOutcome> pairs, double level, int minEvents)
+    {
+        var live = new double[pairs.Count];
+        var shadow = new double[pairs.Count];
+        var y = new byte[pairs.Count];
+        var events = 0;
+        for (var i = 0; i < pairs.Count; i++)
+        {
+            (live[i], shadow[i], y[i]) = (pairs[i].LiveProbability, pairs[i].ShadowProbability, pairs[i].Outcome);
+            events += y[i];
+        }
+
+        if (events < minEvents || pairs.Count - events < minEvents)
+        {
+            return new ShadowComparisonView(version, pairs.Count, null, null, null, ShadowVerdict.Undecided,
+                $"Too few paired outcomes to compare: {events} events and {pairs.Count - events} non-events; at least {minEvents} of each are needed.");
+        }
+
+        var logLoss = PairedLoss.LogLoss(live, shadow, y, level);
+        var brier = PairedLoss.Brier(live, shadow, y, level);
+        var auc = Discrimination.Compare(shadow, live, y, level);
+        var pct = (level * 100).ToString("0.#", CultureInfo.InvariantCulture) + "%";
+        string F(double x) => x.ToString("0.####", CultureInfo.InvariantCulture);
+        var lossText = $"log loss live {F(logLoss.MeanA)} vs shadow {F(logLoss.MeanB)} (difference {F(logLoss.Difference)}, {pct} interval {F(logLoss.Lower)} to {F(logLoss.Upper)})";
+        var aucText = $"AUC shadow {F(auc.AucA)} vs live {F(auc.AucB)} (difference {F(auc.Difference)}, {pct} interval {F(auc.Lower)} to {F(auc.Upper)})";
+        if (logLoss.Upper < 0 || auc.Upper < 0)
+        {
+            return new ShadowComparisonView(version, pairs.Count, logLoss, brier, auc, ShadowVerdict.KeepLive,
+                $"Keep the live version: the shadow does worse on {pairs.Count} paired outcomes: {lossText}; {aucText}.");
+        }
+
+        if (logLoss.Lower > 0)
+        {
+            return new ShadowComparisonView(version, pairs.Count, logLoss, brier, auc, ShadowVerdict.Promote,
+                $"Promote: the shadow has the lower log loss on {pairs.Count} paired outcomes, and its AUC is not worse: {lossText}; {aucText}.");
+        }
+
+        return new ShadowComparisonView(version, pairs.Count, logLoss, brier, auc, ShadowVerdict.Undecided,
+            $"Undecided: no difference shown yet on {pairs.Count} paired outcomes: {lossText}; {aucText}.");
+    }
+}
