@@ -98,6 +98,10 @@ public static class ScorerServer
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.ChartRunner>();
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.MonitorReporter>();
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.DriftTracker>();
+        builder.Services.AddSingleton<Scorer.Monitor.Reporting.MonitorLoop>();
+        builder.Services.AddSingleton<Scorer.Monitor.Reporting.StatusWebhook>();
+        builder.Services.AddSingleton<MonitorWatch>();
+        builder.Services.AddSingleton<Scorer.Transport.Rest.MonitorEvents>();
         builder.Services.AddSingleton<Scorer.Transport.Rest.RestScoring>();
         builder.Services.AddSingleton(options.Limits);
         var apiKeys = new ApiKeyInterceptor(options.Keys);
@@ -209,6 +213,8 @@ public static class ScorerServer
             context.Response.ContentType = "text/plain; version=0.0.4; charset=utf-8";
             await metrics.Registry.CollectAndExportAsTextAsync(context.Response.Body, context.RequestAborted).ConfigureAwait(false);
         });
+        var monitorEvents = app.Services.GetRequiredService<Scorer.Transport.Rest.MonitorEvents>();
+        app.MapGet("/v1/models/{model}/monitor/events", (HttpContext context, string model) => monitorEvents.HandleAsync(context, model));
         app.MapGet("/healthz", () => Results.Text("ok\n"));
         app.MapGet("/readyz", async ([Microsoft.AspNetCore.Mvc.FromServices] ReadinessCheck check) =>
         {

@@ -11,7 +11,7 @@ namespace Scorer.Transport;
 /// </summary>
 public sealed class ScorerMetrics
 {
-    public ScorerMetrics(ModelRegistry registry, PredictionLog log, ShadowScorer shadows)
+    public ScorerMetrics(ModelRegistry registry, PredictionLog log, ShadowScorer shadows, Scorer.Monitor.Reporting.MonitorLoop monitor)
     {
         Registry = Metrics.NewCustomRegistry();
         var factory = Metrics.WithCustomRegistry(Registry);
@@ -32,6 +32,60 @@ public sealed class ScorerMetrics
         var batch = factory.CreateGauge("scorer_prediction_log_batch_seconds", "Duration of the last batch write.");
         var shadowDropped = factory.CreateGauge("scorer_shadow_dropped_batches", "Shadow scoring work dropped because it fell behind, since start.");
         registry.Changed += _ => reloads.Inc();
+        string[] windowLabels = ["model", "version", "window"];
+        Gauge Window(string name, string help) => factory.CreateGauge(name, help, windowLabels);
+        var labelled = Window("scorer_monitor_labelled", "Predictions with a known outcome in the window.");
+        var immature = Window("scorer_monitor_immature", "Predictions of the window still without an outcome.");
+        var oe = Window("scorer_monitor_observed_expected", "Observed/expected events in the window.");
+        var intercept = Window("scorer_monitor_calibration_intercept", "Calibration intercept (logistic fit with offset logit(p)).");
+        var slope = Window("scorer_monitor_calibration_slope", "Calibration slope (logistic fit on logit(p)).");
+        var brier = Window("scorer_monitor_brier", "Brier score.");
+        var logLoss = Window("scorer_monitor_log_loss", "Log loss.");
+        var ece = Window("scorer_monitor_ece", "Expected calibration error over the ten equal-width bins.");
+        var auc = Window("scorer_monitor_auc", "ROC AUC.");
+        var psi = factory.CreateGauge("scorer_monitor_psi", "Population stability index against the baseline, by series (score or a feature).",
+            "model", "version", "window", "series");
+        var cusum = factory.CreateGauge("scorer_monitor_cusum", "Risk-adjusted Bernoulli CUSUM value, by chart (up, down).", "model", "version", "chart");
+        var cusumThreshold = factory.CreateGauge("scorer_monitor_cusum_threshold", "CUSUM threshold, by chart.", "model", "version", "chart");
+        var cusumSignals = factory.CreateGauge("scorer_monitor_cusum_signals", "CUSUM signals since start, by chart.", "model", "version", "chart");
+        var status = factory.CreateGauge("scorer_monitor_status", "Status of the version: 0 in-tune, 1 drifting, 2 out-of-tune.", "model", "version");
+        Registry.AddBeforeCollectCallback(() =>
+        {
+            foreach (var s in monitor.Latest)
+            {
+                string[] l = [s.Version.Model, s.Version.Version, s.Window];
+                var c = s.Calibration;
+                labelled.WithLabels(l).Set(c.Labelled);
+                immature.WithLabels(l).Set(s.Immature);
+                SetOrNaN(oe.WithLabels(l), c.ObservedExpected?.Estimate);
+                SetOrNaN(intercept.WithLabels(l), c.CalibrationIntercept?.Estimate);
+                SetOrNaN(slope.WithLabels(l), c.CalibrationSlope?.Estimate);
+                SetOrNaN(brier.WithLabels(l), c.Labelled > 0 ? c.Brier : null);
+                SetOrNaN(logLoss.WithLabels(l), c.Labelled > 0 ? c.LogLoss : null);
+                SetOrNaN(ece.WithLabels(l), c.Labelled > 0 ? c.Ece : null);
+                SetOrNaN(auc.WithLabels(l), c.Auc?.Estimate);
+                if (s.Drift.Score is { } score)
+                {
+                    psi.WithLabels(s.Version.Model, s.Version.Version, s.Window, "score").Set(score);
+                }
+
+                foreach (var (feature, value) in s.Drift.Features)
+                {
+                    psi.WithLabels(s.Version.Model, s.Version.Version, s.Window, feature).Set(value);
+                }
+
+                status.WithLabels(s.Version.Model, s.Version.Version).Set((int)s.Status.Status);
+                foreach (var (chart, view) in new[] { ("up", s.Charts?.Up), ("down", s.Charts?.Down) })
+                {
+                    if (view is not null)
+                    {
+                        cusum.WithLabels(s.Version.Model, s.Version.Version, chart).Set(view.Value);
+                        cusumThreshold.WithLabels(s.Version.Model, s.Version.Version, chart).Set(view.Threshold);
+                        cusumSignals.WithLabels(s.Version.Model, s.Version.Version, chart).Set(view.Signals.Count);
+                    }
+                }
+            }
+        });
         Registry.AddBeforeCollectCallback(() =>
         {
             var snapshot = registry.Current;
@@ -53,6 +107,8 @@ public sealed class ScorerMetrics
             shadowDropped.Set(shadows.Dropped);
         });
     }
+
+    private static void SetOrNaN(Gauge.Child gauge, double? value) => gauge.Set(value ?? double.NaN);
 
     public CollectorRegistry Registry { get; }
     public Counter RowsScored { get; }

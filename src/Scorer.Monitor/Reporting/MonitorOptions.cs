@@ -69,6 +69,12 @@ public sealed record MonitorOptions
     /// <summary>EWMA control limit in standard deviations. Default 3 (common practice).</summary>
     public double EwmaLimit { get; init; } = 3.0;
 
+    /// <summary>How often every version's reports are refreshed for the metrics, the page and the event streams. Default 15 s.</summary>
+    public TimeSpan ReportInterval { get; init; } = TimeSpan.FromSeconds(15);
+
+    /// <summary>Where status changes are posted as JSON (optional); retried with backoff.</summary>
+    public Uri? Webhook { get; init; }
+
     /// <summary>How often the charts and the implicit negatives catch up with the store. Default 1 s.</summary>
     public TimeSpan PollInterval { get; init; } = TimeSpan.FromSeconds(1);
 
@@ -99,6 +105,16 @@ public sealed record MonitorOptions
             {
                 problems.Add($"Scorer:Monitor:Windows:{name} must be a positive duration.");
             }
+        }
+
+        if (ReportInterval < TimeSpan.FromMilliseconds(100) || PollInterval < TimeSpan.FromMilliseconds(10))
+        {
+            problems.Add("Scorer:Monitor:ReportInterval must be at least 100 ms and Scorer:Monitor:PollInterval at least 10 ms.");
+        }
+
+        if (Webhook is { } hook && !(hook.IsAbsoluteUri && (hook.Scheme == Uri.UriSchemeHttp || hook.Scheme == Uri.UriSchemeHttps)))
+        {
+            problems.Add("Scorer:Monitor:Webhook must be an absolute http or https URL.");
         }
 
         if (CusumUpOddsRatio <= 1)

@@ -25,7 +25,7 @@ public static class RunLength
     /// <summary>The default number of Markov-chain states.</summary>
     public const int DefaultStates = 500;
 
-    private const int MaxStates = 20_000;
+    private const int MaxStates = 2_000; // for small h the band is the whole matrix: 2,000 × 3,999 doubles (64 MB), twice while solving
     private const double BracketTolerance = 1e-10;
     private const int MaxHalvings = 6;   // down to h = 0.5/64: shorter targets are below any chart's ARL0 in practice
     private const int MaxDoublings = 30;
@@ -39,7 +39,7 @@ public static class RunLength
     /// <param name="chartOddsRatio">The chart's R_A: finite, &gt; 0 and ≠ 1.</param>
     /// <param name="threshold">h: finite and &gt; 0.</param>
     /// <param name="trueOddsRatio">The true odds ratio relative to the model: finite and &gt; 0.</param>
-    /// <param name="states">M, the number of chain states (2 to 20,000).</param>
+    /// <param name="states">M, the number of chain states (2 to 2,000).</param>
     public static double Average(ReadOnlySpan<double> probabilities, double chartOddsRatio, double threshold, double trueOddsRatio = 1.0,
         int states = DefaultStates)
     {
@@ -64,7 +64,7 @@ public static class RunLength
     /// <param name="probabilities">The predicted probabilities (non-empty, each in [0, 1]).</param>
     /// <param name="chartOddsRatio">The chart's R_A: finite, &gt; 0 and ≠ 1.</param>
     /// <param name="targetInControlRunLength">The wanted ARL₀, e.g. 100,000 labelled predictions: finite and &gt; 1.</param>
-    /// <param name="states">M, the number of chain states (2 to 20,000).</param>
+    /// <param name="states">M, the number of chain states (2 to 2,000).</param>
     /// <exception cref="ArgumentException">The target cannot be reached (the chart cannot signal, or the target is
     /// shorter than the chart's shortest ARL).</exception>
     public static ThresholdChoice ThresholdFor(ReadOnlySpan<double> probabilities, double chartOddsRatio, double targetInControlRunLength,
@@ -149,12 +149,14 @@ public static class RunLength
     /// <paramref name="trueOddsRatio"/>; for a long in-control stretch it is the steady-state delay, which is shorter,
     /// because the chart is then usually somewhat above 0 when the change comes.
     /// </summary>
+    /// <remarks>The state distribution is propagated one observation at a time until it stops changing (to 1e-13), so
+    /// the cost is that of about one ARL evaluation plus O(M·b) per in-control observation up to convergence.</remarks>
     /// <param name="probabilities">The predicted probabilities (non-empty, each in [0, 1]).</param>
     /// <param name="chartOddsRatio">The chart's R_A: finite, &gt; 0 and ≠ 1.</param>
     /// <param name="threshold">h: finite and &gt; 0.</param>
     /// <param name="trueOddsRatio">The true odds ratio after the change: finite and &gt; 0.</param>
     /// <param name="changeAfter">The number of in-control observations before the change, ≥ 0.</param>
-    /// <param name="states">M, the number of chain states (2 to 20,000).</param>
+    /// <param name="states">M, the number of chain states (2 to 2,000).</param>
     public static double DelayAfterChange(ReadOnlySpan<double> probabilities, double chartOddsRatio, double threshold, double trueOddsRatio,
         long changeAfter, int states = DefaultStates)
     {
@@ -185,7 +187,7 @@ public static class RunLength
             }
 
             (distribution, next) = (next, distribution);
-            if (change < 1e-15)
+            if (change < 1e-13)
             {
                 break; // stationary to rounding
             }

@@ -567,6 +567,13 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
         return (cut > 0 ? message[..cut] : message).Trim();
     }
 
+    /// <summary>Writes an error as the transcoder does, and flushes it (for handlers of other routes).</summary>
+    public static async Task WriteErrorAsync(HttpResponse response, RpcException ex)
+    {
+        WriteError(response, ex);
+        await response.BodyWriter.FlushAsync().ConfigureAwait(false);
+    }
+
     /// <summary>Writes an error as the transcoder does: HTTP status from the gRPC code, a google.rpc.Status JSON body.</summary>
     private static void WriteError(HttpResponse response, RpcException ex)
     {

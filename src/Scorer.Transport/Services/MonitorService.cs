@@ -8,9 +8,26 @@ using Scorer.Transport.V1;
 namespace Scorer.Transport.Services;
 
 /// <summary>The monitor's reports over gRPC (and REST through transcoding).</summary>
-public sealed class MonitorService(ModelRegistry registry, MonitorReporter reporter) : V1.Monitor.MonitorBase
+public sealed class MonitorService(ModelRegistry registry, MonitorReporter reporter, MonitorWatch watch) : V1.Monitor.MonitorBase
 {
+    public override async Task WatchReports(MonitorRequest request, IServerStreamWriter<MonitorEvent> responseStream, ServerCallContext context)
+    {
+        var (version, window) = Resolve(registry, reporter.Options, request);
+        await foreach (var e in watch.WatchAsync(version, window, context.CancellationToken).ConfigureAwait(false))
+        {
+            await responseStream.WriteAsync(e, context.CancellationToken).ConfigureAwait(false);
+        }
+    }
+
     public override async Task<MonitorReport> GetReport(MonitorRequest request, ServerCallContext context)
+    {
+        var (version, window) = Resolve(registry, reporter.Options, request);
+        var snapshot = await reporter.ReportAsync(version, window, context.CancellationToken).ConfigureAwait(false);
+        return ToMessage(snapshot);
+    }
+
+    /// <summary>The version and window a request names, or the error naming the field.</summary>
+    public static (LoadedVersion Version, string Window) Resolve(ModelRegistry registry, MonitorOptions options, MonitorRequest request)
     {
         if (string.IsNullOrEmpty(request.Model))
         {
@@ -29,14 +46,13 @@ public sealed class MonitorService(ModelRegistry registry, MonitorReporter repor
                 $"model '{request.Model}' has no version '{request.Version}' (loaded: {string.Join(", ", entry.Versions.Select(v => v.Version))})");
         }
 
-        var window = string.IsNullOrEmpty(request.Window) ? reporter.Options.DefaultWindow : request.Window;
-        if (!reporter.Options.Windows.ContainsKey(window))
+        var window = string.IsNullOrEmpty(request.Window) ? options.DefaultWindow : request.Window;
+        if (!options.Windows.ContainsKey(window))
         {
-            throw Errors.Invalid("window", $"'{window}' is not a window; use one of {string.Join(", ", reporter.Options.Windows.Keys)}");
+            throw Errors.Invalid("window", $"'{window}' is not a window; use one of {string.Join(", ", options.Windows.Keys)}");
         }
 
-        var snapshot = await reporter.ReportAsync(version, window, context.CancellationToken).ConfigureAwait(false);
-        return ToMessage(snapshot);
+        return (version, window);
     }
 
     /// <summary>The report as the proto message (shared with the streams and the page).</summary>
