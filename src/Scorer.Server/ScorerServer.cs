@@ -102,6 +102,7 @@ public static class ScorerServer
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.StatusWebhook>();
         builder.Services.AddSingleton<MonitorWatch>();
         builder.Services.AddSingleton<Scorer.Transport.Rest.MonitorEvents>();
+        builder.Services.AddSingleton<Scorer.Transport.Rest.LabelledExport>();
         builder.Services.AddSingleton<Scorer.Transport.Rest.RestScoring>();
         builder.Services.AddSingleton(options.Limits);
         var apiKeys = new ApiKeyInterceptor(options.Keys);
@@ -215,6 +216,8 @@ public static class ScorerServer
         });
         var monitorEvents = app.Services.GetRequiredService<Scorer.Transport.Rest.MonitorEvents>();
         app.MapGet("/v1/models/{model}/monitor/events", (HttpContext context, string model) => monitorEvents.HandleAsync(context, model));
+        var export = app.Services.GetRequiredService<Scorer.Transport.Rest.LabelledExport>();
+        app.MapGet("/v1/models/{model}/labelled", (HttpContext context, string model) => export.HandleAsync(context, model));
         app.MapGet("/healthz", () => Results.Text("ok\n"));
         app.MapGet("/readyz", async ([Microsoft.AspNetCore.Mvc.FromServices] ReadinessCheck check) =>
         {

@@ -839,6 +839,43 @@ public sealed class SqliteScorerStore : IScorerStore
     }
 
     /// <inheritdoc />
+    public async IAsyncEnumerable<LabelledRow> ReadLabelledRowsAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to,
+        [System.Runtime.CompilerServices.EnumeratorCancellation] CancellationToken cancellationToken = default)
+    {
+        ArgumentNullException.ThrowIfNull(model);
+        await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
+        var versionFilter = version is null ? "" : "AND o.version = $version ";
+        using var command = Command(connection, null,
+            "SELECT o.prediction_id, o.version, o.stage, o.scored_at, o.eta, o.probability, o.outcome, o.implicit, o.recorded_at, p.\"key\", p.features "
+            + "FROM outcomes o JOIN predictions p ON p.id = o.prediction_id "
+            + $"WHERE o.model = $model {versionFilter}AND o.scored_at >= $from AND o.scored_at < $to ORDER BY o.scored_at, o.prediction_id;");
+        command.Parameters.AddWithValue("$model", model);
+        if (version is not null)
+        {
+            command.Parameters.AddWithValue("$version", version);
+        }
+
+        command.Parameters.AddWithValue("$from", StoredValues.ToUnixMicroseconds(from));
+        command.Parameters.AddWithValue("$to", StoredValues.ToUnixMicroseconds(to));
+        using var reader = command.ExecuteReader();
+        while (reader.Read())
+        {
+            cancellationToken.ThrowIfCancellationRequested();
+            var prediction = new LabelledPrediction(
+                StoredValues.ToGuid(reader.GetFieldValue<byte[]>(0)),
+                reader.GetString(1),
+                StoredValues.ToStage(reader.GetString(2)),
+                StoredValues.FromUnixMicroseconds(reader.GetInt64(3)),
+                reader.GetDouble(4),
+                reader.GetDouble(5),
+                (byte)reader.GetInt64(6),
+                reader.GetInt64(7) == 1,
+                StoredValues.FromUnixMicroseconds(reader.GetInt64(8)));
+            yield return new LabelledRow(prediction, reader.IsDBNull(9) ? null : reader.GetString(9), reader.GetString(10));
+        }
+    }
+
+    /// <inheritdoc />
     public async Task<IReadOnlyList<LabelledPrediction>> GetLabelledAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to,
         CancellationToken cancellationToken = default)
     {

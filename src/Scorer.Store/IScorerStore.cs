@@ -58,6 +58,9 @@ public sealed record OutcomeReceipt(int Accepted, int Duplicates, IReadOnlyList<
 /// </summary>
 public sealed record DriftCount(string Model, string Version, DateTimeOffset Hour, string Series, int Bin, long Rows);
 
+/// <summary>A labelled prediction with the row it scored, for exporting labelled rows to a refit.</summary>
+public sealed record LabelledRow(LabelledPrediction Prediction, string? Key, string FeaturesJson);
+
 /// <summary>A live prediction and the shadow prediction of the same row, with their outcome.</summary>
 public sealed record PairedOutcome(double LiveProbability, double ShadowProbability, byte Outcome);
 
@@ -143,6 +146,13 @@ public interface IScorerStore : IAsyncDisposable
     /// predictions of <paramref name="shadowVersion"/> made for the same rows, in prediction-time order.
     /// </summary>
     Task<IReadOnlyList<PairedOutcome>> GetPairedAsync(string model, string liveVersion, string shadowVersion, DateTimeOffset from, DateTimeOffset to,
+        CancellationToken cancellationToken = default);
+
+    /// <summary>
+    /// The labelled predictions of a model (optionally one version) scored in [from, to) with their logged rows, in
+    /// prediction-time order, streamed (for exports of any size).
+    /// </summary>
+    IAsyncEnumerable<LabelledRow> ReadLabelledRowsAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to,
         CancellationToken cancellationToken = default);
 
     /// <summary>The labelled predictions of a model (optionally one version) scored in [from, to), in prediction-time order (then id).</summary>

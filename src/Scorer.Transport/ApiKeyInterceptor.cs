@@ -31,6 +31,7 @@ public sealed class ApiKeyInterceptor(IReadOnlyList<ApiKey> keys) : Interceptor
         ["/scorer.v1.Models/Rollback"] = "admin",
         ["/scorer.v1.Outcomes/RecordOutcomes"] = "feedback",
         ["/scorer.v1.Outcomes/RecordOutcomesStream"] = "feedback",
+        ["/scorer.v1.Outcomes/ExportLabelled"] = "admin",
     };
 
     public static string Actor(ServerCallContext context) =>

@@ -150,6 +150,37 @@ public sealed class MonitorApiTests : IAsyncLifetime
         Assert.Equal(n, report.GetProperty("labelled").GetInt32());
     }
 
+    [Fact]
+    public async Task Labelled_rows_export_as_csv_with_the_features_as_scored_and_the_outcomes_as_posted()
+    {
+        await ScorePimaAsync();
+        await SendAsync(HttpMethod.Post, "/v1/models/pima/outcomes", PimaOutcomes());
+
+        using var response = await _server.Http.GetAsync("/v1/models/pima/labelled");
+        Assert.Equal(HttpStatusCode.OK, response.StatusCode);
+        Assert.Equal("text/csv", response.Content.Headers.ContentType!.MediaType);
+        var lines = (await response.Content.ReadAsStringAsync()).Split('\n', StringSplitOptions.RemoveEmptyEntries);
+        var header = lines[0].Split(',');
+        Assert.Equal(["prediction_id", "version", "stage", "scored_at", "key", "eta", "probability", "outcome", "implicit", "npreg", "glu", "bmi", "ped", "age"], header);
+
+        // Row for row (by key) the values sent and the outcomes posted: MASS's Pima.te.
+        var sent = File.ReadAllLines(Files.Reference("pima.rows.csv")).Skip(1).ToList();
+        var y = File.ReadAllLines(Files.Reference("pima.outcomes.csv")).Skip(1).ToList();
+        var rows = lines.Skip(1).Select(l => l.Split(',')).ToDictionary(f => f[4]);
+        Assert.Equal(sent.Count, rows.Count);
+        for (var i = 0; i < sent.Count; i++)
+        {
+            var row = rows[$"te-{i}"];
+            Assert.Equal(y[i], row[7]);
+            Assert.Equal(sent[i].Split(',').Select(v => double.Parse(v, CultureInfo.InvariantCulture)), row[9..].Select(v => double.Parse(v, CultureInfo.InvariantCulture)));
+        }
+
+        using var bad = await _server.Http.GetAsync("/v1/models/pima/labelled?since=yesterday");
+        Assert.Equal(HttpStatusCode.BadRequest, bad.StatusCode);
+        using var empty = await _server.Http.GetAsync("/v1/models/pima/labelled?until=2000-01-01T00:00:00Z");
+        Assert.Single((await empty.Content.ReadAsStringAsync()).Split('\n', StringSplitOptions.RemoveEmptyEntries));
+    }
+
     [Theory]
     [InlineData("{\"outcomes\":[{\"key\":\"te-0\",\"outcome\":2}]}", "outcomes[0].outcome")]
     [InlineData("{\"outcomes\":[{\"outcome\":1}]}", "outcomes[0]")]

@@ -49,6 +49,7 @@ public sealed class PredictionLogTests : IDisposable
         public Task<IReadOnlyList<DriftCount>> GetDriftCountsAsync(string model, string version, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken = default) => inner.GetDriftCountsAsync(model, version, from, to, cancellationToken);
         public Task<IReadOnlyList<LabelledPrediction>> GetLabelledAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken = default) => inner.GetLabelledAsync(model, version, from, to, cancellationToken);
         public Task<IReadOnlyList<PairedOutcome>> GetPairedAsync(string model, string liveVersion, string shadowVersion, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken = default) => inner.GetPairedAsync(model, liveVersion, shadowVersion, from, to, cancellationToken);
+        public IAsyncEnumerable<LabelledRow> ReadLabelledRowsAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken = default) => inner.ReadLabelledRowsAsync(model, version, from, to, cancellationToken);
         public ValueTask DisposeAsync() => inner.DisposeAsync();
     }
 

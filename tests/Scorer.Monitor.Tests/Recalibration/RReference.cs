@@ -53,6 +53,29 @@ internal static class RReference
         return Run(script);
     }
 
+    /// <summary>
+    /// The score (∂ℓ/∂a, ∂ℓ/∂b) of the recalibration likelihood at (a, b), evaluated by R on the rows of CASE.csv with
+    /// the hazards formed without cancellation: logit y − plogis(η); probit exp(dnorm(η, log) − pnorm(±η, log.p));
+    /// cloglog u/expm1(u) and u = exp(η). At the maximum-likelihood estimate both are 0 up to rounding.
+    /// </summary>
+    public static (double A, double B) Score(string caseName, LinkKind link, double a, double b, string etaExpression = "eta")
+    {
+        var linkName = ModelFileWriter.LinkName(link);
+        var csv = RString(TestRepository.CalibrationFile(caseName + ".csv"));
+        var script = $$"""
+            d <- read.csv({{csv}}); x <- with(d, {{etaExpression}}); y <- d$y
+            e <- {{a.ToString("R", CultureInfo.InvariantCulture)}} + {{b.ToString("R", CultureInfo.InvariantCulture)}} * x
+            s <- switch("{{linkName}}",
+              logit = y - plogis(e),
+              probit = ifelse(y == 1, exp(dnorm(e, log = TRUE) - pnorm(e, log.p = TRUE)), -exp(dnorm(e, log = TRUE) - pnorm(-e, log.p = TRUE))),
+              cloglog = ifelse(y == 1, exp(e) / expm1(exp(e)), -exp(e)))
+            v <- c(ua = sum(s), ub = sum(s * x))
+            cat(sprintf("%s %.17g\n", names(v), v), sep = "")
+            """;
+        var values = Run(script);
+        return (values["ua"], values["ub"]);
+    }
+
     /// <summary>Runs an R script and reads its <c>name value</c> lines.</summary>
     public static Dictionary<string, double> Run(string script)
     {
