@@ -15,6 +15,8 @@ public static class Program
         root.Subcommands.Add(Score(stdout, stderr));
         root.Subcommands.Add(Fit(stdout, stderr));
         root.Subcommands.Add(Serve());
+        root.Subcommands.Add(Calibration(stdout, stderr));
+        root.Subcommands.Add(Recalibrate(stdout, stderr));
         return root.Parse(args).Invoke(new InvocationConfiguration { Output = stdout, Error = stderr });
     }
 
@@ -107,6 +109,62 @@ public static class Program
             Negatives = r.GetValue(negatives),
             Description = r.GetValue(description),
             Progress = !r.GetValue(quiet),
+        }, stdout, stderr));
+        return command;
+    }
+
+    // The options of calibration and recalibrate are parsed and checked by the commands themselves (strings, none
+    // required, unmatched tokens collected), so that every usage error exits with 2 and names the option.
+    private static Command Calibration(TextWriter stdout, TextWriter stderr)
+    {
+        var input = new Option<string?>("--input", "-i") { Description = "CSV of labelled predictions, header first ('-' for standard input). Required." };
+        var probability = new Option<string?>("--probability") { Description = "The column of predicted probabilities, each in [0, 1]. Required." };
+        var outcome = new Option<string?>("--outcome") { Description = "The column of outcomes: 0/1 or false/true. Required." };
+        var json = new Option<bool>("--json") { Description = "Print the report as JSON (the names of the service's monitor report)." };
+        var level = new Option<string?>("--level") { Description = "Confidence level of every interval (default 0.95)." };
+        var dropMissing = new Option<bool>("--drop-missing") { Description = "Leave out rows with a missing probability or outcome (counted) instead of refusing the data." };
+        var command = new Command("calibration", "Calibration and discrimination report of labelled predictions: O/E, calibration intercept and slope, " +
+            "Spiegelhalter, Hosmer-Lemeshow, Brier with Murphy's decomposition, log loss, ECE, reliability table, AUC.")
+        {
+            input, probability, outcome, json, level, dropMissing,
+        };
+        command.TreatUnmatchedTokensAsErrors = false;
+        command.SetAction(r => CalibrationCommand.Run(
+            new CalibrationCommand.Options(r.GetValue(input), r.GetValue(probability), r.GetValue(outcome), r.GetValue(json), r.GetValue(level),
+                r.GetValue(dropMissing), [.. r.UnmatchedTokens]),
+            stdout, stderr));
+        return command;
+    }
+
+    private static Command Recalibrate(TextWriter stdout, TextWriter stderr)
+    {
+        var model = new Argument<string?>("model") { Description = "The deployed model file.", Arity = ArgumentArity.ZeroOrOne };
+        var input = new Option<string?>("--input", "-i") { Description = "CSV of matured outcomes with the deployed linear predictor ('-' for standard input). Required." };
+        var eta = new Option<string?>("--eta") { Description = "The column of the linear predictor the deployed version gave. Required." };
+        var outcome = new Option<string?>("--outcome") { Description = "The column of outcomes: 0/1 or false/true. Required." };
+        var version = new Option<string?>("--version") { Description = "Version of the recalibrated model. Required." };
+        var kind = new Option<string?>("--kind") { Description = "auto (default: the closed test decides), in-the-large or intercept-and-slope." };
+        var output = new Option<string?>("--output", "-o") { Description = "Where to write the recalibrated model file. Required." };
+        var alpha = new Option<string?>("--alpha") { Description = "Significance level of the closed test (default 0.05)." };
+        var dropMissing = new Option<bool>("--drop-missing") { Description = "Leave out rows with a missing eta or outcome (counted) instead of refusing the data." };
+        var command = new Command("recalibrate", "Recalibrate a model on matured outcomes (intercept, or intercept and slope, on its linear predictor) " +
+            "and write the new model file; the closed test of Vergouwe et al. (2017) chooses with --kind auto.")
+        {
+            model, input, eta, outcome, version, kind, output, alpha, dropMissing,
+        };
+        command.TreatUnmatchedTokensAsErrors = false;
+        command.SetAction(r => RecalibrateCommand.Run(new RecalibrateCommand.Options
+        {
+            Model = r.GetValue(model),
+            Input = r.GetValue(input),
+            Eta = r.GetValue(eta),
+            Outcome = r.GetValue(outcome),
+            Version = r.GetValue(version),
+            Kind = r.GetValue(kind),
+            Output = r.GetValue(output),
+            Alpha = r.GetValue(alpha),
+            DropMissing = r.GetValue(dropMissing),
+            Unmatched = [.. r.UnmatchedTokens],
         }, stdout, stderr));
         return command;
     }

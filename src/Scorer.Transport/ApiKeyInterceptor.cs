@@ -32,6 +32,7 @@ public sealed class ApiKeyInterceptor(IReadOnlyList<ApiKey> keys) : Interceptor
         ["/scorer.v1.Outcomes/RecordOutcomes"] = "feedback",
         ["/scorer.v1.Outcomes/RecordOutcomesStream"] = "feedback",
         ["/scorer.v1.Outcomes/ExportLabelled"] = "admin",
+        ["/scorer.v1.Monitor/Recalibrate"] = "admin",
     };
 
     public static string Actor(ServerCallContext context) =>

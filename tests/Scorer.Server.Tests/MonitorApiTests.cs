@@ -181,6 +181,44 @@ public sealed class MonitorApiTests : IAsyncLifetime
         Assert.Single((await empty.Content.ReadAsStringAsync()).Split('\n', StringSplitOptions.RemoveEmptyEntries));
     }
 
+    [Fact]
+    public async Task A_recalibrated_candidate_is_fitted_as_R_fits_it_written_and_loaded_as_a_shadow_version()
+    {
+        await ScorePimaAsync();
+        await SendAsync(HttpMethod.Post, "/v1/models/pima/outcomes", PimaOutcomes());
+        var (_, models) = await SendAsync(HttpMethod.Get, "/v1/models");
+        var live = models.GetProperty("models")[0].GetProperty("live").GetString()!;
+
+        var (status, fit) = await SendAsync(HttpMethod.Post, $"/v1/models/pima/versions/{live}/recalibrate",
+            "{\"window\":\"all\",\"kind\":\"intercept-and-slope\",\"newVersion\":\"recal-1\"}");
+        Assert.Equal(HttpStatusCode.OK, status);
+        Assert.True(fit.GetProperty("written").GetBoolean());
+
+        // R: glm(y ~ qlogis(p), binomial) on Pima.te (tests/reference/calibration, pima-logit): for a logit model this is
+        // the recalibration fit logit P(y) = a + b·eta.
+        using var expectedDoc = JsonDocument.Parse(File.ReadAllText(Scorer.Testing.TestRepository.CalibrationFile("pima-logit.json")));
+        Close(expectedDoc.RootElement, "cal_slope_intercept", fit.GetProperty("intercept").GetProperty("estimate"));
+        Close(expectedDoc.RootElement, "cal_slope", fit.GetProperty("slope").GetProperty("estimate"));
+        Close(expectedDoc.RootElement, "cal_slope_se", fit.GetProperty("slope").GetProperty("se"));
+
+        // Loaded as a shadow version, scoring a + b·eta of the live version.
+        var (_, after) = await SendAsync(HttpMethod.Get, "/v1/models");
+        var versions = after.GetProperty("models")[0].GetProperty("versions").EnumerateArray().ToList();
+        Assert.Contains(versions, v => v.GetProperty("version").GetString() == "recal-1" && v.GetProperty("stage").GetString() == "shadow");
+        const string Row = "{\"npreg\":2,\"glu\":120,\"bmi\":31.5,\"ped\":0.4,\"age\":35}";
+        var (_, old) = await SendAsync(HttpMethod.Post, "/v1/models/pima/score", "{\"rows\":[" + Row + "]}");
+        var (_, fresh) = await SendAsync(HttpMethod.Post, "/v1/models/pima/score", "{\"rows\":[" + Row + "],\"version\":\"recal-1\"}");
+        var a = fit.GetProperty("intercept").GetProperty("estimate").GetDouble();
+        var b = fit.GetProperty("slope").GetProperty("estimate").GetDouble();
+        var etaOld = old.GetProperty("results")[0].GetProperty("eta").GetDouble();
+        Assert.Equal(a + (b * etaOld), fresh.GetProperty("results")[0].GetProperty("eta").GetDouble(), 1e-12);
+
+        // The same name again is refused, naming the field.
+        var (again, error) = await SendAsync(HttpMethod.Post, $"/v1/models/pima/versions/{live}/recalibrate", "{\"kind\":\"in-the-large\",\"newVersion\":\"recal-1\"}");
+        Assert.Equal(HttpStatusCode.BadRequest, again);
+        Assert.Equal("newVersion", error.GetProperty("details")[0].GetProperty("fieldViolations")[0].GetProperty("field").GetString());
+    }
+
     [Theory]
     [InlineData("{\"outcomes\":[{\"key\":\"te-0\",\"outcome\":2}]}", "outcomes[0].outcome")]
     [InlineData("{\"outcomes\":[{\"outcome\":1}]}", "outcomes[0]")]

@@ -1,5 +1,6 @@
 using Google.Protobuf.WellKnownTypes;
 using Grpc.Core;
+using Scorer.Monitor.Recalibration;
 using Scorer.Monitor.Reporting;
 using Scorer.Monitor.Statistics;
 using Scorer.Registry;
@@ -8,8 +9,109 @@ using Scorer.Transport.V1;
 namespace Scorer.Transport.Services;
 
 /// <summary>The monitor's reports over gRPC (and REST through transcoding).</summary>
-public sealed class MonitorService(ModelRegistry registry, MonitorReporter reporter, MonitorWatch watch) : V1.Monitor.MonitorBase
+public sealed class MonitorService(ModelRegistry registry, MonitorReporter reporter, MonitorWatch watch, Scorer.Store.IScorerStore store, RegistryOptions folder,
+    TimeProvider time) : V1.Monitor.MonitorBase
 {
+    public override async Task<RecalibrateResponse> Recalibrate(RecalibrateRequest request, ServerCallContext context)
+    {
+        var (version, window) = Resolve(registry, reporter.Options, new MonitorRequest
+        {
+            Model = request.Model,
+            Version = request.Version,
+            Window = string.IsNullOrEmpty(request.Window) ? reporter.Options.JudgedWindow : request.Window,
+        });
+        if (string.IsNullOrEmpty(request.Version))
+        {
+            throw Errors.Invalid("version", "name the version to recalibrate");
+        }
+
+        RecalibrationKind? kind = request.Kind switch
+        {
+            "" or "auto" => null,
+            "in-the-large" => RecalibrationKind.InTheLarge,
+            "intercept-and-slope" => RecalibrationKind.InterceptAndSlope,
+            _ => throw Errors.Invalid("kind", $"'{request.Kind}' is not a kind; use auto, in-the-large or intercept-and-slope"),
+        };
+        var now = time.GetUtcNow();
+        var newVersion = string.IsNullOrEmpty(request.NewVersion) ? $"{version.Version}-recal-{now:yyyyMMddHHmmss}" : request.NewVersion;
+        if (registry.Current.Find(version.Model)?.Find(newVersion) is not null)
+        {
+            throw Errors.Invalid("newVersion", $"model '{version.Model}' already has a version '{newVersion}'");
+        }
+
+        var span = reporter.Options.Windows[window];
+        var labelled = await store.GetLabelledAsync(version.Model, version.Version, span is { } w ? now - w : DateTimeOffset.UnixEpoch, now.AddMinutes(1),
+            context.CancellationToken).ConfigureAwait(false);
+        var eta = labelled.Select(l => l.Eta).ToArray();
+        var y = labelled.Select(l => l.Outcome).ToArray();
+        var events = y.Count(v => v == 1);
+        if (events < 1 || events == y.Length)
+        {
+            throw Errors.Precondition("window", $"{y.Length} labelled predictions with {events} events over {window}: a recalibration needs events and non-events");
+        }
+
+        RecalibrationFit? fit;
+        string reason;
+        try
+        {
+            if (kind is { } k)
+            {
+                fit = Recalibrator.Fit(eta, y, version.Document.Link, k);
+                reason = $"{RecalibrationNames.Of(k)} asked for; fitted on {y.Length} labelled predictions over {window}.";
+            }
+            else
+            {
+                var choice = Recalibrator.Choose(eta, y, version.Document.Link);
+                fit = choice.RecommendedFit;
+                reason = choice.Reason;
+            }
+        }
+        catch (ArgumentException ex)
+        {
+            throw Errors.Precondition("version", ex.Message);
+        }
+
+        var response = new RecalibrateResponse { Reason = reason, Rows = y.Length, Events = events, NewVersion = newVersion };
+        if (fit is null)
+        {
+            return response;
+        }
+
+        ModelFile.ModelDocument document;
+        try
+        {
+            document = Recalibrator.Apply(version.Document, fit, newVersion);
+        }
+        catch (ArgumentException ex)
+        {
+            throw Errors.Precondition("version", ex.Message);
+        }
+
+        var file = Path.Combine(folder.ModelsPath, $"{version.Model}-{newVersion}.json");
+        if (File.Exists(file))
+        {
+            throw Errors.Invalid("newVersion", $"the file {Path.GetFileName(file)} exists already");
+        }
+
+        await using (var stream = new FileStream(file, FileMode.CreateNew))
+        {
+            ModelFile.ModelFileWriter.Write(document, stream);
+        }
+
+        await registry.ReloadAsync(context.CancellationToken).ConfigureAwait(false);
+        response.Written = true;
+        response.File = Path.GetFileName(file);
+        response.Kind = RecalibrationNames.Of(fit.Kind);
+        response.Intercept = new Estimate { Estimate_ = fit.Intercept, Se = fit.InterceptSe, Lower = double.NaN, Upper = double.NaN };
+        response.Slope = new Estimate { Estimate_ = fit.Slope, Se = fit.SlopeSe, Lower = double.NaN, Upper = double.NaN };
+        var z = Scorer.Engine.Numerics.Quantiles.TwoSidedZ(reporter.Options.Level);
+        response.Intercept.Lower = fit.Intercept - (z * fit.InterceptSe);
+        response.Intercept.Upper = fit.Intercept + (z * fit.InterceptSe);
+        response.Slope.Lower = fit.Slope - (z * fit.SlopeSe);
+        response.Slope.Upper = fit.Slope + (z * fit.SlopeSe);
+        return response;
+    }
+
     public override async Task WatchReports(MonitorRequest request, IServerStreamWriter<MonitorEvent> responseStream, ServerCallContext context)
     {
         var (version, window) = Resolve(registry, reporter.Options, request);
@@ -218,4 +320,10 @@ public sealed class MonitorService(ModelRegistry registry, MonitorReporter repor
         Steps = v.Steps,
         Signals = { v.Signals.Select(x => new CusumSignal { Index = x.Index, Time = Timestamp.FromDateTimeOffset(x.Time), Statistic = x.Statistic }) },
     };
+}
+
+/// <summary>The names of recalibration kinds in the API.</summary>
+internal static class RecalibrationNames
+{
+    public static string Of(RecalibrationKind kind) => kind == RecalibrationKind.InTheLarge ? "in-the-large" : "intercept-and-slope";
 }
