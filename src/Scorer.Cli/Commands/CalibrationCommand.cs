@@ -265,8 +265,8 @@ internal static class CalibrationCommand
 /// <summary>A failure of a command: the messages to print and the exit code (1 for data, 2 for usage).</summary>
 internal sealed class CommandException(int exitCode, IReadOnlyList<string> messages) : Exception(string.Join("; ", messages))
 {
-    public const int Data = 1;
-    public const int Usage = 2;
+    public const int DataError = 1;
+    public const int UsageError = 2;
 
     public CommandException(int exitCode, string message)
         : this(exitCode, [message])
@@ -285,7 +285,7 @@ internal sealed class CommandException(int exitCode, IReadOnlyList<string> messa
             return;
         }
 
-        stderr.WriteLine($"{command}: {(ExitCode == Usage ? "the command line is wrong" : "the data cannot be used")}:");
+        stderr.WriteLine($"{command}: {(ExitCode == UsageError ? "the command line is wrong" : "the data cannot be used")}:");
         foreach (var m in Messages)
         {
             stderr.WriteLine("  " + m);
@@ -340,7 +340,7 @@ internal static class CommandLine
     {
         if (usage.Count > 0)
         {
-            throw new CommandException(CommandException.Usage, usage);
+            throw new CommandException(CommandException.UsageError, usage);
         }
     }
 }
@@ -374,7 +374,7 @@ internal static class LabelledCsv
         }
         catch (Exception ex) when (ex is IOException or UnauthorizedAccessException)
         {
-            throw new CommandException(CommandException.Data, $"cannot read --input {path}: {ex.Message}");
+            throw new CommandException(CommandException.DataError, $"cannot read --input {path}: {ex.Message}");
         }
 
         using (stream)
@@ -387,7 +387,7 @@ internal static class LabelledCsv
             }
             catch (FormatException ex)
             {
-                throw new CommandException(CommandException.Data, $"{path} is not valid CSV: {ex.Message}");
+                throw new CommandException(CommandException.DataError, $"{path} is not valid CSV: {ex.Message}");
             }
         }
     }
@@ -396,7 +396,7 @@ internal static class LabelledCsv
     {
         if (!csv.TryRead())
         {
-            throw new CommandException(CommandException.Data, $"{path} is empty; its first line must name the columns");
+            throw new CommandException(CommandException.DataError, $"{path} is empty; its first line must name the columns");
         }
 
         var header = Enumerable.Range(0, csv.FieldCount).Select(csv.GetString).ToList();
@@ -494,12 +494,12 @@ internal static class LabelledCsv
 
         if (problems.Count > 0)
         {
-            throw new CommandException(CommandException.Data, problems);
+            throw new CommandException(CommandException.DataError, problems);
         }
 
         if (values.Count == 0)
         {
-            throw new CommandException(CommandException.Data, $"{path} has no labelled rows" + (dropped > 0 ? $" ({dropped} left out with a missing value)" : ""));
+            throw new CommandException(CommandException.DataError, $"{path} has no labelled rows" + (dropped > 0 ? $" ({dropped} left out with a missing value)" : ""));
         }
 
         return new Data([.. values], [.. outcomes], dropMissing ? dropped : 0);

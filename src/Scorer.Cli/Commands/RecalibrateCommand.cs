@@ -81,7 +81,7 @@ internal static class RecalibrateCommand
         CommandLine.ThrowIfAny(usage);
         if (!model.Terms.Any(t => t.IsIntercept))
         {
-            throw new CommandException(CommandException.Data,
+            throw new CommandException(CommandException.DataError,
                 $"{o.Model} ({model.Model} {model.Version}) has no intercept term (a term with no factors): recalibration adds a to the " +
                 "intercept, which this model does not have; refit it with an intercept");
         }
@@ -99,7 +99,7 @@ internal static class RecalibrateCommand
         }
         catch (Exception ex) when (ex is ArgumentException or InvalidOperationException)
         {
-            throw new CommandException(CommandException.Data, $"the recalibration cannot be fitted on {o.Input}: {ex.Message}");
+            throw new CommandException(CommandException.DataError, $"the recalibration cannot be fitted on {o.Input}: {ex.Message}");
         }
 
         Print(model, o, choice, stdout);
@@ -118,11 +118,11 @@ internal static class RecalibrateCommand
         }
         catch (ArgumentException ex)
         {
-            throw new CommandException(CommandException.Data, ex.Message);
+            throw new CommandException(CommandException.DataError, ex.Message);
         }
         catch (ModelFileException ex)
         {
-            throw new CommandException(CommandException.Data, [$"the recalibrated model would not be a valid model file:", .. ex.Problems.Select(p => p.ToString())]);
+            throw new CommandException(CommandException.DataError, [$"the recalibrated model would not be a valid model file:", .. ex.Problems.Select(p => p.ToString())]);
         }
 
         try
@@ -131,7 +131,7 @@ internal static class RecalibrateCommand
         }
         catch (Exception ex) when (ex is IOException or UnauthorizedAccessException)
         {
-            throw new CommandException(CommandException.Data, $"cannot write --output {o.Output}: {ex.Message}");
+            throw new CommandException(CommandException.DataError, $"cannot write --output {o.Output}: {ex.Message}");
         }
 
         var why = kind is null ? "the closed test's recommendation" : $"--kind {Recalibrator.KindName(kind.Value)}";
@@ -173,10 +173,10 @@ internal static class RecalibrateCommand
         }
         catch (Exception ex) when (ex is IOException or UnauthorizedAccessException)
         {
-            throw new CommandException(CommandException.Data, $"cannot read the model file {path}: {ex.Message}");
+            throw new CommandException(CommandException.DataError, $"cannot read the model file {path}: {ex.Message}");
         }
 
-        return load.Document ?? throw new CommandException(CommandException.Data,
+        return load.Document ?? throw new CommandException(CommandException.DataError,
             [$"{path} is not a valid model file:", .. load.Errors.Select(e => e.ToString())]);
     }
 
