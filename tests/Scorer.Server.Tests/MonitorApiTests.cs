@@ -254,3 +254,84 @@ public sealed class MonitorApiTests : IAsyncLifetime
         Assert.Contains(report.GetProperty("reasons").EnumerateArray(), r => r.GetString()!.StartsWith("Too few outcomes", StringComparison.Ordinal));
     }
 }
+
+/// <summary>Outcomes over gRPC, and the roles the outcome and monitor calls need.</summary>
+public sealed class OutcomesGrpcTests : IAsyncLifetime
+{
+    private readonly TestFolder _folder = new();
+    private RunningServer _server = null!;
+
+    public async Task InitializeAsync()
+    {
+        _folder.AddModel(Files.Reference("pima-logit.model.json"), "pima.json");
+        _server = await RunningServer.StartAsync(_folder, new Dictionary<string, string?>
+        {
+            ["Scorer:Keys:0:Name"] = "scoring-system",
+            ["Scorer:Keys:0:Key"] = "score-key-0123456789",
+            ["Scorer:Keys:0:Roles:0"] = "score",
+            ["Scorer:Keys:1:Name"] = "labelling-system",
+            ["Scorer:Keys:1:Key"] = "feedback-key-0123456789",
+            ["Scorer:Keys:1:Roles:0"] = "feedback",
+        });
+    }
+
+    public async Task DisposeAsync()
+    {
+        await _server.DisposeAsync();
+        _folder.Dispose();
+    }
+
+    private static Grpc.Core.Metadata Bearer(string key) => new() { { "authorization", "Bearer " + key } };
+
+    [Fact]
+    public async Task A_client_stream_of_outcome_messages_gets_one_answer_counting_them_all()
+    {
+        var scoring = new Scorer.Transport.V1.Scoring.ScoringClient(_server.Channel);
+        var request = new Scorer.Transport.V1.ScoreRequest { Model = "pima" };
+        for (var i = 0; i < 4; i++)
+        {
+            request.Rows.Add(Google.Protobuf.WellKnownTypes.Struct.Parser.ParseJson($"{{\"npreg\":{i},\"glu\":120,\"bmi\":31.5,\"ped\":0.4,\"age\":35}}"));
+        }
+
+        var scored = await scoring.ScoreAsync(request, Bearer("score-key-0123456789"));
+        var store = _server.Service<IScorerStore>();
+        Assert.True(await Files.EventuallyAsync(async () => await store.CountPredictionsAsync("pima") == 4, TimeSpan.FromSeconds(10)));
+
+        var outcomes = new Scorer.Transport.V1.Outcomes.OutcomesClient(_server.Channel);
+        using var call = outcomes.RecordOutcomesStream(Bearer("feedback-key-0123456789"));
+        foreach (var pair in scored.Results.Chunk(2))
+        {
+            var message = new Scorer.Transport.V1.RecordOutcomesRequest { Model = "pima" };
+            message.Outcomes.AddRange(pair.Select((r, i) => new Scorer.Transport.V1.OutcomeEntry { Id = r.Id, Outcome = i }));
+            await call.RequestStream.WriteAsync(message);
+        }
+
+        await call.RequestStream.CompleteAsync();
+        var answer = await call;
+        Assert.Equal(4, answer.Accepted);
+        Assert.Equal(4, (await store.GetLabelledAsync("pima", null, DateTimeOffset.UnixEpoch, DateTimeOffset.UtcNow.AddHours(1))).Count);
+    }
+
+    [Fact]
+    public async Task Outcomes_need_the_feedback_role_and_reports_the_score_role()
+    {
+        var outcomes = new Scorer.Transport.V1.Outcomes.OutcomesClient(_server.Channel);
+        var message = new Scorer.Transport.V1.RecordOutcomesRequest { Model = "pima", Outcomes = { new Scorer.Transport.V1.OutcomeEntry { Key = "k", Outcome = 1 } } };
+        var refused = await Assert.ThrowsAsync<Grpc.Core.RpcException>(async () => await outcomes.RecordOutcomesAsync(message, Bearer("score-key-0123456789")));
+        Assert.Equal(Grpc.Core.StatusCode.PermissionDenied, refused.StatusCode);
+        Assert.Equal(["k"], (await outcomes.RecordOutcomesAsync(message, Bearer("feedback-key-0123456789"))).Unknown);
+
+        var monitor = new Scorer.Transport.V1.Monitor.MonitorClient(_server.Channel);
+        var unauthenticated = await Assert.ThrowsAsync<Grpc.Core.RpcException>(async () =>
+            await monitor.GetReportAsync(new Scorer.Transport.V1.MonitorRequest { Model = "pima" }));
+        Assert.Equal(Grpc.Core.StatusCode.Unauthenticated, unauthenticated.StatusCode);
+        var report = await monitor.GetReportAsync(new Scorer.Transport.V1.MonitorRequest { Model = "pima" }, Bearer("score-key-0123456789"));
+        Assert.Equal("7d", report.Window);
+
+        // The export of labelled rows is for admins only.
+        using var export = new HttpRequestMessage(HttpMethod.Get, "/v1/models/pima/labelled");
+        export.Headers.Authorization = new System.Net.Http.Headers.AuthenticationHeaderValue("Bearer", "score-key-0123456789");
+        using var response = await _server.Http.SendAsync(export);
+        Assert.Equal(HttpStatusCode.Forbidden, response.StatusCode);
+    }
+}

@@ -445,7 +445,7 @@ internal static class LabelledCsv
                 continue;
             }
 
-            var where = $"data row {row} (record {csv.RecordNumber} of the file, counting the header)";
+            var where = $"data row {row} (CSV record {csv.RecordNumber}, the header being record 1)";
             double value = double.NaN;
             if (!CsvCells.TryParseNumber(valueCell, out value))
             {
