@@ -26,6 +26,19 @@ public static class Program
             return;
         }
 
+        if (args.Length > 3 && args[0] == "--outcomes")
+        {
+            var ci = System.Globalization.CultureInfo.InvariantCulture;
+            OutcomeIngestion.RunAsync(args[1], int.Parse(args[2], ci), int.Parse(args[3], ci)).GetAwaiter().GetResult();
+            return;
+        }
+
+        if (args.Length > 1 && args[0] == "--report")
+        {
+            ReportSpeed.RunAsync(int.Parse(args[1], System.Globalization.CultureInfo.InvariantCulture)).GetAwaiter().GetResult();
+            return;
+        }
+
         if (args.Length > 0 && args[0] == "--quick")
         {
             QuickRun.Run(args.Length > 1 ? int.Parse(args[1], System.Globalization.CultureInfo.InvariantCulture) : 7);

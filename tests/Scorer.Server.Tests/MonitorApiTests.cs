@@ -219,6 +219,48 @@ public sealed class MonitorApiTests : IAsyncLifetime
         Assert.Equal("newVersion", error.GetProperty("details")[0].GetProperty("fieldViolations")[0].GetProperty("field").GetString());
     }
 
+    [Fact]
+    public async Task A_shadow_version_is_compared_with_the_live_one_on_the_same_labelled_rows()
+    {
+        // A first round of Pima.te gives the outcomes a recalibrated candidate is fitted on; it loads as shadow.
+        await ScorePimaAsync();
+        await SendAsync(HttpMethod.Post, "/v1/models/pima/outcomes", PimaOutcomes());
+        var (_, models) = await SendAsync(HttpMethod.Get, "/v1/models");
+        var live = models.GetProperty("models")[0].GetProperty("live").GetString()!;
+        var (status, _) = await SendAsync(HttpMethod.Post, $"/v1/models/pima/versions/{live}/recalibrate",
+            "{\"window\":\"all\",\"kind\":\"intercept-and-slope\",\"newVersion\":\"candidate\"}");
+        Assert.Equal(HttpStatusCode.OK, status);
+
+        // A second round of the same rows (keys round2-i) is scored by both; outcomes by id label the shadow rows too.
+        var lines = File.ReadAllLines(Files.Reference("pima.rows.csv"));
+        var header = lines[0].Split(',').Select(h => h.Trim('"')).ToArray();
+        var rows = lines.Skip(1).Select(l => "{" + string.Join(",", l.Split(',').Select((v, i) => $"\"{header[i]}\":{v}")) + "}").ToList();
+        var (_, scored) = await SendAsync(HttpMethod.Post, "/v1/models/pima/score", "{\"rows\":[" + string.Join(",", rows) + "]}");
+        var ids = scored.GetProperty("results").EnumerateArray().Select(r => r.GetProperty("id").GetString()!).ToList();
+        var store = _server.Service<IScorerStore>();
+        Assert.True(await Files.EventuallyAsync(async () => await store.CountPredictionsAsync("pima", "candidate") == rows.Count, TimeSpan.FromSeconds(10)));
+        var y = File.ReadAllLines(Files.Reference("pima.outcomes.csv")).Skip(1).ToList();
+        var (_, receipt) = await SendAsync(HttpMethod.Post, "/v1/models/pima/outcomes",
+            "{\"outcomes\":[" + string.Join(",", ids.Select((id, i) => $"{{\"id\":\"{id}\",\"outcome\":{y[i]}}}")) + "]}");
+        Assert.Equal(rows.Count, receipt.GetProperty("accepted").GetInt32());
+
+        var (_, report) = await SendAsync(HttpMethod.Get, "/v1/models/pima/monitor?window=all");
+        var shadow = Assert.Single(report.GetProperty("shadows").EnumerateArray());
+        Assert.Equal("candidate", shadow.GetProperty("version").GetString());
+        Assert.Equal(rows.Count, shadow.GetProperty("paired").GetInt32());
+
+        // The live side's mean log loss is sklearn's log_loss on Pima.te (tests/reference/calibration, pima-logit).
+        using var expectedDoc = JsonDocument.Parse(File.ReadAllText(Scorer.Testing.TestRepository.CalibrationFile("pima-logit.json")));
+        Close(expectedDoc.RootElement, "log_loss", shadow.GetProperty("logLoss").GetProperty("live"));
+
+        // The candidate is the maximum-likelihood recalibration on these very outcomes, so its log loss cannot be higher;
+        // a + b·eta with b > 0 keeps the ranking, so the paired AUC difference is exactly 0.
+        Assert.True(shadow.GetProperty("logLoss").GetProperty("difference").GetDouble() >= 0);
+        Assert.Equal(0, shadow.GetProperty("auc").GetProperty("difference").GetDouble());
+        Assert.Contains(shadow.GetProperty("recommendation").GetString(), new[] { "promote", "undecided" });
+        Assert.False(string.IsNullOrEmpty(shadow.GetProperty("reason").GetString()));
+    }
+
     [Theory]
     [InlineData("{\"outcomes\":[{\"key\":\"te-0\",\"outcome\":2}]}", "outcomes[0].outcome")]
     [InlineData("{\"outcomes\":[{\"outcome\":1}]}", "outcomes[0]")]

@@ -92,25 +92,41 @@ internal static class RecalibrateCommand
             stderr.WriteLine($"{Name}: {data.Dropped} row(s) with a missing eta or outcome left out (--drop-missing)");
         }
 
-        RecalibrationChoice choice;
+        RecalibrationFit fit;
         try
         {
-            choice = Recalibrator.Choose(data.Values, data.Outcomes, model.Link, alpha);
+            var choice = Recalibrator.Choose(data.Values, data.Outcomes, model.Link, alpha);
+            Print(model, o, choice, stdout);
+            var chosen = kind ?? choice.Recommended;
+            if (chosen is null)
+            {
+                stdout.WriteLine($"--kind auto: the closed test recommends keeping {model.Model} {model.Version} as it is; nothing written");
+                return 0;
+            }
+
+            fit = chosen == RecalibrationKind.InTheLarge ? choice.InTheLarge : choice.InterceptAndSlope;
         }
         catch (Exception ex) when (ex is ArgumentException or InvalidOperationException)
         {
-            throw new CommandException(CommandException.DataError, $"the recalibration cannot be fitted on {o.Input}: {ex.Message}");
-        }
+            if (kind != RecalibrationKind.InTheLarge)
+            {
+                throw new CommandException(CommandException.DataError, $"the recalibration cannot be fitted on {o.Input}: {ex.Message}");
+            }
 
-        Print(model, o, choice, stdout);
-        var chosen = kind ?? choice.Recommended;
-        if (chosen is null)
-        {
-            stdout.WriteLine($"--kind auto: the closed test recommends keeping {model.Model} {model.Version} as it is; nothing written");
-            return 0;
-        }
+            // The slope cannot be fitted (a constant or separating eta), so there is no closed test; in the large may still be.
+            try
+            {
+                fit = Recalibrator.Fit(data.Values, data.Outcomes, model.Link, RecalibrationKind.InTheLarge);
+            }
+            catch (Exception inner) when (inner is ArgumentException or InvalidOperationException)
+            {
+                throw new CommandException(CommandException.DataError, $"the recalibration cannot be fitted on {o.Input}: {inner.Message}");
+            }
 
-        var fit = chosen == RecalibrationKind.InTheLarge ? choice.InTheLarge : choice.InterceptAndSlope;
+            stdout.WriteLine($"no closed test: {ex.Message}");
+            stdout.WriteLine(string.Create(CultureInfo.InvariantCulture,
+                $"in the large: a = {fit.Intercept:G6} (se {fit.InterceptSe:G6}), log-likelihood {fit.LogLikelihood:G6}, {fit.Rows} rows, {fit.Events} events"));
+        }
         ModelDocument recalibrated;
         try
         {
@@ -157,7 +173,7 @@ internal static class RecalibrateCommand
             F(slope.Slope).PadLeft(14) + F(slope.SlopeSe).PadLeft(12) + F(slope.Covariance).PadLeft(14));
         w.WriteLine($"closed test (Vergouwe et al. 2017) at alpha {F(choice.Alpha)}:");
         void Test(string label, LikelihoodRatioTest t) =>
-            w.WriteLine("  " + label.PadRight(38) + $"LR {F(t.Statistic)} on {t.Df} df, p {CalibrationCommand.P(t.P)}");
+            w.WriteLine("  " + label.PadRight(44) + $"LR {F(t.Statistic)} on {t.Df} df, p {CalibrationCommand.P(t.P)}");
         Test("intercept and slope vs keep", choice.InterceptAndSlopeVsKeep);
         Test("intercept and slope vs in the large", choice.InterceptAndSlopeVsInTheLarge);
         Test("in the large vs keep (not in the decision)", choice.InTheLargeVsKeep);

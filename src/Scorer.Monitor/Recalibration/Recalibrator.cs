@@ -128,7 +128,7 @@ public static partial class Recalibrator
         if (!(slopeVsKeep.P < alpha))
         {
             recommended = null;
-            reason = $"intercept-and-slope against keep: LR {Text(slopeVsKeep.Statistic)} on 2 df, p {Text(slopeVsKeep.P)} ≥ {level}: " +
+            reason = $"intercept-and-slope against keep: LR {Text(slopeVsKeep.Statistic)} on 2 df, p {Text(slopeVsKeep.P)} >= {level}: " +
                 "no evidence that the deployed model is miscalibrated; keep it";
         }
         else if (slopeVsLarge.P < alpha)
@@ -141,7 +141,7 @@ public static partial class Recalibrator
         {
             recommended = RecalibrationKind.InTheLarge;
             reason = $"intercept-and-slope against keep: p {Text(slopeVsKeep.P)} < {level}; against in the large: LR " +
-                $"{Text(slopeVsLarge.Statistic)} on 1 df, p {Text(slopeVsLarge.P)} ≥ {level}: re-estimating the intercept is enough";
+                $"{Text(slopeVsLarge.Statistic)} on 1 df, p {Text(slopeVsLarge.P)} >= {level}: re-estimating the intercept is enough";
         }
 
         return new RecalibrationChoice(keep, inTheLarge, slope, largeVsKeep, slopeVsLarge, slopeVsKeep, alpha, recommended, reason);

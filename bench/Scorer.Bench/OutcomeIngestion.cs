@@ -1,0 +1,839 @@
+using System.Diagnostics;
+using System.Globalization;
+using Microsoft.Data.Sqlite;
+using Scorer.Store;
+using Scorer.Store.Sqlite;
+using SQLitePCL;
+
+namespace Scorer.Bench;
+
+/// <summary>
+/// `--outcomes FILE PREDICTIONS BATCH`: outcome ingestion into the SQLite store. Writes PREDICTIONS invented predictions
+/// (seeded generator; each with the key "WO-n"), then records an outcome for every one of them with
+/// <see cref="IScorerStore.RecordOutcomesAsync"/> in batches of BATCH, in a seeded shuffled order (outcomes do not come
+/// back in the order the rows were scored): once by id into FILE, once by key into a second fresh store beside it.
+/// Prints the median batch rate and the overall rate of each mode.
+/// </summary>
+/// <remarks>
+/// Then, on copies of the database as it was before any outcome (no store involved, raw SQL over Microsoft.Data.Sqlite
+/// and SQLitePCLRaw), the store's per-report statements taken apart, and the proposed replacements, each over the same
+/// first reports of the same order, in interleaved rounds on fresh copies: the same-run baseline is the replica of
+/// the store's own SQL. FILE and its siblings (FILE.bykey, FILE.pristine, FILE.exp) are deleted and recreated.
+/// </remarks>
+internal static class OutcomeIngestion
+{
+    internal const string Model = "pump-bearing-failure";
+    internal const string Version = "2026.11.1";
+    private const int Rounds = 3;
+    private const int ExperimentBatches = 20;
+
+    internal static readonly DateTimeOffset Start = new(2026, 12, 2, 0, 0, 0, TimeSpan.Zero);
+    internal static readonly DateTimeOffset RecordedAt = new(2026, 12, 9, 0, 0, 0, TimeSpan.Zero);
+
+    public static async Task RunAsync(string file, int predictions, int batchSize)
+    {
+        ArgumentOutOfRangeException.ThrowIfLessThan(predictions, 1);
+        ArgumentOutOfRangeException.ThrowIfLessThan(batchSize, 1);
+        file = Path.GetFullPath(file);
+        var byKeyFile = Sibling(file, "bykey");
+        var pristine = Sibling(file, "pristine");
+        var scratch = Sibling(file, "exp");
+        var data = new InventedLog(predictions, 20261203);
+        Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
+            $"{predictions:N0} invented predictions, {data.Events:N0} with outcome 1; outcomes reported in batches of {batchSize:N0}, shuffled order, ConflictPolicy.KeepFirst"));
+
+        // 1. Through the store: by id, then by key on a second fresh store.
+        await PrepareAsync(file, data);
+        CopyDatabase(file, pristine);
+        await IngestAsync(file, data, batchSize, byKey: false);
+        await PrepareAsync(byKeyFile, data);
+        await IngestAsync(byKeyFile, data, batchSize, byKey: true);
+
+        // 2. Where the time goes, and what a change would gain: raw SQL on copies of the database before any outcome.
+        Experiments(pristine, scratch, data, batchSize);
+
+        DeleteDatabase(pristine);
+        DeleteDatabase(scratch);
+    }
+
+    internal static async Task PrepareAsync(string file, InventedLog data)
+    {
+        DeleteDatabase(file);
+        var timer = Stopwatch.StartNew();
+        await using (var store = SqliteScorerStore.ForFile(file))
+        {
+            await store.MigrateAsync();
+            const int writeBatch = 10_000;
+            var batch = new List<PredictionRecord>(writeBatch);
+            for (var from = 0; from < data.Count; from += writeBatch)
+            {
+                batch.Clear();
+                for (var i = from; i < Math.Min(data.Count, from + writeBatch); i++)
+                {
+                    batch.Add(data.Record(i));
+                }
+
+                await store.WritePredictionsAsync(batch);
+            }
+        }
+
+        Checkpoint(file);
+        Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
+            $"  setup: {data.Count:N0} predictions written to {Path.GetFileName(file)} in {timer.Elapsed.TotalSeconds:F1} s"));
+    }
+
+    private static async Task IngestAsync(string file, InventedLog data, int batchSize, bool byKey)
+    {
+        await using var store = SqliteScorerStore.ForFile(file);
+        var rates = new List<double>();
+        var reports = new List<OutcomeReport>(batchSize);
+        int accepted = 0, duplicates = 0, unknown = 0, conflicts = 0;
+        var total = Stopwatch.StartNew();
+        for (var from = 0; from < data.Count; from += batchSize)
+        {
+            reports.Clear();
+            for (var k = from; k < Math.Min(data.Count, from + batchSize); k++)
+            {
+                var i = data.Order[k];
+                reports.Add(byKey ? new OutcomeReport(null, data.Keys[i], data.Y[i]) : new OutcomeReport(data.Ids[i], null, data.Y[i]));
+            }
+
+            var timer = Stopwatch.StartNew();
+            var receipt = await store.RecordOutcomesAsync(Model, reports, ConflictPolicy.KeepFirst, RecordedAt);
+            rates.Add(reports.Count / timer.Elapsed.TotalSeconds);
+            accepted += receipt.Accepted;
+            duplicates += receipt.Duplicates;
+            unknown += receipt.Unknown.Count;
+            conflicts += receipt.Conflicts.Count;
+        }
+
+        var overall = data.Count / total.Elapsed.TotalSeconds;
+        var firstTwenty = rates.Take(ExperimentBatches).ToList();
+        Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
+            $"  store, by {(byKey ? "key" : "id ")}: median batch {Median(rates),8:N0} outcomes/s (p10 {Quantile(rates, 0.1):N0}, p90 {Quantile(rates, 0.9):N0}; first {firstTwenty.Count} batches {Median(firstTwenty):N0}), overall {overall:N0} outcomes/s; receipts: {accepted:N0} accepted, {duplicates} duplicates, {unknown} unknown, {conflicts} conflicts"));
+    }
+
+    // ---------------------------------------------------------------------------------------------------------------
+    // Experiments: raw SQL on copies of the database before any outcome.
+    // ---------------------------------------------------------------------------------------------------------------
+
+    private delegate int BatchBody(SqliteConnection connection, SqliteTransaction transaction, InventedLog data, int from, int count);
+
+    private static void Experiments(string pristine, string scratch, InventedLog data, int batchSize)
+    {
+        var reports = Math.Min(data.Count, ExperimentBatches * batchSize);
+        var variants = new (string Name, BatchBody Body)[]
+        {
+            ("A  by id: replica of the store's SQL (find with OR, existing?, insert)", ReplicaById),
+            ("B  by id: find with (id = $id OR live_id = $id) only", (c, t, d, f, n) => FindOnly(c, t, d, f, n, orLiveId: true)),
+            ("C  by id: find with id = $id only", (c, t, d, f, n) => FindOnly(c, t, d, f, n, orLiveId: false)),
+            ("D  by id: find with OR + existing-outcome select", FindAndExisting),
+            ("I  insert only (targets known, plain INSERT)", InsertOnly),
+            ("E  by id: proposed, SqliteCommand: find id, find shadows, INSERT ON CONFLICT", ProposedById),
+            ("F  by id: one INSERT..SELECT ON CONFLICT per report (+ shadows)", InsertSelectById),
+            ("G  by id: proposed E on raw prepared statements", RawProposedById),
+            ("K  by key: replica of the store's SQL", ReplicaByKey),
+            ("L  by key: proposed, SqliteCommand: find, INSERT ON CONFLICT", ProposedByKey),
+            ("M  by key: proposed L on raw prepared statements", RawProposedByKey),
+        };
+
+        Console.WriteLine();
+        Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
+            $"Experiments (raw SQL on a copy of the database before any outcome; first {reports:N0} reports of the same order, batches of {batchSize:N0}, {Rounds} rounds interleaved, fresh copy each):"));
+        var samples = variants.Select(_ => new List<double>()).ToArray();
+        var roundMedians = variants.Select(_ => new List<double>()).ToArray();
+        for (var round = 0; round < Rounds; round++)
+        {
+            for (var v = 0; v < variants.Length; v++)
+            {
+                CopyDatabase(pristine, scratch);
+                var rates = RunVariant(scratch, data, batchSize, reports, variants[v].Body, out var accepted);
+                if (accepted != reports && !variants[v].Name.Contains("only", StringComparison.Ordinal))
+                {
+                    throw new InvalidOperationException($"{variants[v].Name} accepted {accepted} of {reports} reports.");
+                }
+
+                samples[v].AddRange(rates);
+                roundMedians[v].Add(Median(rates));
+            }
+        }
+
+        var baselineById = Median(samples[0]);
+        var baselineByKey = Median(samples[8]);
+        Console.WriteLine("| variant | median batch outcomes/s | µs/report | round medians | vs store replica |");
+        Console.WriteLine("| --- | ---: | ---: | --- | ---: |");
+        for (var v = 0; v < variants.Length; v++)
+        {
+            var median = Median(samples[v]);
+            var baseline = v >= 8 ? baselineByKey : baselineById;
+            Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
+                $"| {variants[v].Name} | {median:N0} | {1e6 / median:F1} | {string.Join(" / ", roundMedians[v].Select(r => r.ToString("N0", CultureInfo.InvariantCulture)))} | {median / baseline:F2}× |"));
+        }
+
+        QueryPlans(pristine);
+    }
+
+    private static List<double> RunVariant(string file, InventedLog data, int batchSize, int reports, BatchBody body, out int accepted)
+    {
+        var rates = new List<double>();
+        accepted = 0;
+        using var connection = Open(file);
+        for (var from = 0; from < reports; from += batchSize)
+        {
+            var count = Math.Min(batchSize, reports - from);
+            var timer = Stopwatch.StartNew();
+            using (var transaction = connection.BeginTransaction(deferred: false))
+            {
+                accepted += body(connection, transaction, data, from, count);
+                transaction.Commit();
+            }
+
+            rates.Add(count / timer.Elapsed.TotalSeconds);
+        }
+
+        return rates;
+    }
+
+    private const string TargetColumns = "id, version, stage, scored_at, eta, probability, live_id";
+
+    private const string InsertSql =
+        "INSERT INTO outcomes (prediction_id, model, version, stage, scored_at, eta, probability, outcome, observed_at, recorded_at, implicit, live_id) "
+        + "VALUES ($id, $model, $version, $stage, $scoredAt, $eta, $p, $outcome, $observedAt, $now, 0, $liveId)";
+
+    private readonly record struct Target(byte[] Id, string Version, string Stage, long ScoredAt, double Eta, double P, byte[]? LiveId);
+
+    /// <summary>The outcome insert of the store, its parameters bound once per batch as the store does.</summary>
+    private sealed class InsertCommand : IDisposable
+    {
+        private readonly SqliteCommand _command;
+        private readonly SqliteParameter _id, _version, _stage, _scoredAt, _eta, _p, _outcome, _observed, _liveId;
+
+        public InsertCommand(SqliteConnection connection, SqliteTransaction transaction, string suffix)
+        {
+            _command = Command(connection, transaction, InsertSql + suffix + ";");
+            _id = _command.Parameters.Add("$id", SqliteType.Blob);
+            _command.Parameters.AddWithValue("$model", Model);
+            _version = _command.Parameters.Add("$version", SqliteType.Text);
+            _stage = _command.Parameters.Add("$stage", SqliteType.Text);
+            _scoredAt = _command.Parameters.Add("$scoredAt", SqliteType.Integer);
+            _eta = _command.Parameters.Add("$eta", SqliteType.Real);
+            _p = _command.Parameters.Add("$p", SqliteType.Real);
+            _outcome = _command.Parameters.Add("$outcome", SqliteType.Integer);
+            _observed = _command.Parameters.Add("$observedAt", SqliteType.Integer);
+            _liveId = _command.Parameters.Add("$liveId", SqliteType.Blob);
+            _command.Parameters.AddWithValue("$now", StoreMicroseconds(RecordedAt));
+        }
+
+        public int Run(Target t, byte outcome)
+        {
+            _id.Value = t.Id;
+            _version.Value = t.Version;
+            _stage.Value = t.Stage;
+            _scoredAt.Value = t.ScoredAt;
+            _eta.Value = t.Eta;
+            _p.Value = t.P;
+            _outcome.Value = (long)outcome;
+            _observed.Value = DBNull.Value;
+            _liveId.Value = t.LiveId is null ? DBNull.Value : t.LiveId;
+            return _command.ExecuteNonQuery();
+        }
+
+        public void Dispose() => _command.Dispose();
+    }
+
+    private static void ReadTargets(SqliteCommand find, List<Target> targets)
+    {
+        targets.Clear();
+        using var reader = find.ExecuteReader();
+        while (reader.Read())
+        {
+            targets.Add(new Target(reader.GetFieldValue<byte[]>(0), reader.GetString(1), reader.GetString(2), reader.GetInt64(3), reader.GetDouble(4),
+                reader.GetDouble(5), reader.IsDBNull(6) ? null : reader.GetFieldValue<byte[]>(6)));
+        }
+    }
+
+    private static bool Existing(SqliteCommand existing, out long recorded)
+    {
+        using var reader = existing.ExecuteReader();
+        if (reader.Read())
+        {
+            recorded = reader.GetInt64(0);
+            return true;
+        }
+
+        recorded = 0;
+        return false;
+    }
+
+    /// <summary>A: the store's statements and per-report logic (KeepFirst, no conflicts arise here).</summary>
+    private static int ReplicaById(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count)
+    {
+        using var find = Command(c, t, $"SELECT {TargetColumns} FROM predictions WHERE model = $model AND (id = $id OR live_id = $id);");
+        find.Parameters.AddWithValue("$model", Model);
+        var id = find.Parameters.Add("$id", SqliteType.Blob);
+        return ReplicaLoop(c, t, d, from, count, find, k => id.Value = d.IdBytes[k]);
+    }
+
+    /// <summary>K: the store's key path.</summary>
+    private static int ReplicaByKey(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count)
+    {
+        using var find = Command(c, t, $"SELECT {TargetColumns} FROM predictions WHERE model = $model AND \"key\" = $key;");
+        find.Parameters.AddWithValue("$model", Model);
+        var key = find.Parameters.Add("$key", SqliteType.Text);
+        return ReplicaLoop(c, t, d, from, count, find, k => key.Value = d.Keys[k]);
+    }
+
+    private static int ReplicaLoop(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count, SqliteCommand find, Action<int> bind)
+    {
+        using var existing = Command(c, t, "SELECT outcome, implicit FROM outcomes WHERE prediction_id = $id;");
+        var existingId = existing.Parameters.Add("$id", SqliteType.Blob);
+        using var insert = new InsertCommand(c, t, "");
+        var targets = new List<Target>();
+        var accepted = 0;
+        for (var k = from; k < from + count; k++)
+        {
+            var i = d.Order[k];
+            bind(i);
+            ReadTargets(find, targets);
+            var labelled = false;
+            foreach (var target in targets)
+            {
+                existingId.Value = target.Id;
+                if (!Existing(existing, out _))
+                {
+                    insert.Run(target, d.Y[i]);
+                    labelled = true;
+                }
+            }
+
+            accepted += labelled ? 1 : 0;
+        }
+
+        return accepted;
+    }
+
+    /// <summary>B, C: the find alone (nothing written; returns the targets found).</summary>
+    private static int FindOnly(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count, bool orLiveId)
+    {
+        using var find = Command(c, t,
+            $"SELECT {TargetColumns} FROM predictions WHERE model = $model AND {(orLiveId ? "(id = $id OR live_id = $id)" : "id = $id")};");
+        find.Parameters.AddWithValue("$model", Model);
+        var id = find.Parameters.Add("$id", SqliteType.Blob);
+        var targets = new List<Target>();
+        var found = 0;
+        for (var k = from; k < from + count; k++)
+        {
+            id.Value = d.IdBytes[d.Order[k]];
+            ReadTargets(find, targets);
+            found += targets.Count;
+        }
+
+        return found;
+    }
+
+    /// <summary>D: the find and the existing-outcome select, no insert.</summary>
+    private static int FindAndExisting(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count)
+    {
+        using var find = Command(c, t, $"SELECT {TargetColumns} FROM predictions WHERE model = $model AND (id = $id OR live_id = $id);");
+        find.Parameters.AddWithValue("$model", Model);
+        var id = find.Parameters.Add("$id", SqliteType.Blob);
+        using var existing = Command(c, t, "SELECT outcome, implicit FROM outcomes WHERE prediction_id = $id;");
+        var existingId = existing.Parameters.Add("$id", SqliteType.Blob);
+        var targets = new List<Target>();
+        var found = 0;
+        for (var k = from; k < from + count; k++)
+        {
+            id.Value = d.IdBytes[d.Order[k]];
+            ReadTargets(find, targets);
+            foreach (var target in targets)
+            {
+                existingId.Value = target.Id;
+                found += Existing(existing, out _) ? 0 : 1;
+            }
+        }
+
+        return found;
+    }
+
+    /// <summary>I: the insert alone, with the target's values taken from memory (the b-tree writes and the statement).</summary>
+    private static int InsertOnly(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count)
+    {
+        using var insert = new InsertCommand(c, t, "");
+        var inserted = 0;
+        for (var k = from; k < from + count; k++)
+        {
+            var i = d.Order[k];
+            inserted += insert.Run(new Target(d.IdBytes[i], Version, "live", d.ScoredAtUs[i], d.Eta[i], d.P[i], null), d.Y[i]);
+        }
+
+        return inserted;
+    }
+
+    /// <summary>
+    /// E: the proposal on SqliteCommand. Find by id alone (one primary-key seek) and the paired shadows by live_id (one
+    /// partial-index seek, usually empty) instead of the OR; insert with ON CONFLICT DO NOTHING and read the recorded
+    /// outcome only when nothing was inserted (the duplicate or conflict path), instead of a select before every insert.
+    /// </summary>
+    private static int ProposedById(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count)
+    {
+        using var find = Command(c, t, $"SELECT {TargetColumns} FROM predictions WHERE id = $id AND model = $model;");
+        find.Parameters.AddWithValue("$model", Model);
+        var id = find.Parameters.Add("$id", SqliteType.Blob);
+        using var shadows = Command(c, t, $"SELECT {TargetColumns} FROM predictions WHERE live_id = $id AND model = $model;");
+        shadows.Parameters.AddWithValue("$model", Model);
+        var shadowId = shadows.Parameters.Add("$id", SqliteType.Blob);
+        using var existing = Command(c, t, "SELECT outcome, implicit FROM outcomes WHERE prediction_id = $id;");
+        var existingId = existing.Parameters.Add("$id", SqliteType.Blob);
+        using var insert = new InsertCommand(c, t, " ON CONFLICT (prediction_id) DO NOTHING");
+        var targets = new List<Target>();
+        var shadowTargets = new List<Target>();
+        var accepted = 0;
+        for (var k = from; k < from + count; k++)
+        {
+            var i = d.Order[k];
+            id.Value = d.IdBytes[i];
+            shadowId.Value = d.IdBytes[i];
+            ReadTargets(find, targets);
+            ReadTargets(shadows, shadowTargets);
+            targets.AddRange(shadowTargets);
+            var labelled = false;
+            foreach (var target in targets)
+            {
+                if (insert.Run(target, d.Y[i]) == 1)
+                {
+                    labelled = true;
+                }
+                else
+                {
+                    existingId.Value = target.Id;
+                    _ = Existing(existing, out _); // duplicate or conflict: compared with the report as the store does
+                }
+            }
+
+            accepted += labelled ? 1 : 0;
+        }
+
+        return accepted;
+    }
+
+    /// <summary>
+    /// F: the find folded into the insert: INSERT..SELECT from the prediction by id, ON CONFLICT DO NOTHING, and one more
+    /// for its shadows. (The changes count says whether it labelled; a report that labelled nothing then needs the
+    /// find and the existing select to tell unknown from duplicate from conflict. An upper bound for one statement per report.)
+    /// </summary>
+    private static int InsertSelectById(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count)
+    {
+        const string select =
+            "INSERT INTO outcomes (prediction_id, model, version, stage, scored_at, eta, probability, outcome, observed_at, recorded_at, implicit, live_id) "
+            + "SELECT id, model, version, stage, scored_at, eta, probability, $outcome, NULL, $now, 0, live_id FROM predictions ";
+        using var byId = Command(c, t, select + "WHERE id = $id AND model = $model ON CONFLICT (prediction_id) DO NOTHING;");
+        using var byLive = Command(c, t, select + "WHERE live_id = $id AND model = $model ON CONFLICT (prediction_id) DO NOTHING;");
+        var parameters = new[] { byId, byLive }.Select(command =>
+        {
+            command.Parameters.AddWithValue("$model", Model);
+            command.Parameters.AddWithValue("$now", StoreMicroseconds(RecordedAt));
+            return (Id: command.Parameters.Add("$id", SqliteType.Blob), Outcome: command.Parameters.Add("$outcome", SqliteType.Integer));
+        }).ToArray();
+        var accepted = 0;
+        for (var k = from; k < from + count; k++)
+        {
+            var i = d.Order[k];
+            foreach (var (idParameter, outcome) in parameters)
+            {
+                idParameter.Value = d.IdBytes[i];
+                outcome.Value = (long)d.Y[i];
+            }
+
+            var labelled = byId.ExecuteNonQuery() + byLive.ExecuteNonQuery();
+            accepted += labelled > 0 ? 1 : 0;
+        }
+
+        return accepted;
+    }
+
+    /// <summary>G: E on SQLitePCLRaw prepared statements (as PredictionBatchInsert writes the log).</summary>
+    private static int RawProposedById(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count)
+    {
+        using var raw = new RawStatements(c);
+        var accepted = 0;
+        for (var k = from; k < from + count; k++)
+        {
+            var i = d.Order[k];
+            var labelled = raw.LabelFrom(raw.FindById, d.IdBytes[i], d.Y[i]);
+            labelled |= raw.LabelFrom(raw.FindShadows, d.IdBytes[i], d.Y[i]);
+            accepted += labelled ? 1 : 0;
+        }
+
+        return accepted;
+    }
+
+    /// <summary>L: the key path with INSERT ON CONFLICT and the existing select only when nothing was inserted.</summary>
+    private static int ProposedByKey(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count)
+    {
+        using var find = Command(c, t, $"SELECT {TargetColumns} FROM predictions WHERE model = $model AND \"key\" = $key;");
+        find.Parameters.AddWithValue("$model", Model);
+        var key = find.Parameters.Add("$key", SqliteType.Text);
+        using var existing = Command(c, t, "SELECT outcome, implicit FROM outcomes WHERE prediction_id = $id;");
+        var existingId = existing.Parameters.Add("$id", SqliteType.Blob);
+        using var insert = new InsertCommand(c, t, " ON CONFLICT (prediction_id) DO NOTHING");
+        var targets = new List<Target>();
+        var accepted = 0;
+        for (var k = from; k < from + count; k++)
+        {
+            var i = d.Order[k];
+            key.Value = d.Keys[i];
+            ReadTargets(find, targets);
+            var labelled = false;
+            foreach (var target in targets)
+            {
+                if (insert.Run(target, d.Y[i]) == 1)
+                {
+                    labelled = true;
+                }
+                else
+                {
+                    existingId.Value = target.Id;
+                    _ = Existing(existing, out _);
+                }
+            }
+
+            accepted += labelled ? 1 : 0;
+        }
+
+        return accepted;
+    }
+
+    /// <summary>M: L on raw prepared statements.</summary>
+    private static int RawProposedByKey(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count)
+    {
+        using var raw = new RawStatements(c);
+        var accepted = 0;
+        for (var k = from; k < from + count; k++)
+        {
+            var i = d.Order[k];
+            accepted += raw.LabelFromKey(d.Keys[i], d.Y[i]) ? 1 : 0;
+        }
+
+        return accepted;
+    }
+
+    /// <summary>The proposed statements prepared once per batch on the connection's handle, rebound per report.</summary>
+    private sealed class RawStatements : IDisposable
+    {
+        private readonly sqlite3 _db;
+        private readonly sqlite3_stmt _findByKey;
+        private readonly sqlite3_stmt _existing;
+        private readonly sqlite3_stmt _insert;
+
+        public RawStatements(SqliteConnection connection)
+        {
+            _db = connection.Handle ?? throw new InvalidOperationException("The connection is not open.");
+            FindById = Prepare($"SELECT {TargetColumns} FROM predictions WHERE id = ?1 AND model = ?2;");
+            FindShadows = Prepare($"SELECT {TargetColumns} FROM predictions WHERE live_id = ?1 AND model = ?2;");
+            _findByKey = Prepare($"SELECT {TargetColumns} FROM predictions WHERE model = ?2 AND \"key\" = ?1;");
+            _existing = Prepare("SELECT outcome, implicit FROM outcomes WHERE prediction_id = ?1;");
+            _insert = Prepare(
+                "INSERT INTO outcomes (prediction_id, model, version, stage, scored_at, eta, probability, outcome, observed_at, recorded_at, implicit, live_id) "
+                + "VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, NULL, ?9, 0, ?10) ON CONFLICT (prediction_id) DO NOTHING;");
+            foreach (var statement in new[] { FindById, FindShadows, _findByKey })
+            {
+                Check(raw.sqlite3_bind_text16(statement, 2, Model.AsSpan()));
+            }
+
+            Check(raw.sqlite3_bind_text16(_insert, 2, Model.AsSpan()));
+            Check(raw.sqlite3_bind_int64(_insert, 9, StoreMicroseconds(RecordedAt)));
+        }
+
+        public sqlite3_stmt FindById { get; }
+
+        public sqlite3_stmt FindShadows { get; }
+
+        public bool LabelFrom(sqlite3_stmt find, ReadOnlySpan<byte> id, byte outcome)
+        {
+            Check(raw.sqlite3_bind_blob(find, 1, id));
+            return Label(find, outcome);
+        }
+
+        public bool LabelFromKey(string key, byte outcome)
+        {
+            Check(raw.sqlite3_bind_text16(_findByKey, 1, key.AsSpan()));
+            return Label(_findByKey, outcome);
+        }
+
+        /// <summary>Steps the find; each target row is copied straight into the insert's bindings (text and blobs copied by SQLite).</summary>
+        private bool Label(sqlite3_stmt find, byte outcome)
+        {
+            var labelled = false;
+            int rc;
+            while ((rc = raw.sqlite3_step(find)) == raw.SQLITE_ROW)
+            {
+                var id = raw.sqlite3_column_blob(find, 0);
+                Check(raw.sqlite3_bind_blob(_insert, 1, id));
+                Check(raw.sqlite3_bind_text(_insert, 3, raw.sqlite3_column_blob(find, 1)));
+                Check(raw.sqlite3_bind_text(_insert, 4, raw.sqlite3_column_blob(find, 2)));
+                Check(raw.sqlite3_bind_int64(_insert, 5, raw.sqlite3_column_int64(find, 3)));
+                Check(raw.sqlite3_bind_double(_insert, 6, raw.sqlite3_column_double(find, 4)));
+                Check(raw.sqlite3_bind_double(_insert, 7, raw.sqlite3_column_double(find, 5)));
+                Check(raw.sqlite3_bind_int64(_insert, 8, outcome));
+                Check(raw.sqlite3_column_type(find, 6) == raw.SQLITE_NULL
+                    ? raw.sqlite3_bind_null(_insert, 10)
+                    : raw.sqlite3_bind_blob(_insert, 10, raw.sqlite3_column_blob(find, 6)));
+                Step(_insert, raw.SQLITE_DONE);
+                Check(raw.sqlite3_reset(_insert));
+                if (raw.sqlite3_changes(_db) == 1)
+                {
+                    labelled = true;
+                }
+                else
+                {
+                    // Duplicate or conflict: the recorded outcome is read and compared, as the store does.
+                    Check(raw.sqlite3_bind_blob(_existing, 1, raw.sqlite3_column_blob(find, 0)));
+                    _ = raw.sqlite3_step(_existing);
+                    Check(raw.sqlite3_reset(_existing));
+                }
+            }
+
+            if (rc != raw.SQLITE_DONE)
+            {
+                SqliteException.ThrowExceptionForRC(rc, _db);
+            }
+
+            Check(raw.sqlite3_reset(find));
+            return labelled;
+        }
+
+        public void Dispose()
+        {
+            FindById.Dispose();
+            FindShadows.Dispose();
+            _findByKey.Dispose();
+            _existing.Dispose();
+            _insert.Dispose();
+        }
+
+        private sqlite3_stmt Prepare(string sql)
+        {
+            Check(raw.sqlite3_prepare_v2(_db, sql, out var statement));
+            return statement;
+        }
+
+        private void Step(sqlite3_stmt statement, int expected)
+        {
+            var rc = raw.sqlite3_step(statement);
+            if (rc != expected)
+            {
+                SqliteException.ThrowExceptionForRC(rc, _db);
+            }
+        }
+
+        private void Check(int rc)
+        {
+            if (rc != raw.SQLITE_OK)
+            {
+                SqliteException.ThrowExceptionForRC(rc, _db);
+            }
+        }
+    }
+
+    private static void QueryPlans(string file)
+    {
+        using var connection = Open(file);
+        Console.WriteLine();
+        Console.WriteLine("Query plans (bundled SQLite " + raw.sqlite3_libversion().utf8_to_string() + "):");
+        foreach (var sql in new[]
+        {
+            $"SELECT {TargetColumns} FROM predictions WHERE model = $model AND (id = $id OR live_id = $id)",
+            $"SELECT {TargetColumns} FROM predictions WHERE id = $id AND model = $model",
+            $"SELECT {TargetColumns} FROM predictions WHERE live_id = $id AND model = $model",
+            $"SELECT {TargetColumns} FROM predictions WHERE model = $model AND \"key\" = $key",
+        })
+        {
+            using var command = Command(connection, null, "EXPLAIN QUERY PLAN " + sql);
+            command.Parameters.AddWithValue("$model", Model);
+            command.Parameters.AddWithValue("$id", new byte[16]);
+            command.Parameters.AddWithValue("$key", "WO-1");
+            using var reader = command.ExecuteReader();
+            var steps = new List<string>();
+            while (reader.Read())
+            {
+                steps.Add(reader.GetString(3));
+            }
+
+            Console.WriteLine($"  {sql[(sql.IndexOf("WHERE", StringComparison.Ordinal) + 6)..]}: {string.Join("; ", steps)}");
+        }
+    }
+
+    // ---------------------------------------------------------------------------------------------------------------
+    // Files and helpers.
+    // ---------------------------------------------------------------------------------------------------------------
+
+    internal static string Sibling(string file, string tag) => Path.Combine(
+        Path.GetDirectoryName(file) ?? ".", Path.GetFileNameWithoutExtension(file) + "." + tag + Path.GetExtension(file));
+
+    internal static void DeleteDatabase(string file)
+    {
+        SqliteConnection.ClearAllPools();
+        foreach (var path in new[] { file, file + "-wal", file + "-shm", file + "-journal" })
+        {
+            File.Delete(path);
+        }
+    }
+
+    /// <summary>Folds the WAL into the file so that the file alone is the database, then copies it.</summary>
+    internal static void CopyDatabase(string from, string to)
+    {
+        Checkpoint(from);
+        DeleteDatabase(to);
+        File.Copy(from, to);
+    }
+
+    internal static void Checkpoint(string file)
+    {
+        SqliteConnection.ClearAllPools();
+        using (var connection = Open(file, pooling: false))
+        {
+            using var command = Command(connection, null, "PRAGMA wal_checkpoint(TRUNCATE);");
+            command.ExecuteNonQuery();
+        }
+
+        SqliteConnection.ClearAllPools();
+    }
+
+    /// <summary>A connection with the store's settings (WAL is the file's; synchronous, checkpoint interval, foreign keys).</summary>
+    internal static SqliteConnection Open(string file, bool pooling = true)
+    {
+        var connection = new SqliteConnection(new SqliteConnectionStringBuilder
+        {
+            DataSource = file,
+            Mode = SqliteOpenMode.ReadWrite,
+            Pooling = pooling,
+            ForeignKeys = true,
+        }.ToString());
+        connection.Open();
+        using var pragmas = Command(connection, null, "PRAGMA synchronous = NORMAL; PRAGMA wal_autocheckpoint = 16384; PRAGMA busy_timeout = 30000;");
+        pragmas.ExecuteNonQuery();
+        return connection;
+    }
+
+    internal static SqliteCommand Command(SqliteConnection connection, SqliteTransaction? transaction, string sql)
+    {
+        var command = connection.CreateCommand();
+        command.Transaction = transaction;
+        command.CommandText = sql;
+        return command;
+    }
+
+    internal static long StoreMicroseconds(DateTimeOffset time) => (time.UtcTicks - DateTimeOffset.UnixEpoch.UtcTicks) / 10;
+
+    internal static double Median(IReadOnlyCollection<double> xs) => Quantile(xs, 0.5);
+
+    internal static double Quantile(IReadOnlyCollection<double> xs, double q)
+    {
+        var s = xs.Order().ToArray();
+        if (s.Length == 0)
+        {
+            return double.NaN;
+        }
+
+        var h = (s.Length - 1) * q;
+        var lo = (int)Math.Floor(h);
+        var hi = Math.Min(lo + 1, s.Length - 1);
+        return s[lo] + ((h - lo) * (s[hi] - s[lo]));
+    }
+
+    /// <summary>
+    /// An invented prediction log from a seeded generator: η ~ N(−1.7, 1), p = logistic(η), y ~ Bernoulli(p), scoring
+    /// times spread evenly over seven days, ids of version-7 layout made from the time and seeded bytes, keys "WO-n".
+    /// </summary>
+    internal sealed class InventedLog
+    {
+        public InventedLog(int count, int seed)
+        {
+            Count = count;
+            Ids = new Guid[count];
+            IdBytes = new byte[count][];
+            Keys = new string[count];
+            Eta = new double[count];
+            P = new double[count];
+            Y = new byte[count];
+            ScoredAt = new DateTimeOffset[count];
+            ScoredAtUs = new long[count];
+            Vibration = new double[count];
+            Temperature = new double[count];
+            Hours = new int[count];
+            var random = new Random(seed);
+            var step = TimeSpan.FromDays(7).Ticks / count;
+            Span<byte> bytes = stackalloc byte[16];
+            for (var i = 0; i < count; i++)
+            {
+                var at = Start.AddTicks(i * step);
+                ScoredAt[i] = at;
+                ScoredAtUs[i] = StoreMicroseconds(at);
+                var ms = at.ToUnixTimeMilliseconds();
+                for (var b = 0; b < 6; b++)
+                {
+                    bytes[b] = (byte)(ms >> (8 * (5 - b)));
+                }
+
+                random.NextBytes(bytes[6..]);
+                bytes[6] = (byte)((bytes[6] & 0x0F) | 0x70);
+                bytes[8] = (byte)((bytes[8] & 0x3F) | 0x80);
+                Ids[i] = new Guid(bytes, bigEndian: true);
+                IdBytes[i] = bytes.ToArray();
+                Keys[i] = "WO-" + i.ToString(CultureInfo.InvariantCulture);
+                var eta = -1.7 + Normal(random);
+                Eta[i] = eta;
+                P[i] = 1.0 / (1.0 + Math.Exp(-eta));
+                Y[i] = random.NextDouble() < P[i] ? (byte)1 : (byte)0;
+                Events += Y[i];
+                Vibration[i] = 1 + (4 * random.NextDouble());
+                Temperature[i] = 50 + (20 * random.NextDouble());
+                Hours[i] = random.Next(0, 6000);
+            }
+
+            // The order outcomes come back in: a seeded shuffle.
+            Order = Enumerable.Range(0, count).ToArray();
+            random.Shuffle(Order);
+        }
+
+        public int Count { get; }
+
+        public int Events { get; }
+
+        public Guid[] Ids { get; }
+
+        public byte[][] IdBytes { get; }
+
+        public string[] Keys { get; }
+
+        public double[] Eta { get; }
+
+        public double[] P { get; }
+
+        public byte[] Y { get; }
+
+        public DateTimeOffset[] ScoredAt { get; }
+
+        public long[] ScoredAtUs { get; }
+
+        public double[] Vibration { get; }
+
+        public double[] Temperature { get; }
+
+        public int[] Hours { get; }
+
+        public int[] Order { get; }
+
+        /// <summary>The prediction as logged, its features (a pump snapshot, as in StoreWrites) as JSON.</summary>
+        public PredictionRecord Record(int i) => new(Ids[i], Model, Version, Stage.Live, ScoredAt[i], Keys[i], Eta[i], P[i], string.Create(CultureInfo.InvariantCulture,
+            $"{{\"vibration_rms\":{Vibration[i]:R},\"bearing_temp_c\":{Temperature[i]:R},\"hours_since_service\":{Hours[i]},\"site\":\"river\"}}"));
+
+        private static double Normal(Random random)
+        {
+            // Box–Muller; 1 − U keeps the logarithm's argument in (0, 1].
+            var u = 1.0 - random.NextDouble();
+            var v = random.NextDouble();
+            return Math.Sqrt(-2.0 * Math.Log(u)) * Math.Cos(2.0 * Math.PI * v);
+        }
+    }
+}
