@@ -25,7 +25,7 @@ internal static class OutcomeIngestion
     internal const string Model = "pump-bearing-failure";
     internal const string Version = "2026.11.1";
     private const int Rounds = 5;
-    private const int ExperimentBatches = 20;
+    private const int ExperimentBatches = 10;
 
     internal static readonly DateTimeOffset Start = new(2026, 12, 2, 0, 0, 0, TimeSpan.Zero);
     internal static readonly DateTimeOffset RecordedAt = new(2026, 12, 9, 0, 0, 0, TimeSpan.Zero);
@@ -127,24 +127,37 @@ internal static class OutcomeIngestion
     // Experiments: raw SQL on copies of the database before any outcome.
     // ---------------------------------------------------------------------------------------------------------------
 
-    private delegate int BatchBody(SqliteConnection connection, SqliteTransaction transaction, InventedLog data, int from, int count);
+    private delegate int BatchBody(SqliteConnection connection, SqliteTransaction transaction, InventedLog data, int[] batch);
+
+    private const string BigCache = "PRAGMA cache_size = -262144;"; // 256 MiB of page cache (SQLite's default is 2 MiB)
+    private const string Mmap = "PRAGMA mmap_size = 1073741824;"; // the database file read through a 1 GiB memory map
+
+    private sealed record Variant(string Name, BatchBody Body, bool ByKey, bool Sorted = false, string Pragmas = "");
 
     private static void Experiments(string pristine, string scratch, InventedLog data, int batchSize)
     {
         var reports = Math.Min(data.Count, ExperimentBatches * batchSize);
-        var variants = new (string Name, BatchBody Body)[]
+        var variants = new Variant[]
         {
-            ("A  by id: replica of the store's SQL (find with OR, existing?, insert)", ReplicaById),
-            ("B  by id: find with (id = $id OR live_id = $id) only", (c, t, d, f, n) => FindOnly(c, t, d, f, n, orLiveId: true)),
-            ("C  by id: find with id = $id only", (c, t, d, f, n) => FindOnly(c, t, d, f, n, orLiveId: false)),
-            ("D  by id: find with OR + existing-outcome select", FindAndExisting),
-            ("I  insert only (targets known, plain INSERT)", InsertOnly),
-            ("E  by id: proposed, SqliteCommand: find id, find shadows, INSERT ON CONFLICT", ProposedById),
-            ("F  by id: one INSERT..SELECT ON CONFLICT per report (+ shadows)", InsertSelectById),
-            ("G  by id: proposed E on raw prepared statements", RawProposedById),
-            ("K  by key: replica of the store's SQL", ReplicaByKey),
-            ("L  by key: proposed, SqliteCommand: find, INSERT ON CONFLICT", ProposedByKey),
-            ("M  by key: proposed L on raw prepared statements", RawProposedByKey),
+            new("A  by id: replica of the store (find with OR, existing-outcome select, insert)", ReplicaById, false),
+            new("B  by id: find with (id = $id OR live_id = $id) only", (c, t, d, b) => FindOnly(c, t, d, b, orLiveId: true), false),
+            new("C  by id: find with id = $id only", (c, t, d, b) => FindOnly(c, t, d, b, orLiveId: false), false),
+            new("D  by id: find with OR + existing-outcome select", FindAndExisting, false),
+            new("I  insert only (targets known, plain INSERT)", InsertOnly, false),
+            new("E  by id: SqliteCommand, find id + find shadows, INSERT ON CONFLICT (no pre-select)", ProposedById, false),
+            new("F  by id: INSERT..SELECT ON CONFLICT per report (+ shadows)", InsertSelectById, false),
+            new("G  by id: E on raw prepared statements", RawProposedById, false),
+            new("A+sort  A, batch stable-sorted by id first", ReplicaById, false, Sorted: true),
+            new("A+cache  A, cache_size 256 MiB", ReplicaById, false, Pragmas: BigCache),
+            new("A+mmap  A, mmap_size 1 GiB", ReplicaById, false, Pragmas: Mmap),
+            new("A+sort+cache", ReplicaById, false, Sorted: true, Pragmas: BigCache),
+            new("G+sort+cache", RawProposedById, false, Sorted: true, Pragmas: BigCache),
+            new("S+cache  by id: set-based, temp table + 2 INSERT..SELECT per batch (no receipt)", SetBasedById, false, Pragmas: BigCache),
+            new("K  by key: replica of the store", ReplicaByKey, true),
+            new("L  by key: SqliteCommand, find, INSERT ON CONFLICT (no pre-select)", ProposedByKey, true),
+            new("M  by key: L on raw prepared statements", RawProposedByKey, true),
+            new("K+sort+cache", ReplicaByKey, true, Sorted: true, Pragmas: BigCache),
+            new("M+sort+cache", RawProposedByKey, true, Sorted: true, Pragmas: BigCache),
         };
 
         Console.WriteLine();
@@ -158,7 +171,7 @@ internal static class OutcomeIngestion
             for (var v = 0; v < variants.Length; v++)
             {
                 CopyDatabase(pristine, scratch);
-                var rates = RunVariant(scratch, data, batchSize, reports, variants[v].Body, out var accepted, out var cpuRates);
+                var rates = RunVariant(scratch, data, batchSize, reports, variants[v], out var accepted, out var cpuRates);
                 if (accepted != reports && !variants[v].Name.Contains("only", StringComparison.Ordinal))
                 {
                     throw new InvalidOperationException($"{variants[v].Name} accepted {accepted} of {reports} reports.");
@@ -171,35 +184,51 @@ internal static class OutcomeIngestion
         }
 
         var baselineById = Median(cpuSamples[0]);
-        var baselineByKey = Median(cpuSamples[8]);
-        Console.WriteLine("| variant | median batch outcomes/s, wall | round medians, wall | median batch outcomes/s per CPU second | CPU µs/report | vs store replica (CPU) |");
-        Console.WriteLine("| --- | ---: | --- | ---: | ---: | ---: |");
+        var baselineByKey = Median(cpuSamples[Array.FindIndex(variants, v => v.ByKey)]);
+        var wallById = Median(samples[0]);
+        var wallByKey = Median(samples[Array.FindIndex(variants, v => v.ByKey)]);
+        Console.WriteLine("| variant | median batch outcomes/s, wall | round medians, wall | vs replica, wall | median batch outcomes/s per CPU second | CPU µs/report | vs replica, CPU |");
+        Console.WriteLine("| --- | ---: | --- | ---: | ---: | ---: | ---: |");
         for (var v = 0; v < variants.Length; v++)
         {
             var median = Median(samples[v]);
             var cpu = Median(cpuSamples[v]);
-            var baseline = v >= 8 ? baselineByKey : baselineById;
             Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
-                $"| {variants[v].Name} | {median:N0} | {string.Join(" / ", roundMedians[v].Select(r => r.ToString("N0", CultureInfo.InvariantCulture)))} | {cpu:N0} | {1e6 / cpu:F1} | {cpu / baseline:F2}× |"));
+                $"| {variants[v].Name} | {median:N0} | {string.Join(" / ", roundMedians[v].Select(r => r.ToString("N0", CultureInfo.InvariantCulture)))} | {median / (variants[v].ByKey ? wallByKey : wallById):F2}× | {cpu:N0} | {1e6 / cpu:F1} | {cpu / (variants[v].ByKey ? baselineByKey : baselineById):F2}× |"));
         }
 
         QueryPlans(pristine);
     }
 
-    private static List<double> RunVariant(string file, InventedLog data, int batchSize, int reports, BatchBody body, out int accepted, out List<double> cpuRates)
+    private static List<double> RunVariant(string file, InventedLog data, int batchSize, int reports, Variant variant, out int accepted, out List<double> cpuRates)
     {
         var rates = new List<double>();
         cpuRates = [];
         accepted = 0;
         using var connection = Open(file);
+        if (variant.Pragmas.Length > 0)
+        {
+            using var pragmas = Command(connection, null, variant.Pragmas);
+            pragmas.ExecuteNonQuery();
+        }
+
         for (var from = 0; from < reports; from += batchSize)
         {
             var count = Math.Min(batchSize, reports - from);
             var cpu = ThreadCpuSeconds();
             var timer = Stopwatch.StartNew();
+            var batch = data.Order.AsSpan(from, count).ToArray();
+            if (variant.Sorted)
+            {
+                // Stable (OrderBy), so reports about the same prediction keep their order: the batch's outcome is unchanged.
+                batch = variant.ByKey
+                    ? [.. batch.OrderBy(i => data.Keys[i], StringComparer.Ordinal)]
+                    : [.. batch.OrderBy(i => data.IdBytes[i], ByteOrder.Instance)];
+            }
+
             using (var transaction = connection.BeginTransaction(deferred: false))
             {
-                accepted += body(connection, transaction, data, from, count);
+                accepted += variant.Body(connection, transaction, data, batch);
                 transaction.Commit();
             }
 
@@ -208,6 +237,59 @@ internal static class OutcomeIngestion
         }
 
         return rates;
+    }
+
+    private sealed class ByteOrder : IComparer<byte[]>
+    {
+        public static readonly ByteOrder Instance = new();
+
+        public int Compare(byte[]? x, byte[]? y) => x.AsSpan().SequenceCompareTo(y);
+    }
+
+    /// <summary>
+    /// S: the batch in one go: its reports into a temp table, then one INSERT..SELECT joining the predictions by id and
+    /// one by live_id (shadows), ON CONFLICT DO NOTHING. An upper bound: the receipt (duplicates, unknown, conflicts)
+    /// would take one more query over the temp table.
+    /// </summary>
+    private static int SetBasedById(SqliteConnection c, SqliteTransaction t, InventedLog d, int[] batch)
+    {
+        using (var setup = Command(c, t,
+            "CREATE TEMP TABLE IF NOT EXISTS batch_reports (seq INTEGER PRIMARY KEY, id BLOB NOT NULL, outcome INTEGER NOT NULL); DELETE FROM temp.batch_reports;"))
+        {
+            setup.ExecuteNonQuery();
+        }
+
+        var db = c.Handle!;
+        _ = raw.sqlite3_prepare_v2(db, "INSERT INTO temp.batch_reports (id, outcome) VALUES (?1, ?2);", out var add);
+        using (add)
+        {
+            foreach (var i in batch)
+            {
+                _ = raw.sqlite3_bind_blob(add, 1, d.IdBytes[i]);
+                _ = raw.sqlite3_bind_int(add, 2, d.Y[i]);
+                if (raw.sqlite3_step(add) != raw.SQLITE_DONE)
+                {
+                    SqliteException.ThrowExceptionForRC(raw.sqlite3_errcode(db), db);
+                }
+
+                _ = raw.sqlite3_reset(add);
+            }
+        }
+
+        const string insert =
+            "INSERT INTO outcomes (prediction_id, model, version, stage, scored_at, eta, probability, outcome, observed_at, recorded_at, implicit, live_id) "
+            + "SELECT p.id, p.model, p.version, p.stage, p.scored_at, p.eta, p.probability, r.outcome, NULL, $now, 0, p.live_id FROM temp.batch_reports r ";
+        using var byId = Command(c, t, insert + "JOIN predictions p ON p.id = r.id WHERE p.model = $model ORDER BY r.seq ON CONFLICT (prediction_id) DO NOTHING;");
+        using var byLive = Command(c, t, insert + "JOIN predictions p ON p.live_id = r.id WHERE p.model = $model ORDER BY r.seq ON CONFLICT (prediction_id) DO NOTHING;");
+        foreach (var command in new[] { byId, byLive })
+        {
+            command.Parameters.AddWithValue("$model", Model);
+            command.Parameters.AddWithValue("$now", StoreMicroseconds(RecordedAt));
+        }
+
+        var accepted = byId.ExecuteNonQuery();
+        _ = byLive.ExecuteNonQuery();
+        return accepted;
     }
 
     private const string TargetColumns = "id, version, stage, scored_at, eta, probability, live_id";
@@ -282,33 +364,32 @@ internal static class OutcomeIngestion
     }
 
     /// <summary>A: the store's statements and per-report logic (KeepFirst, no conflicts arise here).</summary>
-    private static int ReplicaById(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count)
+    private static int ReplicaById(SqliteConnection c, SqliteTransaction t, InventedLog d, int[] batch)
     {
         using var find = Command(c, t, $"SELECT {TargetColumns} FROM predictions WHERE model = $model AND (id = $id OR live_id = $id);");
         find.Parameters.AddWithValue("$model", Model);
         var id = find.Parameters.Add("$id", SqliteType.Blob);
-        return ReplicaLoop(c, t, d, from, count, find, k => id.Value = d.IdBytes[k]);
+        return ReplicaLoop(c, t, d, batch, find, k => id.Value = d.IdBytes[k]);
     }
 
     /// <summary>K: the store's key path.</summary>
-    private static int ReplicaByKey(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count)
+    private static int ReplicaByKey(SqliteConnection c, SqliteTransaction t, InventedLog d, int[] batch)
     {
         using var find = Command(c, t, $"SELECT {TargetColumns} FROM predictions WHERE model = $model AND \"key\" = $key;");
         find.Parameters.AddWithValue("$model", Model);
         var key = find.Parameters.Add("$key", SqliteType.Text);
-        return ReplicaLoop(c, t, d, from, count, find, k => key.Value = d.Keys[k]);
+        return ReplicaLoop(c, t, d, batch, find, k => key.Value = d.Keys[k]);
     }
 
-    private static int ReplicaLoop(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count, SqliteCommand find, Action<int> bind)
+    private static int ReplicaLoop(SqliteConnection c, SqliteTransaction t, InventedLog d, int[] batch, SqliteCommand find, Action<int> bind)
     {
         using var existing = Command(c, t, "SELECT outcome, implicit FROM outcomes WHERE prediction_id = $id;");
         var existingId = existing.Parameters.Add("$id", SqliteType.Blob);
         using var insert = new InsertCommand(c, t, "");
         var targets = new List<Target>();
         var accepted = 0;
-        for (var k = from; k < from + count; k++)
+        foreach (var i in batch)
         {
-            var i = d.Order[k];
             bind(i);
             ReadTargets(find, targets);
             var labelled = false;
@@ -329,7 +410,7 @@ internal static class OutcomeIngestion
     }
 
     /// <summary>B, C: the find alone (nothing written; returns the targets found).</summary>
-    private static int FindOnly(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count, bool orLiveId)
+    private static int FindOnly(SqliteConnection c, SqliteTransaction t, InventedLog d, int[] batch, bool orLiveId)
     {
         using var find = Command(c, t,
             $"SELECT {TargetColumns} FROM predictions WHERE model = $model AND {(orLiveId ? "(id = $id OR live_id = $id)" : "id = $id")};");
@@ -337,9 +418,9 @@ internal static class OutcomeIngestion
         var id = find.Parameters.Add("$id", SqliteType.Blob);
         var targets = new List<Target>();
         var found = 0;
-        for (var k = from; k < from + count; k++)
+        foreach (var i in batch)
         {
-            id.Value = d.IdBytes[d.Order[k]];
+            id.Value = d.IdBytes[i];
             ReadTargets(find, targets);
             found += targets.Count;
         }
@@ -348,7 +429,7 @@ internal static class OutcomeIngestion
     }
 
     /// <summary>D: the find and the existing-outcome select, no insert.</summary>
-    private static int FindAndExisting(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count)
+    private static int FindAndExisting(SqliteConnection c, SqliteTransaction t, InventedLog d, int[] batch)
     {
         using var find = Command(c, t, $"SELECT {TargetColumns} FROM predictions WHERE model = $model AND (id = $id OR live_id = $id);");
         find.Parameters.AddWithValue("$model", Model);
@@ -357,9 +438,9 @@ internal static class OutcomeIngestion
         var existingId = existing.Parameters.Add("$id", SqliteType.Blob);
         var targets = new List<Target>();
         var found = 0;
-        for (var k = from; k < from + count; k++)
+        foreach (var i in batch)
         {
-            id.Value = d.IdBytes[d.Order[k]];
+            id.Value = d.IdBytes[i];
             ReadTargets(find, targets);
             foreach (var target in targets)
             {
@@ -372,13 +453,12 @@ internal static class OutcomeIngestion
     }
 
     /// <summary>I: the insert alone, with the target's values taken from memory (the b-tree writes and the statement).</summary>
-    private static int InsertOnly(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count)
+    private static int InsertOnly(SqliteConnection c, SqliteTransaction t, InventedLog d, int[] batch)
     {
         using var insert = new InsertCommand(c, t, "");
         var inserted = 0;
-        for (var k = from; k < from + count; k++)
+        foreach (var i in batch)
         {
-            var i = d.Order[k];
             inserted += insert.Run(new Target(d.IdBytes[i], Version, "live", d.ScoredAtUs[i], d.Eta[i], d.P[i], null), d.Y[i]);
         }
 
@@ -390,7 +470,7 @@ internal static class OutcomeIngestion
     /// partial-index seek, usually empty) instead of the OR; insert with ON CONFLICT DO NOTHING and read the recorded
     /// outcome only when nothing was inserted (the duplicate or conflict path), instead of a select before every insert.
     /// </summary>
-    private static int ProposedById(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count)
+    private static int ProposedById(SqliteConnection c, SqliteTransaction t, InventedLog d, int[] batch)
     {
         using var find = Command(c, t, $"SELECT {TargetColumns} FROM predictions WHERE id = $id AND model = $model;");
         find.Parameters.AddWithValue("$model", Model);
@@ -404,9 +484,8 @@ internal static class OutcomeIngestion
         var targets = new List<Target>();
         var shadowTargets = new List<Target>();
         var accepted = 0;
-        for (var k = from; k < from + count; k++)
+        foreach (var i in batch)
         {
-            var i = d.Order[k];
             id.Value = d.IdBytes[i];
             shadowId.Value = d.IdBytes[i];
             ReadTargets(find, targets);
@@ -437,7 +516,7 @@ internal static class OutcomeIngestion
     /// for its shadows. (The changes count says whether it labelled; a report that labelled nothing then needs the
     /// find and the existing select to tell unknown from duplicate from conflict. An upper bound for one statement per report.)
     /// </summary>
-    private static int InsertSelectById(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count)
+    private static int InsertSelectById(SqliteConnection c, SqliteTransaction t, InventedLog d, int[] batch)
     {
         const string select =
             "INSERT INTO outcomes (prediction_id, model, version, stage, scored_at, eta, probability, outcome, observed_at, recorded_at, implicit, live_id) "
@@ -451,9 +530,8 @@ internal static class OutcomeIngestion
             return (Id: command.Parameters.Add("$id", SqliteType.Blob), Outcome: command.Parameters.Add("$outcome", SqliteType.Integer));
         }).ToArray();
         var accepted = 0;
-        for (var k = from; k < from + count; k++)
+        foreach (var i in batch)
         {
-            var i = d.Order[k];
             foreach (var (idParameter, outcome) in parameters)
             {
                 idParameter.Value = d.IdBytes[i];
@@ -468,13 +546,12 @@ internal static class OutcomeIngestion
     }
 
     /// <summary>G: E on SQLitePCLRaw prepared statements (as PredictionBatchInsert writes the log).</summary>
-    private static int RawProposedById(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count)
+    private static int RawProposedById(SqliteConnection c, SqliteTransaction t, InventedLog d, int[] batch)
     {
         using var raw = new RawStatements(c);
         var accepted = 0;
-        for (var k = from; k < from + count; k++)
+        foreach (var i in batch)
         {
-            var i = d.Order[k];
             var labelled = raw.LabelFrom(raw.FindById, d.IdBytes[i], d.Y[i]);
             labelled |= raw.LabelFrom(raw.FindShadows, d.IdBytes[i], d.Y[i]);
             accepted += labelled ? 1 : 0;
@@ -484,7 +561,7 @@ internal static class OutcomeIngestion
     }
 
     /// <summary>L: the key path with INSERT ON CONFLICT and the existing select only when nothing was inserted.</summary>
-    private static int ProposedByKey(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count)
+    private static int ProposedByKey(SqliteConnection c, SqliteTransaction t, InventedLog d, int[] batch)
     {
         using var find = Command(c, t, $"SELECT {TargetColumns} FROM predictions WHERE model = $model AND \"key\" = $key;");
         find.Parameters.AddWithValue("$model", Model);
@@ -494,9 +571,8 @@ internal static class OutcomeIngestion
         using var insert = new InsertCommand(c, t, " ON CONFLICT (prediction_id) DO NOTHING");
         var targets = new List<Target>();
         var accepted = 0;
-        for (var k = from; k < from + count; k++)
+        foreach (var i in batch)
         {
-            var i = d.Order[k];
             key.Value = d.Keys[i];
             ReadTargets(find, targets);
             var labelled = false;
@@ -520,13 +596,12 @@ internal static class OutcomeIngestion
     }
 
     /// <summary>M: L on raw prepared statements.</summary>
-    private static int RawProposedByKey(SqliteConnection c, SqliteTransaction t, InventedLog d, int from, int count)
+    private static int RawProposedByKey(SqliteConnection c, SqliteTransaction t, InventedLog d, int[] batch)
     {
         using var raw = new RawStatements(c);
         var accepted = 0;
-        for (var k = from; k < from + count; k++)
+        foreach (var i in batch)
         {
-            var i = d.Order[k];
             accepted += raw.LabelFromKey(d.Keys[i], d.Y[i]) ? 1 : 0;
         }
 
@@ -726,7 +801,9 @@ internal static class OutcomeIngestion
             ForeignKeys = true,
         }.ToString());
         connection.Open();
-        using var pragmas = Command(connection, null, "PRAGMA synchronous = NORMAL; PRAGMA wal_autocheckpoint = 16384; PRAGMA busy_timeout = 30000;");
+        // temp_store = MEMORY beyond the store's settings: SQLite's temp files would otherwise go to /var/tmp.
+        using var pragmas = Command(connection, null,
+            "PRAGMA synchronous = NORMAL; PRAGMA wal_autocheckpoint = 16384; PRAGMA busy_timeout = 30000; PRAGMA temp_store = MEMORY;");
         pragmas.ExecuteNonQuery();
         return connection;
     }

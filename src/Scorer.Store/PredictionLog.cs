@@ -65,12 +65,6 @@ public sealed class PredictionLog : IAsyncDisposable
     public int Depth => _queue.Reader.CanCount ? _queue.Reader.Count : 0;
     public int Capacity => _options.Capacity;
 
-    /// <summary>
-    /// Called with each batch once it is written, to count it into drift aggregates (the monitor sets it); what it
-    /// returns is added to the store. A failure there is logged and the counts are lost, never the predictions.
-    /// </summary>
-    public Func<IReadOnlyList<PredictionRecord>, IReadOnlyList<DriftCount>>? DriftCounter { get; set; }
-
     /// <summary>Duration of the last batch write.</summary>
     public TimeSpan LastBatchLatency => TimeSpan.FromTicks(Interlocked.Read(ref _lastBatchTicks));
 
@@ -169,7 +163,6 @@ public sealed class PredictionLog : IAsyncDisposable
                 await _store.WritePredictionsAsync(batch, _abort.Token).ConfigureAwait(false);
                 Interlocked.Exchange(ref _lastBatchTicks, Stopwatch.GetElapsedTime(started).Ticks);
                 Interlocked.Add(ref _written, batch.Count);
-                await CountDriftAsync(batch).ConfigureAwait(false);
                 return;
             }
             catch (OperationCanceledException) when (_abort.IsCancellationRequested)
@@ -185,29 +178,6 @@ public sealed class PredictionLog : IAsyncDisposable
                 await Task.Delay(delay, _abort.Token).ConfigureAwait(false);
                 delay = TimeSpan.FromTicks(Math.Min(delay.Ticks * 2, TimeSpan.FromSeconds(5).Ticks));
             }
-        }
-    }
-
-    private async Task CountDriftAsync(List<PredictionRecord> batch)
-    {
-        if (DriftCounter is not { } counter)
-        {
-            return;
-        }
-
-        try
-        {
-            await _store.AddDriftCountsAsync(counter(batch), _abort.Token).ConfigureAwait(false);
-        }
-        catch (OperationCanceledException) when (_abort.IsCancellationRequested)
-        {
-            throw;
-        }
-#pragma warning disable CA1031 // derived counts: their loss is logged, and must not hold up the log
-        catch (Exception ex)
-#pragma warning restore CA1031
-        {
-            _logger.LogError(ex, "Counting {Rows} predictions into the drift aggregates failed; their PSI counts are lost", batch.Count);
         }
     }
 }

@@ -20,12 +20,14 @@ public sealed class ShadowScorer : IAsyncDisposable
     private readonly PredictionLog _log;
     private readonly ILogger<ShadowScorer> _logger;
     private readonly TimeProvider _time;
+    private readonly Scorer.Monitor.Reporting.DriftTracker _drift;
     private readonly Task _loop;
     private long _dropped;
     private long _scored;
 
-    public ShadowScorer(PredictionLog log, TimeProvider time, ILogger<ShadowScorer> logger)
+    public ShadowScorer(PredictionLog log, TimeProvider time, ILogger<ShadowScorer> logger, Scorer.Monitor.Reporting.DriftTracker drift)
     {
+        _drift = drift;
         _log = log;
         _time = time;
         _logger = logger;
@@ -57,6 +59,7 @@ public sealed class ShadowScorer : IAsyncDisposable
             {
                 foreach (var shadow in work.Shadows)
                 {
+                    var tally = _drift.Begin(shadow, work.ScoredAt);
                     for (var i = 0; i < work.Rows.Length; i++)
                     {
                         var r = shadow.Compiled.Score(work.Rows[i], ScoreSettings.PointOnly);
@@ -65,10 +68,13 @@ public sealed class ShadowScorer : IAsyncDisposable
                             continue;
                         }
 
+                        tally?.Add(r.Eta, work.Rows[i]);
                         _log.TryEnqueue(new PredictionRecord(PredictionIds.Next(_time.GetUtcNow()), shadow.Model, shadow.Version, Stage.Shadow,
                             work.ScoredAt, work.Keys[i], r.Eta, r.Probability, work.FeaturesJson[i], work.LiveIds[i]));
                         Interlocked.Increment(ref _scored);
                     }
+
+                    tally?.Commit();
                 }
             }
 #pragma warning disable CA1031 // a shadow failure must never reach callers; it is logged

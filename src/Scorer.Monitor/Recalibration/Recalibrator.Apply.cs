@@ -30,6 +30,7 @@ public static partial class Recalibrator
     /// The model has no intercept term; the fit used another link; the fit's numbers are not finite; the new version is
     /// empty, not a valid version string, or the model's own version.
     /// </exception>
+    /// <exception cref="ModelFileException">The result breaks a rule of the model file (for example, an invalid input document).</exception>
     public static ModelDocument Apply(ModelDocument model, RecalibrationFit fit, string newVersion)
     {
         ArgumentNullException.ThrowIfNull(model);

@@ -136,6 +136,7 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
         var shadowFeatures = shadowRows is null ? null : new string?[rowCount];
         var values = ArrayPool<NamedValue>.Shared.Rent(Math.Min(limits.MaxFeaturesPerRow, 1024));
         int scoredRows = 0, warnedRows = 0;
+        var tally = core.Drift.Begin(version, now);
         try
         {
             w.WriteStartObject();
@@ -175,6 +176,7 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
 
                 scoredRows++;
                 warnedRows += r.WarningCount > 0 ? 1 : 0;
+                tally?.Add(r.Eta, row);
                 WriteScored(w, r, model, contributions, warnings, request.Contributions ?? 0, key);
                 string? features = null;
                 if (log.Enabled)
@@ -201,6 +203,7 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
             ArrayPool<NamedValue>.Shared.Return(values, clearArray: true);
         }
 
+        tally?.Commit();
         core.Count(version, scoredRows, warnedRows);
         if (shadowRows is not null)
         {

@@ -10,7 +10,8 @@ namespace Scorer.Transport.Services;
 /// the confidence level, the limits, counting rows into the metrics and handing rows to the log and the shadows.
 /// Errors are <see cref="Grpc.Core.RpcException"/>s from <see cref="Errors"/>, whatever the transport.
 /// </summary>
-public sealed class ScoringCore(ModelRegistry registry, PredictionLog log, ShadowScorer shadows, ScoringLimits limits, ScorerMetrics metrics, TimeProvider time)
+public sealed class ScoringCore(ModelRegistry registry, PredictionLog log, ShadowScorer shadows, ScoringLimits limits, ScorerMetrics metrics, TimeProvider time,
+    Scorer.Monitor.Reporting.DriftTracker drift)
 {
     // The labelled counters of each loaded version, looked up once rather than per request.
     private readonly System.Runtime.CompilerServices.ConditionalWeakTable<LoadedVersion, VersionCounters> _counters = [];
@@ -24,6 +25,9 @@ public sealed class ScoringCore(ModelRegistry registry, PredictionLog log, Shado
     public ScorerMetrics Metrics => metrics;
 
     public TimeProvider Time => time;
+
+    /// <summary>Counts scored rows into the baseline's bins, for the PSI without labels.</summary>
+    public Scorer.Monitor.Reporting.DriftTracker Drift => drift;
 
     /// <summary>The version a request scores with: the named one, or the live one.</summary>
     public LoadedVersion Resolve(string modelName, string? versionName, out ModelEntry entry)

@@ -67,6 +67,7 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
         var ids = new Guid[request.Rows.Count];
         var keys = new string?[request.Rows.Count];
         int scoredRows = 0, warnedRows = 0;
+        var tally = core.Drift.Begin(version, now);
         for (var i = 0; i < request.Rows.Count; i++)
         {
             var key = request.Keys.Count > 0 ? request.Keys[i] : null;
@@ -98,6 +99,7 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
 
             scoredRows++;
             warnedRows += r.WarningCount > 0 ? 1 : 0;
+            tally?.Add(r.Eta, values);
             Fill(result, r, model, contributions, warnings, topContributions);
             if (log.Enabled)
             {
@@ -112,6 +114,7 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
             }
         }
 
+        tally?.Commit();
         core.Count(version, scoredRows, warnedRows);
         if (rowsForShadow is not null)
         {
@@ -184,6 +187,7 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
             var now = time.GetUtcNow();
             var response = new DenseScoreResponse { Model = version.Model, Version = version.Version };
             int scoredRows = 0, warnedRows = 0;
+            var tally = core.Drift.Begin(version, now);
             for (var r = 0; r < rows; r++)
             {
                 ref readonly var s = ref results[r];
@@ -205,6 +209,7 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
 
                 scoredRows++;
                 warnedRows += s.WarningCount > 0 ? 1 : 0;
+                tally?.Add(s.Eta, dense.Slice(r * f, f));
 
                 if (log.Enabled)
                 {
@@ -214,6 +219,7 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
                 }
             }
 
+            tally?.Commit();
             core.Count(version, scoredRows, warnedRows);
             return response;
         }

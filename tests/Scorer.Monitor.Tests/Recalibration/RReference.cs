@@ -22,7 +22,12 @@ internal static class RReference
     /// <c>pchisq</c> upper tails. glm runs 500 IRLS iterations (epsilon 1e-300: its deviance test is never met, so it
     /// stops at its fixed point rather than ~1e-8 from it; the non-convergence warning is suppressed).
     /// </summary>
-    public static Dictionary<string, double> Recalibration(string caseName, LinkKind link, string etaExpression = "eta")
+    public static Dictionary<string, double> Recalibration(string caseName, LinkKind link, string etaExpression = "eta") =>
+        Cache.GetOrAdd((caseName, link, etaExpression), key => new Lazy<Dictionary<string, double>>(() => RunRecalibration(key.Case, key.Link, key.Eta))).Value;
+
+    private static readonly System.Collections.Concurrent.ConcurrentDictionary<(string Case, LinkKind Link, string Eta), Lazy<Dictionary<string, double>>> Cache = new();
+
+    private static Dictionary<string, double> RunRecalibration(string caseName, LinkKind link, string etaExpression)
     {
         var linkName = ModelFileWriter.LinkName(link);
         var csv = RString(TestRepository.CalibrationFile(caseName + ".csv"));
