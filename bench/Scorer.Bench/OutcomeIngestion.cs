@@ -15,10 +15,13 @@ namespace Scorer.Bench;
 /// Prints the median batch rate and the overall rate of each mode.
 /// </summary>
 /// <remarks>
-/// Then, on copies of the database as it was before any outcome (no store involved, raw SQL over Microsoft.Data.Sqlite
-/// and SQLitePCLRaw), the store's per-report statements taken apart, and the proposed replacements, each over the same
-/// first reports of the same order, in interleaved rounds on fresh copies: the same-run baseline is the replica of
-/// the store's own SQL. FILE and its siblings (FILE.bykey, FILE.pristine, FILE.exp) are deleted and recreated.
+/// Then, on copies of the by-id database as the store left it half-way (no store involved: raw SQL over
+/// Microsoft.Data.Sqlite and SQLitePCLRaw), the store's per-report statements taken apart and the candidate changes,
+/// each over the same next reports of the same order (a few untimed batches first, to warm the page cache), in
+/// interleaved rounds on fresh copies; the same-run baseline is the replica of the store's own SQL (A by id, K by key).
+/// Rates are given per wall second and per thread-CPU second (the machine is shared), with SQLite's page-cache
+/// counters. FILE and its siblings (FILE.bykey, and FILE.pristine, FILE.exp while running; e.g. /tmp/o.db gives
+/// /tmp/o.bykey.db) are deleted and recreated.
 /// </remarks>
 internal static class OutcomeIngestion
 {
@@ -26,6 +29,7 @@ internal static class OutcomeIngestion
     internal const string Version = "2026.11.1";
     private const int Rounds = 5;
     private const int ExperimentBatches = 10;
+    private const int WarmBatches = 5;
 
     internal static readonly DateTimeOffset Start = new(2026, 12, 2, 0, 0, 0, TimeSpan.Zero);
     internal static readonly DateTimeOffset RecordedAt = new(2026, 12, 9, 0, 0, 0, TimeSpan.Zero);
@@ -49,7 +53,7 @@ internal static class OutcomeIngestion
         await PrepareAsync(byKeyFile, data);
         await IngestAsync(byKeyFile, data, batchSize, byKey: true, halfway: null);
 
-        // 2. Where the time goes, and what a change would gain: raw SQL on copies of the database before any outcome.
+        // 2. Where the time goes, and what a change would gain: raw SQL on copies of the half-way database.
         Experiments(pristine, scratch, data, batchSize);
 
         DeleteDatabase(pristine);
@@ -117,6 +121,7 @@ internal static class OutcomeIngestion
             {
                 cpuRates.Add(reports.Count / (ThreadCpuSeconds() - cpu)); // the call completed on this thread: its CPU time is the call's
             }
+
             accepted += receipt.Accepted;
             duplicates += receipt.Duplicates;
             unknown += receipt.Unknown.Count;
@@ -134,7 +139,7 @@ internal static class OutcomeIngestion
     }
 
     // ---------------------------------------------------------------------------------------------------------------
-    // Experiments: raw SQL on copies of the database before any outcome.
+    // Experiments: raw SQL on copies of the by-id database as the store left it half-way.
     // ---------------------------------------------------------------------------------------------------------------
 
     private delegate int BatchBody(SqliteConnection connection, SqliteTransaction transaction, InventedLog data, int[] batch);
@@ -155,12 +160,18 @@ internal static class OutcomeIngestion
         + "CREATE INDEX outcomes_by_version_time ON outcomes (model, version, scored_at); "
         + "CREATE INDEX outcomes_by_live_id ON outcomes (live_id) WHERE live_id IS NOT NULL;";
 
-    private sealed record Variant(string Name, BatchBody Body, bool ByKey, bool Sorted = false, string Pragmas = "", string Setup = "");
+    private sealed record Variant(string Name, BatchBody Body, bool ByKey, bool Sorted = false, string Pragmas = "", string Setup = "", bool InOrder = false);
 
     private static void Experiments(string pristine, string scratch, InventedLog data, int batchSize)
     {
         var half = data.Count / 2 / batchSize * batchSize;
-        var reports = Math.Min(data.Count - half, ExperimentBatches * batchSize);
+        if (data.Count - half < (WarmBatches + ExperimentBatches) * batchSize)
+        {
+            Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
+                $"(No experiments: they need {2 * (WarmBatches + ExperimentBatches) * batchSize:N0} predictions or more.)"));
+            return;
+        }
+
         var variants = new Variant[]
         {
             new("A  by id: replica of the store (find with OR, existing-outcome select, insert)", ReplicaById, false),
@@ -169,69 +180,67 @@ internal static class OutcomeIngestion
             new("D  by id: find with OR + existing-outcome select", FindAndExisting, false),
             new("I  insert only (targets known, plain INSERT)", InsertOnly, false),
             new("E  by id: SqliteCommand, find id + find shadows, INSERT ON CONFLICT (no pre-select)", ProposedById, false),
-            new("F  by id: INSERT..SELECT ON CONFLICT per report (+ shadows)", InsertSelectById, false),
+            new("F  by id: INSERT..SELECT ON CONFLICT per report (+ one for shadows)", InsertSelectById, false),
             new("G  by id: E on raw prepared statements", RawProposedById, false),
             new("A+sort  A, batch stable-sorted by id first", ReplicaById, false, Sorted: true),
             new("A+cache  A, cache_size 256 MiB", ReplicaById, false, Pragmas: BigCache),
-            new("A+mmap  A, mmap_size 1 GiB", ReplicaById, false, Pragmas: Mmap),
             new("A+sort+cache", ReplicaById, false, Sorted: true, Pragmas: BigCache),
             new("G+sort+cache", RawProposedById, false, Sorted: true, Pragmas: BigCache),
+            new("H  G+sort+cache + the report's hourly aggregates upserted in the same transaction (proposal of --report)", RawProposedByIdWithAggregates, false,
+                Sorted: true, Pragmas: BigCache, Setup: ReportSpeed.AggregateSchema),
+            new("A, in scoring order (not shuffled: the reports still without an outcome, oldest first)", ReplicaById, false, InOrder: true),
             new("G+sort+cache, outcomes WITHOUT ROWID", RawProposedById, false, Sorted: true, Pragmas: BigCache, Setup: WithoutRowid),
             new("S+sort+cache  set-based: temp table, 1 receipt query, 2 INSERT..SELECT", SetBasedById, false, Sorted: true, Pragmas: BigCache),
-            new("S+sort+cache, outcomes WITHOUT ROWID", SetBasedById, false, Sorted: true, Pragmas: BigCache, Setup: WithoutRowid),
             new("K  by key: replica of the store", ReplicaByKey, true),
-            new("M  by key: raw prepared statements, INSERT ON CONFLICT (no pre-select)", RawProposedByKey, true),
             new("K+sort+cache", ReplicaByKey, true, Sorted: true, Pragmas: BigCache),
-            new("M+sort+cache", RawProposedByKey, true, Sorted: true, Pragmas: BigCache),
+            new("M+sort+cache  by key: raw prepared statements, INSERT ON CONFLICT (no pre-select)", RawProposedByKey, true, Sorted: true, Pragmas: BigCache),
             new("SK+sort+cache  by key, set-based as S", SetBasedByKey, true, Sorted: true, Pragmas: BigCache),
         };
 
         Console.WriteLine();
         Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
-            $"Experiments: raw SQL on copies of the by-id database as the store left it half-way ({half:N0} outcomes recorded); the next {reports:N0} reports of the same order, batches of {batchSize:N0}, {Rounds} rounds interleaved, a fresh copy for each run:"));
-        var samples = variants.Select(_ => new List<double>()).ToArray();
-        var cpuSamples = variants.Select(_ => new List<double>()).ToArray();
-        var systemShare = variants.Select(_ => new List<double>()).ToArray();
-        var roundMedians = variants.Select(_ => new List<double>()).ToArray();
+            $"Experiments: raw SQL on copies of the by-id database as the store left it half-way ({half:N0} outcomes recorded); the next {(WarmBatches + ExperimentBatches) * batchSize:N0} reports of the same order in batches of {batchSize:N0}, the first {WarmBatches} untimed (they warm the connection's page cache, as the store's pooled connections stay warm); {Rounds} rounds interleaved, a fresh copy for each run:"));
+        var runs = variants.Select(_ => new List<RunResult>()).ToArray();
+        var pending = Enumerable.Range(half, data.Count - half).Select(k => data.Order[k]).Order().ToArray();
         for (var round = 0; round < Rounds; round++)
         {
             for (var v = 0; v < variants.Length; v++)
             {
                 CopyDatabase(pristine, scratch);
-                var rates = RunVariant(scratch, data, batchSize, half, reports, variants[v], out var accepted, out var cpuRates, out var system);
-                if (accepted != reports && !variants[v].Name.Contains("only", StringComparison.Ordinal))
+                var result = RunVariant(scratch, data, batchSize, variants[v].InOrder ? pending : data.Order.AsSpan(half).ToArray(), variants[v]);
+                if (result.Accepted != ExperimentBatches * batchSize && !variants[v].Name.Contains("only", StringComparison.Ordinal))
                 {
-                    throw new InvalidOperationException($"{variants[v].Name} accepted {accepted} of {reports} reports.");
+                    throw new InvalidOperationException($"{variants[v].Name} accepted {result.Accepted} of {ExperimentBatches * batchSize} reports.");
                 }
 
-                samples[v].AddRange(rates);
-                cpuSamples[v].AddRange(cpuRates);
-                systemShare[v].Add(system);
-                roundMedians[v].Add(Median(rates));
+                runs[v].Add(result);
             }
         }
 
         var byKey = Array.FindIndex(variants, v => v.ByKey);
-        Console.WriteLine("| variant | median batch outcomes/s, wall | round medians, wall | vs replica, wall | median batch outcomes/s per CPU second | CPU µs/report (system share) | vs replica, CPU |");
-        Console.WriteLine("| --- | ---: | --- | ---: | ---: | ---: | ---: |");
+        Console.WriteLine("| variant | median batch /s, wall | round medians, wall | overall /s, wall | vs replica, wall | median batch /s per CPU s | CPU µs/report (system share) | vs replica, CPU | page-cache misses, hits, pages written per report |");
+        Console.WriteLine("| --- | ---: | --- | ---: | ---: | ---: | ---: | ---: | --- |");
         for (var v = 0; v < variants.Length; v++)
         {
-            var median = Median(samples[v]);
-            var cpu = Median(cpuSamples[v]);
+            var wall = Median(runs[v].SelectMany(r => r.Wall).ToList());
+            var cpu = Median(runs[v].SelectMany(r => r.Cpu).ToList());
             var baseline = variants[v].ByKey ? byKey : 0;
+            var baselineWall = Median(runs[baseline].SelectMany(r => r.Wall).ToList());
+            var baselineCpu = Median(runs[baseline].SelectMany(r => r.Cpu).ToList());
             Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
-                $"| {variants[v].Name} | {median:N0} | {string.Join(" / ", roundMedians[v].Select(r => r.ToString("N0", CultureInfo.InvariantCulture)))} | {median / Median(samples[baseline]):F2}× | {cpu:N0} | {1e6 / cpu:F1} ({Median(systemShare[v]):P0}) | {cpu / Median(cpuSamples[baseline]):F2}× |"));
+                $"| {variants[v].Name} | {wall:N0} | {string.Join(" / ", runs[v].Select(r => Median(r.Wall).ToString("N0", CultureInfo.InvariantCulture)))} | {Median(runs[v].Select(r => r.Overall).ToList()):N0} | {wall / baselineWall:F2}× | {cpu:N0} | {1e6 / cpu:F1} ({Median(runs[v].Select(r => r.SystemShare).ToList()):P0}) | {cpu / baselineCpu:F2}× | {Median(runs[v].Select(r => r.Misses).ToList()):F1}, {Median(runs[v].Select(r => r.Hits).ToList()):F1}, {Median(runs[v].Select(r => r.Writes).ToList()):F2} |"));
         }
 
         QueryPlans(pristine);
     }
 
-    private static List<double> RunVariant(string file, InventedLog data, int batchSize, int first, int reports, Variant variant, out int accepted,
-        out List<double> cpuRates, out double systemShare)
+    private sealed record RunResult(List<double> Wall, List<double> Cpu, double Overall, double SystemShare, double Misses, double Hits, double Writes, int Accepted);
+
+    private static RunResult RunVariant(string file, InventedLog data, int batchSize, int[] order, Variant variant)
     {
-        var rates = new List<double>();
-        cpuRates = [];
-        accepted = 0;
+        var wall = new List<double>();
+        var cpuRates = new List<double>();
+        var accepted = 0;
         using var connection = Open(file);
         if (variant.Setup.Length > 0)
         {
@@ -245,13 +254,27 @@ internal static class OutcomeIngestion
             pragmas.ExecuteNonQuery();
         }
 
-        var (user0, system0) = ThreadTimes();
-        for (var from = first; from < first + reports; from += batchSize)
+        var db = connection.Handle!;
+        (double User, double System) start = default;
+        var total = new Stopwatch();
+        var timedReports = 0;
+        for (var b = 0; b < WarmBatches + ExperimentBatches; b++)
         {
-            var count = Math.Min(batchSize, first + reports - from);
+            if (b == WarmBatches)
+            {
+                // Counters from here: SQLITE_DBSTATUS_CACHE_HIT (7), _MISS (8), _WRITE (9), reset.
+                _ = raw.sqlite3_db_status(db, 7, out _, out _, 1);
+                _ = raw.sqlite3_db_status(db, 8, out _, out _, 1);
+                _ = raw.sqlite3_db_status(db, 9, out _, out _, 1);
+                start = ThreadTimes();
+                total.Start();
+            }
+
+            var from = b * batchSize;
+            var count = Math.Min(batchSize, order.Length - from);
             var cpu = ThreadCpuSeconds();
             var timer = Stopwatch.StartNew();
-            var batch = data.Order.AsSpan(from, count).ToArray();
+            var batch = order.AsSpan(from, count).ToArray();
             if (variant.Sorted)
             {
                 // Stable (OrderBy), so reports about the same prediction keep their order: the batch's outcome is unchanged.
@@ -260,19 +283,30 @@ internal static class OutcomeIngestion
                     : [.. batch.OrderBy(i => data.IdBytes[i], ByteOrder.Instance)];
             }
 
+            int labelled;
             using (var transaction = connection.BeginTransaction(deferred: false))
             {
-                accepted += variant.Body(connection, transaction, data, batch);
+                labelled = variant.Body(connection, transaction, data, batch);
                 transaction.Commit();
             }
 
-            rates.Add(count / timer.Elapsed.TotalSeconds);
-            cpuRates.Add(count / (ThreadCpuSeconds() - cpu));
+            if (b >= WarmBatches)
+            {
+                wall.Add(count / timer.Elapsed.TotalSeconds);
+                cpuRates.Add(count / (ThreadCpuSeconds() - cpu));
+                accepted += labelled;
+                timedReports += count;
+            }
         }
 
-        var (user1, system1) = ThreadTimes();
-        systemShare = (system1 - system0) / (user1 - user0 + system1 - system0);
-        return rates;
+        total.Stop();
+        var end = ThreadTimes();
+        _ = raw.sqlite3_db_status(db, 7, out var hits, out _, 0);
+        _ = raw.sqlite3_db_status(db, 8, out var misses, out _, 0);
+        _ = raw.sqlite3_db_status(db, 9, out var writes, out _, 0);
+        var system = end.System - start.System;
+        return new RunResult(wall, cpuRates, timedReports / total.Elapsed.TotalSeconds, system / (end.User - start.User + system),
+            (double)misses / timedReports, (double)hits / timedReports, (double)writes / timedReports, accepted);
     }
 
     private sealed class ByteOrder : IComparer<byte[]>
@@ -628,42 +662,119 @@ internal static class OutcomeIngestion
         return accepted;
     }
 
-    /// <summary>L: the key path with INSERT ON CONFLICT and the existing select only when nothing was inserted.</summary>
-    private static int ProposedByKey(SqliteConnection c, SqliteTransaction t, InventedLog d, int[] batch)
+    /// <summary>
+    /// H: G, and the hourly aggregates of the report (ReportSpeed's proposal) kept in the same transaction: per hour
+    /// touched, one upsert of the sums; per (hour, bin) touched, one upsert of the 10 reliability bins and of the 1,024
+    /// bins of logit(p). The write-side cost of the proposal (starting from empty aggregate tables, filled by the warm-up).
+    /// </summary>
+    private static int RawProposedByIdWithAggregates(SqliteConnection c, SqliteTransaction t, InventedLog d, int[] batch)
     {
-        using var find = Command(c, t, $"SELECT {TargetColumns} FROM predictions WHERE model = $model AND \"key\" = $key;");
-        find.Parameters.AddWithValue("$model", Model);
-        var key = find.Parameters.Add("$key", SqliteType.Text);
-        using var existing = Command(c, t, "SELECT outcome, implicit FROM outcomes WHERE prediction_id = $id;");
-        var existingId = existing.Parameters.Add("$id", SqliteType.Blob);
-        using var insert = new InsertCommand(c, t, " ON CONFLICT (prediction_id) DO NOTHING");
-        var targets = new List<Target>();
+        using var statements = new RawStatements(c) { Labelled = [] };
         var accepted = 0;
         foreach (var i in batch)
         {
-            key.Value = d.Keys[i];
-            ReadTargets(find, targets);
-            var labelled = false;
-            foreach (var target in targets)
+            var labelled = statements.LabelFrom(statements.FindById, d.IdBytes[i], d.Y[i]);
+            labelled |= statements.LabelFrom(statements.FindShadows, d.IdBytes[i], d.Y[i]);
+            accepted += labelled ? 1 : 0;
+        }
+
+        const long microsecondsPerHour = 3_600_000_000;
+        var hours = new Dictionary<long, double[]>();
+        var bins = new Dictionary<(long Hour, int Kind, int Bin), double[]>();
+        foreach (var (scoredAt, p, y) in statements.Labelled)
+        {
+            var hour = scoredAt / microsecondsPerHour;
+            if (!hours.TryGetValue(hour, out var sums))
             {
-                if (insert.Run(target, d.Y[i]) == 1)
-                {
-                    labelled = true;
-                }
-                else
-                {
-                    existingId.Value = target.Id;
-                    _ = Existing(existing, out _);
-                }
+                hours[hour] = sums = new double[7];
             }
 
-            accepted += labelled ? 1 : 0;
+            var residual = y - p;
+            var clipped = Math.Clamp(p, 1e-15, 1.0 - 1e-15);
+            var oneMinusTwoP = 1.0 - (2.0 * p);
+            sums[0]++;
+            sums[1] += y;
+            sums[2] += p;
+            sums[3] += residual * residual;
+            sums[4] -= y == 1 ? Math.Log(clipped) : Scorer.Engine.Numerics.Elementary.Log1P(-clipped);
+            sums[5] += residual * oneMinusTwoP;
+            sums[6] += oneMinusTwoP * oneMinusTwoP * p * (1.0 - p);
+            var q = Math.Clamp(p, 1.0 / 9007199254740992.0, 1.0 - (1.0 / 9007199254740992.0));
+            var logit = Math.Log(q) - Scorer.Engine.Numerics.Elementary.Log1P(-q);
+            foreach (var (kind, bin) in new[] { (0, Math.Clamp((int)(p * 10), 0, 9)), (1, Math.Clamp((int)((logit + 20.0) / 40.0 * 1024), 0, 1023)) })
+            {
+                if (!bins.TryGetValue((hour, kind, bin), out var cell))
+                {
+                    bins[(hour, kind, bin)] = cell = new double[4];
+                }
+
+                cell[0]++;
+                cell[1] += y;
+                cell[2] += p;
+                cell[3] += logit;
+            }
+        }
+
+        var db = c.Handle!;
+        _ = raw.sqlite3_prepare_v2(db,
+            "INSERT INTO outcome_hours VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10) ON CONFLICT (model, version, hour) DO UPDATE SET n = n + excluded.n, "
+            + "events = events + excluded.events, expected = expected + excluded.expected, squared_error = squared_error + excluded.squared_error, "
+            + "log_loss = log_loss + excluded.log_loss, spiegel_numerator = spiegel_numerator + excluded.spiegel_numerator, spiegel_variance = spiegel_variance + excluded.spiegel_variance;",
+            out var upsertHour);
+        _ = raw.sqlite3_prepare_v2(db,
+            "INSERT INTO outcome_hour_bins VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9) ON CONFLICT (model, version, hour, kind, bin) DO UPDATE SET "
+            + "count = count + excluded.count, events = events + excluded.events, sum_p = sum_p + excluded.sum_p, sum_logit = sum_logit + excluded.sum_logit;",
+            out var upsertBin);
+        using (upsertHour)
+        using (upsertBin)
+        {
+            foreach (var statement in new[] { upsertHour, upsertBin })
+            {
+                _ = raw.sqlite3_bind_text16(statement, 1, Model.AsSpan());
+                _ = raw.sqlite3_bind_text16(statement, 2, Version.AsSpan());
+            }
+
+            foreach (var (hour, sums) in hours)
+            {
+                _ = raw.sqlite3_bind_int64(upsertHour, 3, hour);
+                _ = raw.sqlite3_bind_int64(upsertHour, 4, (long)sums[0]);
+                _ = raw.sqlite3_bind_int64(upsertHour, 5, (long)sums[1]);
+                for (var k = 2; k < 7; k++)
+                {
+                    _ = raw.sqlite3_bind_double(upsertHour, k + 4, sums[k]);
+                }
+
+                StepDone(db, upsertHour);
+            }
+
+            foreach (var ((hour, kind, bin), cell) in bins)
+            {
+                _ = raw.sqlite3_bind_int64(upsertBin, 3, hour);
+                _ = raw.sqlite3_bind_int(upsertBin, 4, kind);
+                _ = raw.sqlite3_bind_int(upsertBin, 5, bin);
+                _ = raw.sqlite3_bind_int64(upsertBin, 6, (long)cell[0]);
+                _ = raw.sqlite3_bind_int64(upsertBin, 7, (long)cell[1]);
+                _ = raw.sqlite3_bind_double(upsertBin, 8, cell[2]);
+                _ = raw.sqlite3_bind_double(upsertBin, 9, cell[3]);
+                StepDone(db, upsertBin);
+            }
         }
 
         return accepted;
     }
 
-    /// <summary>M: L on raw prepared statements.</summary>
+    private static void StepDone(sqlite3 db, sqlite3_stmt statement)
+    {
+        var rc = raw.sqlite3_step(statement);
+        if (rc != raw.SQLITE_DONE)
+        {
+            SqliteException.ThrowExceptionForRC(rc, db);
+        }
+
+        _ = raw.sqlite3_reset(statement);
+    }
+
+    /// <summary>M: the key path on raw prepared statements, INSERT ON CONFLICT and the existing select only when nothing was inserted.</summary>
     private static int RawProposedByKey(SqliteConnection c, SqliteTransaction t, InventedLog d, int[] batch)
     {
         using var raw = new RawStatements(c);
@@ -705,6 +816,9 @@ internal static class OutcomeIngestion
 
         public sqlite3_stmt FindById { get; }
 
+        /// <summary>When set, every newly labelled prediction's scoring time, p and outcome, for the aggregates.</summary>
+        public List<(long ScoredAt, double P, byte Y)>? Labelled { get; set; }
+
         public sqlite3_stmt FindShadows { get; }
 
         public bool LabelFrom(sqlite3_stmt find, ReadOnlySpan<byte> id, byte outcome)
@@ -742,6 +856,7 @@ internal static class OutcomeIngestion
                 if (raw.sqlite3_changes(_db) == 1)
                 {
                     labelled = true;
+                    Labelled?.Add((raw.sqlite3_column_int64(find, 3), raw.sqlite3_column_double(find, 5), outcome));
                 }
                 else
                 {
@@ -885,9 +1000,9 @@ internal static class OutcomeIngestion
     }
 
     /// <summary>
-    /// CPU time of the calling thread, user and system (getrusage RUSAGE_THREAD): on this shared machine wall time
-    /// includes waiting for a core; thread CPU time is close to what the work costs on an idle one (the store's calls
-    /// run synchronously on the caller's thread). NaN off Linux.
+    /// CPU time of the calling thread, user and system (getrusage RUSAGE_THREAD, in scheduler ticks: good over a whole
+    /// run, for the system share). On this shared machine wall time includes waiting for a core; thread CPU time is
+    /// close to what the work costs on an idle one (the store's calls run synchronously on the caller's thread).
     /// </summary>
     internal static (double User, double System) ThreadTimes()
     {
@@ -899,14 +1014,33 @@ internal static class OutcomeIngestion
         return (usage.UserSeconds + (usage.UserMicroseconds * 1e-6), usage.SystemSeconds + (usage.SystemMicroseconds * 1e-6));
     }
 
+    /// <summary>
+    /// CPU time of the calling thread, exact (clock_gettime CLOCK_THREAD_CPUTIME_ID; getrusage's thread times advance in
+    /// scheduler ticks of 4 ms here, too coarse for one batch). NaN off Linux.
+    /// </summary>
     internal static double ThreadCpuSeconds()
     {
-        var (user, system) = ThreadTimes();
-        return user + system;
+        if (!OperatingSystem.IsLinux() || NativeMethods.clock_gettime(3, out var time) != 0)
+        {
+            return double.NaN;
+        }
+
+        return time.Seconds + (time.Nanoseconds * 1e-9);
+    }
+
+    [System.Runtime.InteropServices.StructLayout(System.Runtime.InteropServices.LayoutKind.Sequential)]
+    private struct TimeSpec
+    {
+        public long Seconds;
+        public long Nanoseconds;
     }
 
     private static class NativeMethods
     {
+        [System.Runtime.InteropServices.DllImport("libc", EntryPoint = "clock_gettime")]
+        [System.Runtime.InteropServices.DefaultDllImportSearchPaths(System.Runtime.InteropServices.DllImportSearchPath.SafeDirectories)]
+        public static extern int clock_gettime(int clock, out TimeSpec time);
+
         [System.Runtime.InteropServices.DllImport("libc", EntryPoint = "getrusage")]
         [System.Runtime.InteropServices.DefaultDllImportSearchPaths(System.Runtime.InteropServices.DllImportSearchPath.SafeDirectories)]
         public static extern int getrusage(int who, out RUsage usage);

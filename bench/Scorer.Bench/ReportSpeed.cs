@@ -20,8 +20,10 @@ namespace Scorer.Bench;
 /// mergeable per-bucket aggregates (hourly buckets), timed, with its error against the exact statistics.
 /// (b) The store read: the predictions and their outcomes written through the store's own methods (positives reported
 /// by id, the negatives recorded as implicit negatives, as a model with an outcome horizon gets them) into a file
-/// under the temp folder, then <see cref="IScorerStore.GetLabelledAsync"/> over all of them, median of 3, and raw
-/// queries on the same file (and on a copy with a covering index) that say where the read's time goes.
+/// under the temp folder, then <see cref="IScorerStore.GetLabelledAsync"/> over all of them (with the arrays, Compute
+/// and the minute counts of MonitorReporter's window), median of 3; raw queries on the same file and on two copies (a
+/// covering index; the time index extended by prediction_id) that say where the read's time goes; and the proposal end
+/// to end: hourly aggregate tables read, merged and turned into the report.
 /// </remarks>
 internal static class ReportSpeed
 {
@@ -110,7 +112,7 @@ internal static class ReportSpeed
         Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
             $"  the two fits are {(medians[7] + medians[8]) / medians[9]:F1} likelihood passes' worth ({medians[7] / medians[9]:F1} + {medians[8] / medians[9]:F1})"));
 
-        Mergeable(p, y, logit, sortedP, sortedY, z);
+        Mergeable(p, y, logit);
     }
 
     private static double Logits(double[] p, double[] logit)
@@ -176,7 +178,7 @@ internal static class ReportSpeed
     /// Exact: the counts, sums and bins. Approximate: what needs the rows' order (AUC, Hosmer–Lemeshow groups) or the rows
     /// themselves (the two fits), here from a histogram of logit(p) in each bucket.
     /// </summary>
-    private static void Mergeable(double[] p, byte[] y, double[] logit, double[] sortedP, byte[] sortedY, double z)
+    private static void Mergeable(double[] p, byte[] y, double[] logit)
     {
         var n = p.Length;
         var exact = CalibrationStatistics.Compute(p, y, Level);
@@ -212,7 +214,7 @@ internal static class ReportSpeed
                     merged.Merge(bucket);
                 }
 
-                result = merged.Report(z);
+                result = merged.Report();
                 var merge = timer.Elapsed.TotalMilliseconds;
                 if (round > 0)
                 {
@@ -228,8 +230,6 @@ internal static class ReportSpeed
 
         Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
             $"  exact: AUC {exact.Auc!.Estimate:F6} (se {exact.Auc.Se:E3}), intercept {exact.CalibrationIntercept!.Value.Estimate:F6} (se {exact.CalibrationIntercept.Value.Se:E2}), slope {exact.CalibrationSlope!.Value.Estimate:F6} (se {exact.CalibrationSlope.Value.Se:E2})"));
-        _ = sortedP;
-        _ = sortedY;
     }
 
     private readonly record struct MergedReport(
@@ -283,6 +283,75 @@ internal static class ReportSpeed
             _sumP[s] += p;
         }
 
+        /// <summary>Writes the bucket as rows of the two aggregate tables (non-empty bins only).</summary>
+        public void Save(SqliteCommand sums, SqliteCommand bins, long hour)
+        {
+            sums.Parameters["$hour"].Value = hour;
+            sums.Parameters["$n"].Value = _n;
+            sums.Parameters["$events"].Value = _events;
+            sums.Parameters["$expected"].Value = _expected;
+            sums.Parameters["$sq"].Value = _squaredError;
+            sums.Parameters["$ll"].Value = _logLoss;
+            sums.Parameters["$sn"].Value = _spiegelNumerator;
+            sums.Parameters["$sv"].Value = _spiegelVariance;
+            sums.ExecuteNonQuery();
+            bins.Parameters["$hour"].Value = hour;
+            for (var b = 0; b < Bins; b++)
+            {
+                if (_binCount[b] > 0)
+                {
+                    SaveBin(bins, 0, b, _binCount[b], _binEvents[b], _binSum[b], 0.0);
+                }
+            }
+
+            for (var s = 0; s < scoreBins; s++)
+            {
+                if (_cases[s] + _controls[s] > 0)
+                {
+                    SaveBin(bins, 1, s, _cases[s] + _controls[s], _cases[s], _sumP[s], _sumLogit[s]);
+                }
+            }
+        }
+
+        private static void SaveBin(SqliteCommand bins, int kind, int bin, long count, long events, double sumP, double sumLogit)
+        {
+            bins.Parameters["$kind"].Value = kind;
+            bins.Parameters["$bin"].Value = bin;
+            bins.Parameters["$count"].Value = count;
+            bins.Parameters["$events"].Value = events;
+            bins.Parameters["$sumP"].Value = sumP;
+            bins.Parameters["$sumLogit"].Value = sumLogit;
+            bins.ExecuteNonQuery();
+        }
+
+        public void AddSums(long n, long events, double expected, double squaredError, double logLoss, double spiegelNumerator, double spiegelVariance)
+        {
+            _n += n;
+            _events += events;
+            _expected += expected;
+            _squaredError += squaredError;
+            _logLoss += logLoss;
+            _spiegelNumerator += spiegelNumerator;
+            _spiegelVariance += spiegelVariance;
+        }
+
+        public void AddBin(int kind, int bin, long count, long events, double sumP, double sumLogit)
+        {
+            if (kind == 0)
+            {
+                _binCount[bin] += count;
+                _binEvents[bin] += events;
+                _binSum[bin] += sumP;
+            }
+            else
+            {
+                _cases[bin] += events;
+                _controls[bin] += count - events;
+                _sumP[bin] += sumP;
+                _sumLogit[bin] += sumLogit;
+            }
+        }
+
         public void Merge(Bucket other)
         {
             _n += other._n;
@@ -308,9 +377,8 @@ internal static class ReportSpeed
             }
         }
 
-        public MergedReport Report(double z)
+        public MergedReport Report()
         {
-            _ = z;
             double n = _n, events = _events;
             var ece = 0.0;
             for (var b = 0; b < Bins; b++)
@@ -506,11 +574,11 @@ internal static class ReportSpeed
         var readMs = new List<double>();
         var arraysMs = new List<double>();
         var computeMs = new List<double>();
-        var allocated = new List<double>();
         var countMs = new List<double>();
         await using (var store = SqliteScorerStore.ForFile(file))
         {
-            for (var round = 0; round <= ReadRounds; round++)
+            // No warm-up round: the writes just made leave the file in the OS page cache (a warm-up measured the same).
+            for (var round = 1; round <= ReadRounds; round++)
             {
                 GC.Collect();
                 GC.WaitForPendingFinalizers();
@@ -541,15 +609,11 @@ internal static class ReportSpeed
                 }
 
                 Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
-                    $"  {(round == 0 ? "warm-up" : "round " + round.ToString(CultureInfo.InvariantCulture))}: GetLabelledAsync {read:F0} ms ({bytes / 1048576.0:F0} MiB allocated), to arrays {arrays:F0} ms, Compute {compute:F0} ms, CountPredictionsByMinuteAsync {count:F1} ms: report core {read + arrays + compute + count:F0} ms"));
-                if (round > 0)
-                {
-                    readMs.Add(read);
-                    arraysMs.Add(arrays);
-                    computeMs.Add(compute);
-                    allocated.Add(bytes);
-                    countMs.Add(count);
-                }
+                    $"  round {round}: GetLabelledAsync {read:F0} ms ({bytes / 1048576.0:F0} MiB allocated), to arrays {arrays:F0} ms, Compute {compute:F0} ms, CountPredictionsByMinuteAsync {count:F1} ms: report core {read + arrays + compute + count:F0} ms"));
+                readMs.Add(read);
+                arraysMs.Add(arrays);
+                computeMs.Add(compute);
+                countMs.Add(count);
             }
         }
 
@@ -558,16 +622,17 @@ internal static class ReportSpeed
             $"  median of {ReadRounds}: GetLabelledAsync {OutcomeIngestion.Median(readMs):F0} ms, to arrays {OutcomeIngestion.Median(arraysMs):F0} ms, Compute {OutcomeIngestion.Median(computeMs):F0} ms, minute counts {OutcomeIngestion.Median(countMs):F1} ms: report core ≈ {core:F0} ms (target 200 ms)"));
 
         ReadExperiments(file, cover, data.Count);
+        AggregateRead(cover, data);
         OutcomeIngestion.DeleteDatabase(cover);
         OutcomeIngestion.DeleteDatabase(file);
     }
 
     private static void ReadExperiments(string file, string cover, int expected)
     {
+        // Copies: `cover` gets a covering index for p and y; `ordered` (deleted here) the store's index extended by prediction_id.
         const string where = "WHERE model = $model AND version = $version AND scored_at >= $from AND scored_at < $to";
         const string storeQuery =
             "SELECT prediction_id, version, stage, scored_at, eta, probability, outcome, implicit, recorded_at FROM outcomes " + where + " ORDER BY scored_at, prediction_id;";
-        const string twoColumnsOrdered = "SELECT probability, outcome FROM outcomes " + where + " ORDER BY scored_at, prediction_id;";
         const string twoColumns = "SELECT probability, outcome FROM outcomes " + where + ";";
         const string sums = "SELECT count(*), sum(outcome), sum(probability) FROM outcomes " + where + ";";
         OutcomeIngestion.CopyDatabase(file, cover);
@@ -582,18 +647,30 @@ internal static class ReportSpeed
         var indexSeconds = indexTimer.Elapsed.TotalSeconds;
         OutcomeIngestion.Checkpoint(cover);
 
+        // A second copy whose (model, version, scored_at) index ends with prediction_id, the store's ORDER BY's last term.
+        var ordered = OutcomeIngestion.Sibling(file, "ordered");
+        OutcomeIngestion.CopyDatabase(file, ordered);
+        using (var connection = OutcomeIngestion.Open(ordered))
+        {
+            using var create = OutcomeIngestion.Command(connection, null,
+                "DROP INDEX outcomes_by_version_time; CREATE INDEX outcomes_by_version_time ON outcomes (model, version, scored_at, prediction_id);");
+            create.ExecuteNonQuery();
+        }
+
+        OutcomeIngestion.Checkpoint(ordered);
+
         var cases = new (string Name, string File, string Sql, Func<SqliteCommand, int> Run)[]
         {
             ("R1 the store's query, SqliteDataReader, p and y into arrays only (no row objects)", file, storeQuery, c => ReadInto(c, 5, 6)),
-            ("R2 p and y only, still ORDER BY scored_at, prediction_id", file, twoColumnsOrdered, c => ReadInto(c, 0, 1)),
-            ("R3 p and y only, no ORDER BY (index order; no statistic needs the order)", file, twoColumns, c => ReadInto(c, 0, 1)),
+            ("R1b R1 with the index extended to (model, version, scored_at, prediction_id): no sorter", ordered, storeQuery, c => ReadInto(c, 5, 6)),
+            ("R3 p and y only, no ORDER BY (index order; no statistic needs the order), store's indexes", file, twoColumns, c => ReadInto(c, 0, 1)),
             ("R4 R3 with a covering index (model, version, scored_at, probability, outcome)", cover, twoColumns, c => ReadInto(c, 0, 1)),
             ("R5 R4 stepped raw (SQLitePCLRaw, no SqliteDataReader)", cover, twoColumns, ReadRaw),
             ("R6 SQL aggregate count/sum over R4's rows (the scan alone, nothing marshalled)", cover, sums, c => Convert.ToInt32(c.ExecuteScalar(), CultureInfo.InvariantCulture)),
         };
 
         var samples = cases.Select(_ => new List<double>()).ToArray();
-        for (var round = 0; round <= ReadRounds; round++)
+        for (var round = 1; round <= ReadRounds; round++)
         {
             for (var k = 0; k < cases.Length; k++)
             {
@@ -613,15 +690,12 @@ internal static class ReportSpeed
                     throw new InvalidOperationException($"{cases[k].Name} read {rows} rows, expected {expected}.");
                 }
 
-                if (round > 0)
-                {
-                    samples[k].Add(ms);
-                }
+                samples[k].Add(ms);
             }
         }
 
         Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
-            $"  Raw reads of the same rows, median of {ReadRounds} interleaved rounds after a warm-up (covering index built on a copy in {indexSeconds:F1} s):"));
+            $"  Raw reads of the same rows, median of {ReadRounds} interleaved rounds (the page cache warm from the rounds above; covering index built on a copy in {indexSeconds:F1} s):"));
         Console.WriteLine("| read | median ms | min–max |");
         Console.WriteLine("| --- | ---: | --- |");
         for (var k = 0; k < cases.Length; k++)
@@ -630,26 +704,181 @@ internal static class ReportSpeed
                 $"| {cases[k].Name} | {OutcomeIngestion.Median(samples[k]):F0} | {samples[k].Min():F0}–{samples[k].Max():F0} |"));
         }
 
-        using (var connection = OutcomeIngestion.Open(cover))
+        foreach (var (name, planFile, sql) in new[]
         {
-            foreach (var (name, sql) in new[] { ("store query, store's indexes", storeQuery), ("p and y, covering index", twoColumns) })
+            ("store query, store's indexes", file, storeQuery), ("store query, extended index", ordered, storeQuery), ("p and y, covering index", cover, twoColumns),
+        })
+        {
+            using var connection = OutcomeIngestion.Open(planFile);
+            using var command = OutcomeIngestion.Command(connection, null, "EXPLAIN QUERY PLAN " + sql);
+            command.Parameters.AddWithValue("$model", OutcomeIngestion.Model);
+            command.Parameters.AddWithValue("$version", OutcomeIngestion.Version);
+            command.Parameters.AddWithValue("$from", 0L);
+            command.Parameters.AddWithValue("$to", 1L);
+            using var reader = command.ExecuteReader();
+            var steps = new List<string>();
+            while (reader.Read())
             {
-                using var command = OutcomeIngestion.Command(connection, null, "EXPLAIN QUERY PLAN " + sql);
+                steps.Add(reader.GetString(3));
+            }
+
+            Console.WriteLine($"  plan ({name}): {string.Join("; ", steps)}");
+        }
+
+        OutcomeIngestion.DeleteDatabase(ordered);
+    }
+
+    /// <summary>
+    /// The proposal, end to end: hourly aggregate rows (what the store would keep in the outcome's transaction, as it
+    /// keeps prediction_minutes), here built from the invented rows (untimed) into two WITHOUT ROWID tables on the copy;
+    /// then timed: read the window's hours, merge, and compute the report from the merged aggregates.
+    /// </summary>
+    private static void AggregateRead(string file, OutcomeIngestion.InventedLog data)
+    {
+        const int scoreBins = 1024;
+        const long microsecondsPerHour = 3_600_000_000;
+        var setup = Stopwatch.StartNew();
+        var hours = new SortedDictionary<long, Bucket>();
+        for (var i = 0; i < data.Count; i++)
+        {
+            var hour = data.ScoredAtUs[i] / microsecondsPerHour;
+            if (!hours.TryGetValue(hour, out var bucket))
+            {
+                hours[hour] = bucket = new Bucket(scoreBins);
+            }
+
+            var q = Math.Clamp(data.P[i], 1.0 / 9007199254740992.0, 1.0 - (1.0 / 9007199254740992.0));
+            bucket.Add(data.P[i], Math.Log(q) - Scorer.Engine.Numerics.Elementary.Log1P(-q), data.Y[i]);
+        }
+
+        using (var connection = OutcomeIngestion.Open(file))
+        {
+            using (var create = OutcomeIngestion.Command(connection, null, AggregateSchema))
+            {
+                create.ExecuteNonQuery();
+            }
+
+            using var transaction = connection.BeginTransaction();
+            using var sums = OutcomeIngestion.Command(connection, transaction,
+                "INSERT INTO outcome_hours VALUES ($model, $version, $hour, $n, $events, $expected, $sq, $ll, $sn, $sv);");
+            using var bins = OutcomeIngestion.Command(connection, transaction,
+                "INSERT INTO outcome_hour_bins VALUES ($model, $version, $hour, $kind, $bin, $count, $events, $sumP, $sumLogit);");
+            foreach (var (command, names) in new[]
+            {
+                (sums, new[] { "$hour", "$n", "$events", "$expected", "$sq", "$ll", "$sn", "$sv" }),
+                (bins, new[] { "$hour", "$kind", "$bin", "$count", "$events", "$sumP", "$sumLogit" }),
+            })
+            {
                 command.Parameters.AddWithValue("$model", OutcomeIngestion.Model);
                 command.Parameters.AddWithValue("$version", OutcomeIngestion.Version);
-                command.Parameters.AddWithValue("$from", 0L);
-                command.Parameters.AddWithValue("$to", 1L);
-                using var reader = command.ExecuteReader();
-                var steps = new List<string>();
+                foreach (var name in names)
+                {
+                    command.Parameters.Add(name, SqliteType.Real);
+                }
+            }
+
+            foreach (var (hour, bucket) in hours)
+            {
+                bucket.Save(sums, bins, hour);
+            }
+
+            transaction.Commit();
+        }
+
+        OutcomeIngestion.Checkpoint(file);
+        long binRows;
+        using (var connection = OutcomeIngestion.Open(file))
+        using (var count = OutcomeIngestion.Command(connection, null, "SELECT count(*) FROM outcome_hour_bins;"))
+        {
+            binRows = Convert.ToInt64(count.ExecuteScalar(), CultureInfo.InvariantCulture);
+        }
+
+        var setupSeconds = setup.Elapsed.TotalSeconds;
+        var fromHour = OutcomeIngestion.StoreMicroseconds(From) / microsecondsPerHour;
+        var toHour = (OutcomeIngestion.StoreMicroseconds(To) / microsecondsPerHour) + 1;
+        var samples = new List<double>();
+        var readSamples = new List<double>();
+        var rawSamples = new List<double>();
+        var rawReadSamples = new List<double>();
+        MergedReport report = default;
+        for (var round = 0; round <= 2 * ReadRounds; round++)
+        {
+            GC.Collect();
+            var timer = Stopwatch.StartNew();
+            using var connection = OutcomeIngestion.Open(file);
+            var merged = new Bucket(scoreBins);
+            using (var sums = OutcomeIngestion.Command(connection, null,
+                "SELECT sum(n), sum(events), sum(expected), sum(squared_error), sum(log_loss), sum(spiegel_numerator), sum(spiegel_variance) FROM outcome_hours "
+                + "WHERE model = $model AND version = $version AND hour >= $from AND hour < $to;"))
+            {
+                sums.Parameters.AddWithValue("$model", OutcomeIngestion.Model);
+                sums.Parameters.AddWithValue("$version", OutcomeIngestion.Version);
+                sums.Parameters.AddWithValue("$from", fromHour);
+                sums.Parameters.AddWithValue("$to", toHour);
+                using var reader = sums.ExecuteReader();
+                _ = reader.Read();
+                merged.AddSums(reader.GetInt64(0), reader.GetInt64(1), reader.GetDouble(2), reader.GetDouble(3), reader.GetDouble(4), reader.GetDouble(5), reader.GetDouble(6));
+            }
+
+            const string binsSql =
+                "SELECT kind, bin, count, events, sum_p, sum_logit FROM outcome_hour_bins WHERE model = ?1 AND version = ?2 AND hour >= ?3 AND hour < ?4;";
+            if (round % 2 == 1 || round == 0)
+            {
+                // Through SqliteDataReader.
+                using var bins = OutcomeIngestion.Command(connection, null, binsSql);
+                bins.Parameters.AddWithValue("?1", OutcomeIngestion.Model);
+                bins.Parameters.AddWithValue("?2", OutcomeIngestion.Version);
+                bins.Parameters.AddWithValue("?3", fromHour);
+                bins.Parameters.AddWithValue("?4", toHour);
+                using var reader = bins.ExecuteReader();
                 while (reader.Read())
                 {
-                    steps.Add(reader.GetString(3));
+                    merged.AddBin(reader.GetInt32(0), reader.GetInt32(1), reader.GetInt64(2), reader.GetInt64(3), reader.GetDouble(4), reader.GetDouble(5));
                 }
+            }
+            else
+            {
+                // Stepped raw.
+                var db = connection.Handle!;
+                _ = raw.sqlite3_prepare_v2(db, binsSql, out var statement);
+                using (statement)
+                {
+                    _ = raw.sqlite3_bind_text16(statement, 1, OutcomeIngestion.Model.AsSpan());
+                    _ = raw.sqlite3_bind_text16(statement, 2, OutcomeIngestion.Version.AsSpan());
+                    _ = raw.sqlite3_bind_int64(statement, 3, fromHour);
+                    _ = raw.sqlite3_bind_int64(statement, 4, toHour);
+                    while (raw.sqlite3_step(statement) == raw.SQLITE_ROW)
+                    {
+                        merged.AddBin(raw.sqlite3_column_int(statement, 0), raw.sqlite3_column_int(statement, 1), raw.sqlite3_column_int64(statement, 2),
+                            raw.sqlite3_column_int64(statement, 3), raw.sqlite3_column_double(statement, 4), raw.sqlite3_column_double(statement, 5));
+                    }
+                }
+            }
 
-                Console.WriteLine($"  plan ({name}, on the copy with the covering index): {string.Join("; ", steps)}");
+            var read = timer.Elapsed.TotalMilliseconds;
+            report = merged.Report();
+            if (round > 0)
+            {
+                (round % 2 == 1 ? samples : rawSamples).Add(timer.Elapsed.TotalMilliseconds);
+                (round % 2 == 1 ? readSamples : rawReadSamples).Add(read);
             }
         }
+
+        Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
+            $"  Proposal end to end: {hours.Count} hourly aggregate rows + {binRows:N0} bin rows ({scoreBins:N0} logit bins; built and written untimed in {setupSeconds:F1} s); read the window, merge and compute the report (median of {ReadRounds}): {OutcomeIngestion.Median(samples):F1} ms through SqliteDataReader (min–max {samples.Min():F1}–{samples.Max():F1}; reading and merging {OutcomeIngestion.Median(readSamples):F1} ms), {OutcomeIngestion.Median(rawSamples):F1} ms stepped raw (min–max {rawSamples.Min():F1}–{rawSamples.Max():F1}; reading and merging {OutcomeIngestion.Median(rawReadSamples):F1} ms); AUC {report.Auc:F6}, slope {report.Slope:F6}, intercept {report.Intercept:F6}, O/E {report.ObservedExpected:F6}"));
     }
+
+    /// <summary>
+    /// The proposed aggregate tables: per (model, version, hour of scoring time) the exact sums, and per (hour, kind,
+    /// bin) the reliability bins (kind 0, 10 equal-width bins of p) and the histogram of logit(p) (kind 1, 1,024 bins
+    /// over [−20, 20]) with count, events, Σp and Σlogit(p).
+    /// </summary>
+    internal const string AggregateSchema =
+        "CREATE TABLE outcome_hours (model TEXT NOT NULL, version TEXT NOT NULL, hour INTEGER NOT NULL, n INTEGER NOT NULL, events INTEGER NOT NULL, "
+        + "expected REAL NOT NULL, squared_error REAL NOT NULL, log_loss REAL NOT NULL, spiegel_numerator REAL NOT NULL, spiegel_variance REAL NOT NULL, "
+        + "PRIMARY KEY (model, version, hour)) WITHOUT ROWID; "
+        + "CREATE TABLE outcome_hour_bins (model TEXT NOT NULL, version TEXT NOT NULL, hour INTEGER NOT NULL, kind INTEGER NOT NULL, bin INTEGER NOT NULL, "
+        + "count INTEGER NOT NULL, events INTEGER NOT NULL, sum_p REAL NOT NULL, sum_logit REAL NOT NULL, PRIMARY KEY (model, version, hour, kind, bin)) WITHOUT ROWID;";
 
     private static int ReadInto(SqliteCommand command, int pColumn, int yColumn)
     {
