@@ -871,17 +871,7 @@ public sealed class SqliteScorerStore : IScorerStore
         while (reader.Read())
         {
             cancellationToken.ThrowIfCancellationRequested();
-            var prediction = new LabelledPrediction(
-                StoredValues.ToGuid(reader.GetFieldValue<byte[]>(0)),
-                reader.GetString(1),
-                StoredValues.ToStage(reader.GetString(2)),
-                StoredValues.FromUnixMicroseconds(reader.GetInt64(3)),
-                reader.GetDouble(4),
-                reader.GetDouble(5),
-                (byte)reader.GetInt64(6),
-                reader.GetInt64(7) == 1,
-                StoredValues.FromUnixMicroseconds(reader.GetInt64(8)));
-            yield return new LabelledRow(prediction, reader.IsDBNull(9) ? null : reader.GetString(9), reader.GetString(10));
+            yield return new LabelledRow(ReadLabelled(reader), reader.IsDBNull(9) ? null : reader.GetString(9), reader.GetString(10));
         }
     }
 
@@ -907,20 +897,23 @@ public sealed class SqliteScorerStore : IScorerStore
         var labelled = new List<LabelledPrediction>();
         while (reader.Read())
         {
-            labelled.Add(new LabelledPrediction(
-                StoredValues.ToGuid(reader.GetFieldValue<byte[]>(0)),
-                reader.GetString(1),
-                StoredValues.ToStage(reader.GetString(2)),
-                StoredValues.FromUnixMicroseconds(reader.GetInt64(3)),
-                reader.GetDouble(4),
-                reader.GetDouble(5),
-                (byte)reader.GetInt64(6),
-                reader.GetInt64(7) == 1,
-                StoredValues.FromUnixMicroseconds(reader.GetInt64(8))));
+            labelled.Add(ReadLabelled(reader));
         }
 
         return labelled;
     }
+
+    /// <summary>A labelled prediction from the columns prediction_id, version, stage, scored_at, eta, probability, outcome, implicit, recorded_at.</summary>
+    private static LabelledPrediction ReadLabelled(SqliteDataReader reader) => new(
+        StoredValues.ToGuid(reader.GetFieldValue<byte[]>(0)),
+        reader.GetString(1),
+        StoredValues.ToStage(reader.GetString(2)),
+        StoredValues.FromUnixMicroseconds(reader.GetInt64(3)),
+        reader.GetDouble(4),
+        reader.GetDouble(5),
+        (byte)reader.GetInt64(6),
+        reader.GetInt64(7) == 1,
+        StoredValues.FromUnixMicroseconds(reader.GetInt64(8)));
 
     private static PredictionRecord ReadPrediction(SqliteDataReader reader) => new(
         StoredValues.ToGuid(reader.GetFieldValue<byte[]>(0)),

@@ -110,6 +110,7 @@ public sealed class ChartRunner(ModelRegistry registry, IScorerStore store, Moni
         private ThresholdChoice? _upChoice;
         private ThresholdChoice? _downChoice;
         private double[] _sampleEdges = [];
+        private double[] _sampleProportions = [];
         private DateTimeOffset _cursorTime = DateTimeOffset.UnixEpoch;
         private Guid _cursorId = Guid.Empty;
         private long _outcomes;
@@ -189,7 +190,7 @@ public sealed class ChartRunner(ModelRegistry registry, IScorerStore store, Moni
                 if (++_sinceCheck >= 1_000)
                 {
                     _sinceCheck = 0;
-                    var shift = PopulationStability.IndexFromCounts(Deciles(), Counts(_recent, _sampleEdges));
+                    var shift = PopulationStability.IndexFromCounts(_sampleProportions, PopulationStability.Counts(_sampleEdges, [.. _recent]));
                     if (shift > options.CusumResampleShift)
                     {
                         SetThresholds();
@@ -232,21 +233,9 @@ public sealed class ChartRunner(ModelRegistry registry, IScorerStore store, Moni
                 _down!.Threshold = _downChoice.Threshold;
             }
 
-            Array.Sort(sample);
-            _sampleEdges = [.. Enumerable.Range(1, 9).Select(k => SampleQuantile.Type7(sample, k / 10.0))];
-        }
-
-        private static double[] Deciles() => [.. Enumerable.Repeat(0.1, 10)];
-
-        private static long[] Counts(List<double> values, double[] edges)
-        {
-            var counts = new long[edges.Length + 1];
-            foreach (var v in values)
-            {
-                counts[PopulationStability.Bin(edges, v)]++;
-            }
-
-            return counts;
+            // The sample's own deciles (tied edges merged) and its proportions in them: the baseline the later shift is measured against.
+            _sampleEdges = PopulationStability.Edges(sample);
+            _sampleProportions = [.. PopulationStability.Counts(_sampleEdges, sample).Select(c => c / (double)sample.Length)];
         }
     }
 }

@@ -57,7 +57,7 @@ public sealed class MonitorService(ModelRegistry registry, MonitorReporter repor
             if (kind is { } k)
             {
                 fit = Recalibrator.Fit(eta, y, version.Document.Link, k);
-                reason = $"{RecalibrationNames.Of(k)} asked for; fitted on {y.Length} labelled predictions over {window}.";
+                reason = $"{Recalibrator.KindName(k)} asked for; fitted on {y.Length} labelled predictions over {window}.";
             }
             else
             {
@@ -101,14 +101,10 @@ public sealed class MonitorService(ModelRegistry registry, MonitorReporter repor
         await registry.ReloadAsync(context.CancellationToken).ConfigureAwait(false);
         response.Written = true;
         response.File = Path.GetFileName(file);
-        response.Kind = RecalibrationNames.Of(fit.Kind);
-        response.Intercept = new Estimate { Estimate_ = fit.Intercept, Se = fit.InterceptSe, Lower = double.NaN, Upper = double.NaN };
-        response.Slope = new Estimate { Estimate_ = fit.Slope, Se = fit.SlopeSe, Lower = double.NaN, Upper = double.NaN };
+        response.Kind = Recalibrator.KindName(fit.Kind);
         var z = Scorer.Engine.Numerics.Quantiles.TwoSidedZ(reporter.Options.Level);
-        response.Intercept.Lower = fit.Intercept - (z * fit.InterceptSe);
-        response.Intercept.Upper = fit.Intercept + (z * fit.InterceptSe);
-        response.Slope.Lower = fit.Slope - (z * fit.SlopeSe);
-        response.Slope.Upper = fit.Slope + (z * fit.SlopeSe);
+        response.Intercept = Wald(fit.Intercept, fit.InterceptSe, z);
+        response.Slope = Wald(fit.Slope, fit.SlopeSe, z);
         return response;
     }
 
@@ -308,6 +304,9 @@ public sealed class MonitorService(ModelRegistry registry, MonitorReporter repor
     private static PairedDifference Difference(PairedLossComparison c) =>
         new() { Live = c.MeanA, Shadow = c.MeanB, Difference = c.Difference, Lower = c.Lower, Upper = c.Upper, P = c.P };
 
+    private static Estimate Wald(double estimate, double se, double z) =>
+        new() { Estimate_ = estimate, Se = se, Lower = estimate - (z * se), Upper = estimate + (z * se) };
+
     private static Estimate Fitted(FittedValue f) => new() { Estimate_ = f.Estimate, Se = f.Se, Lower = f.Lower, Upper = f.Upper };
 
     private static CusumChart Chart(CusumView v) => new()
@@ -320,10 +319,4 @@ public sealed class MonitorService(ModelRegistry registry, MonitorReporter repor
         Steps = v.Steps,
         Signals = { v.Signals.Select(x => new CusumSignal { Index = x.Index, Time = Timestamp.FromDateTimeOffset(x.Time), Statistic = x.Statistic }) },
     };
-}
-
-/// <summary>The names of recalibration kinds in the API.</summary>
-internal static class RecalibrationNames
-{
-    public static string Of(RecalibrationKind kind) => kind == RecalibrationKind.InTheLarge ? "in-the-large" : "intercept-and-slope";
 }
