@@ -541,8 +541,8 @@ public sealed class SqliteScorerStore : IScorerStore
                 using var existing = Command(connection, transaction, "SELECT outcome, implicit FROM outcomes WHERE prediction_id = $id;");
                 var existingId = existing.Parameters.Add("$id", SqliteType.Blob);
                 using var insert = Command(connection, transaction,
-                    "INSERT INTO outcomes (prediction_id, model, version, stage, scored_at, eta, probability, outcome, observed_at, recorded_at, implicit, live_id) "
-                    + "VALUES ($id, $model, $version, $stage, $scoredAt, $eta, $p, $outcome, $observedAt, $now, 0, $liveId);");
+                    "INSERT INTO outcomes (prediction_id, model, version, stage, scored_at, eta, probability, outcome, observed_at, recorded_at, implicit, live_id, change) "
+                    + "VALUES ($id, $model, $version, $stage, $scoredAt, $eta, $p, $outcome, $observedAt, $now, 0, $liveId, $change);");
                 var insertId = insert.Parameters.Add("$id", SqliteType.Blob);
                 insert.Parameters.AddWithValue("$model", model);
                 var insertVersion = insert.Parameters.Add("$version", SqliteType.Text);
@@ -554,8 +554,11 @@ public sealed class SqliteScorerStore : IScorerStore
                 var insertObserved = insert.Parameters.Add("$observedAt", SqliteType.Integer);
                 var insertLiveId = insert.Parameters.Add("$liveId", SqliteType.Blob);
                 insert.Parameters.AddWithValue("$now", now);
+                var change = NextChange(connection, transaction);
+                insert.Parameters.AddWithValue("$change", change);
                 using var update = Command(connection, transaction,
-                    "UPDATE outcomes SET outcome = $outcome, observed_at = $observedAt, recorded_at = $now, implicit = 0 WHERE prediction_id = $id;");
+                    "UPDATE outcomes SET outcome = $outcome, observed_at = $observedAt, recorded_at = $now, implicit = 0, change = $change WHERE prediction_id = $id;");
+                update.Parameters.AddWithValue("$change", change);
                 var updateOutcome = update.Parameters.Add("$outcome", SqliteType.Integer);
                 var updateObserved = update.Parameters.Add("$observedAt", SqliteType.Integer);
                 update.Parameters.AddWithValue("$now", now);
@@ -705,8 +708,8 @@ public sealed class SqliteScorerStore : IScorerStore
                 walk.Parameters.AddWithValue("$from", from);
                 walk.Parameters.AddWithValue("$limit", limit);
                 using var insert = Command(connection, transaction,
-                    "INSERT INTO outcomes (prediction_id, model, version, stage, scored_at, eta, probability, outcome, observed_at, recorded_at, implicit, live_id) "
-                    + "VALUES ($id, $model, $version, $stage, $scoredAt, $eta, $p, 0, NULL, $now, 1, $liveId) ON CONFLICT (prediction_id) DO NOTHING;");
+                    "INSERT INTO outcomes (prediction_id, model, version, stage, scored_at, eta, probability, outcome, observed_at, recorded_at, implicit, live_id, change) "
+                    + "VALUES ($id, $model, $version, $stage, $scoredAt, $eta, $p, 0, NULL, $now, 1, $liveId, $change) ON CONFLICT (prediction_id) DO NOTHING;");
                 var id = insert.Parameters.Add("$id", SqliteType.Blob);
                 insert.Parameters.AddWithValue("$model", model);
                 var version = insert.Parameters.Add("$version", SqliteType.Text);
@@ -716,6 +719,7 @@ public sealed class SqliteScorerStore : IScorerStore
                 var p = insert.Parameters.Add("$p", SqliteType.Real);
                 var liveId = insert.Parameters.Add("$liveId", SqliteType.Blob);
                 insert.Parameters.AddWithValue("$now", now);
+                insert.Parameters.AddWithValue("$change", NextChange(connection, transaction));
                 var last = from;
                 var recorded = 0;
                 using (var reader = walk.ExecuteReader())
@@ -901,6 +905,44 @@ public sealed class SqliteScorerStore : IScorerStore
         }
 
         return labelled;
+    }
+
+    /// <inheritdoc />
+    public async Task<LabelledChanges> GetLabelledChangesAsync(string model, string version, long cursor, CancellationToken cancellationToken = default)
+    {
+        ArgumentException.ThrowIfNullOrEmpty(model);
+        ArgumentException.ThrowIfNullOrEmpty(version);
+        ArgumentOutOfRangeException.ThrowIfNegative(cursor);
+        await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
+        using var command = Command(connection, null,
+            "SELECT prediction_id, scored_at, probability, outcome, change FROM outcomes WHERE model = $model AND version = $version AND change > $cursor ORDER BY change;");
+        command.Parameters.AddWithValue("$model", model);
+        command.Parameters.AddWithValue("$version", version);
+        command.Parameters.AddWithValue("$cursor", cursor);
+        var points = new List<LabelledPoint>();
+        var last = cursor;
+        using (var reader = command.ExecuteReader())
+        {
+            var id = new byte[16];
+            while (reader.Read())
+            {
+                cancellationToken.ThrowIfCancellationRequested();
+                reader.GetBytes(0, 0, id, 0, 16);
+                points.Add(new LabelledPoint(StoredValues.ToGuid(id), StoredValues.FromUnixMicroseconds(reader.GetInt64(1)), reader.GetDouble(2),
+                    (byte)reader.GetInt64(3)));
+                last = reader.GetInt64(4);
+            }
+        }
+
+        // Changes are numbered in commit order (NextChange), so every later commit carries a number above the last one read.
+        return new LabelledChanges(points, last);
+    }
+
+    /// <summary>Takes the next outcome change number, inside the write transaction (see migration 0004).</summary>
+    private static long NextChange(SqliteConnection connection, SqliteTransaction transaction)
+    {
+        using var next = Command(connection, transaction, "UPDATE outcome_change_counter SET last = last + 1 WHERE id = 1 RETURNING last;");
+        return Convert.ToInt64(next.ExecuteScalar(), CultureInfo.InvariantCulture);
     }
 
     /// <summary>A labelled prediction from the columns prediction_id, version, stage, scored_at, eta, probability, outcome, implicit, recorded_at.</summary>

@@ -68,6 +68,16 @@ public sealed record PairedOutcome(double LiveProbability, double ShadowProbabil
 public sealed record LabelledPrediction(Guid Id, string Version, Stage Stage, DateTimeOffset ScoredAt, double Eta, double Probability, byte Outcome, bool Implicit,
     DateTimeOffset RecordedAt);
 
+/// <summary>A labelled prediction reduced to what the monitor's statistics need, as the monitor's row cache keeps it.</summary>
+public readonly record struct LabelledPoint(Guid Id, DateTimeOffset ScoredAt, double Probability, byte Outcome);
+
+/// <summary>
+/// What changed in a version's labelled predictions since a cursor: every prediction whose outcome was recorded or
+/// changed, in the order of the changes (a prediction may appear twice; the later entry is its outcome now), and the
+/// cursor to pass next time.
+/// </summary>
+public sealed record LabelledChanges(IReadOnlyList<LabelledPoint> Points, long Cursor);
+
 /// <summary>
 /// The service's durable state. Every implementation (SQLite now, PostgreSQL later) passes the same contract tests.
 /// Methods are safe to call concurrently. Times are stored with at least millisecond precision, in UTC.
@@ -154,6 +164,14 @@ public interface IScorerStore : IAsyncDisposable
     /// </summary>
     IAsyncEnumerable<LabelledRow> ReadLabelledRowsAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to,
         CancellationToken cancellationToken = default);
+
+    /// <summary>
+    /// The labelled predictions of a model version recorded or changed after <paramref name="cursor"/> (0: from the
+    /// beginning), with the cursor to pass next time. Never skips a committed change, whichever process or replica made
+    /// it and however long its transaction took: a reader that passes each returned cursor back sees every change once
+    /// or more, and the last time it sees a prediction it sees its current outcome.
+    /// </summary>
+    Task<LabelledChanges> GetLabelledChangesAsync(string model, string version, long cursor, CancellationToken cancellationToken = default);
 
     /// <summary>The labelled predictions of a model (optionally one version) scored in [from, to), in prediction-time order (then id).</summary>
     Task<IReadOnlyList<LabelledPrediction>> GetLabelledAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to,
