@@ -101,7 +101,7 @@ public sealed class ChartRunner(ModelRegistry registry, IScorerStore store, Moni
     {
         private readonly Lock _lock = new();
         private readonly List<(double P, byte Y, DateTimeOffset At, Guid Id)> _pending = [];
-        private readonly List<double> _recent = [];
+        private readonly Queue<double> _recent = new();
         private readonly List<ChartSignal> _upSignals = [];
         private readonly List<ChartSignal> _downSignals = [];
         private readonly ObservedExpectedEwma _ewma = new(options.EwmaLambda, options.EwmaLimit);
@@ -162,10 +162,10 @@ public sealed class ChartRunner(ModelRegistry registry, IScorerStore store, Moni
             {
                 _outcomes++;
                 _ewma.Add(p, y);
-                _recent.Add(p);
-                if (_recent.Count > options.CusumSample)
+                _recent.Enqueue(p);
+                while (_recent.Count > options.CusumSample)
                 {
-                    _recent.RemoveRange(0, _recent.Count - options.CusumSample);
+                    _recent.Dequeue();
                 }
 
                 if (_up is null)

@@ -10,7 +10,7 @@ namespace Scorer.Monitor.Reporting;
 /// keeps the latest: the metrics, the page's overview and the event streams read them, so a scrape or a page view never
 /// computes a report itself. Status changes are judged (and logged) as a side effect of each round.
 /// </summary>
-public sealed class MonitorLoop(ModelRegistry registry, MonitorReporter reporter, MonitorOptions options, ILogger<MonitorLoop> logger)
+public sealed class MonitorLoop(ModelRegistry registry, MonitorReporter reporter, LabelledCache labelled, MonitorOptions options, ILogger<MonitorLoop> logger)
 {
     private readonly ConcurrentDictionary<(string Model, string Version, string Window), MonitorSnapshot> _latest = new();
 
@@ -56,6 +56,8 @@ public sealed class MonitorLoop(ModelRegistry registry, MonitorReporter reporter
                 _latest.TryRemove(key, out _);
             }
         }
+
+        labelled.Retain((model, version) => current.Find(model)?.Find(version) is { Stage: not Stage.Retired });
 
         foreach (var version in current.Models.Values.SelectMany(m => m.Versions).Where(v => v.Stage != Stage.Retired))
         {

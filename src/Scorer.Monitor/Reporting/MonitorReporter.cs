@@ -1,3 +1,4 @@
+using System.Collections.Concurrent;
 using Microsoft.Extensions.Logging;
 using Scorer.ModelFile;
 using Scorer.Monitor.Statistics;
@@ -22,15 +23,17 @@ public sealed record MonitorSnapshot(
     IReadOnlyList<ShadowComparisonView> Shadows);
 
 /// <summary>
-/// Builds reports from the store: the window's labelled predictions (outcomes table) for the calibration and
-/// discrimination statistics, the per-minute prediction counts for what is still immature, the per-hour drift counts
+/// Builds reports: the window's labelled predictions from the <see cref="LabelledCache"/> (kept up to date from the
+/// store's change feed) for the calibration and discrimination statistics, computed exactly over the window's rows and
+/// reused while those rows and their outcomes stay the same, the per-minute prediction counts for what is still immature, the per-hour drift counts
 /// for the PSI, and the charts from the <see cref="ChartRunner"/>. The status is judged over
 /// <see cref="MonitorOptions.JudgedWindow"/>; a change of status is logged.
 /// </summary>
-public sealed class MonitorReporter(ModelRegistry registry, IScorerStore store, ChartRunner charts, MonitorOptions options, TimeProvider time,
-    ILogger<MonitorReporter> logger)
+public sealed class MonitorReporter(ModelRegistry registry, IScorerStore store, LabelledCache labelled, ChartRunner charts, MonitorOptions options,
+    TimeProvider time, ILogger<MonitorReporter> logger)
 {
     private readonly Dictionary<(string, string), MonitorStatus> _lastStatus = [];
+    private readonly ConcurrentDictionary<(string Model, string Version, string Window), ((long, int, ulong) Fingerprint, CalibrationReport Report)> _computed = new();
     private readonly Lock _lock = new();
 
     /// <summary>Raised when a version's status changes: model, version, the new judgement.</summary>
@@ -95,18 +98,24 @@ public sealed class MonitorReporter(ModelRegistry registry, IScorerStore store, 
         var span = options.Windows.TryGetValue(window, out var s) ? s : throw new ArgumentException($"'{window}' is not a window", nameof(window));
         var from = span is { } length ? now - length : DateTimeOffset.UnixEpoch;
         var to = now.AddMinutes(1); // the minute being scored belongs to the window
-        var labelled = await store.GetLabelledAsync(version.Model, version.Version, from, to, cancellationToken).ConfigureAwait(false);
-        var p = new double[labelled.Count];
-        var y = new byte[labelled.Count];
-        for (var i = 0; i < labelled.Count; i++)
+        CalibrationReport calibration;
+        using (var rows = await labelled.WindowAsync(version.Model, version.Version, from, to, cancellationToken).ConfigureAwait(false))
         {
-            p[i] = labelled[i].Probability;
-            y[i] = labelled[i].Outcome;
+            // The same rows with the same outcomes as last time give the same statistics: reuse them.
+            var key = (version.Model, version.Version, window);
+            if (_computed.TryGetValue(key, out var last) && last.Fingerprint == rows.Fingerprint)
+            {
+                calibration = last.Report;
+            }
+            else
+            {
+                calibration = CalibrationStatistics.ComputeSorted(rows.Probability, rows.Outcome, options.Level);
+                _computed[key] = (rows.Fingerprint, calibration);
+            }
         }
 
-        var calibration = CalibrationStatistics.Compute(p, y, options.Level);
         var predictions = await store.CountPredictionsByMinuteAsync(version.Model, version.Version, from, to, cancellationToken).ConfigureAwait(false);
-        var immature = Math.Max(0, predictions - labelled.Count);
+        var immature = Math.Max(0, predictions - calibration.Labelled);
         var horizon = version.Document.Outcome.HorizonSpan;
         // A window stays provisional while any of its predictions may still get an outcome: some have none yet, or (with
         // implicit negatives) some are younger than the horizon.

@@ -31,6 +31,39 @@ public static class CalibrationStatistics
         Guard.SameLength(probability.Length, outcome.Length, nameof(outcome), nameof(probability));
         Guard.Probabilities(probability, nameof(probability));
         Guard.Outcomes(outcome, nameof(outcome));
+        var sortedP = probability.ToArray();
+        var sortedY = outcome.ToArray();
+        Array.Sort(sortedP, sortedY);
+        return FromSorted(sortedP, sortedY, level, groups, bins);
+    }
+
+    /// <summary>
+    /// As <see cref="Compute"/>, for rows already in ascending order of p (ties in any order), as the monitor's row
+    /// cache keeps them: nothing is copied or sorted. Every statistic is the same as Compute's on the same rows in any
+    /// order (sums may differ in the last bits from the order of addition).
+    /// </summary>
+    /// <exception cref="ArgumentException">As Compute's, and when the probabilities are not in ascending order.</exception>
+    public static CalibrationReport ComputeSorted(
+        ReadOnlySpan<double> sortedProbability, ReadOnlySpan<byte> outcome, double level = 0.95, int groups = 10, int bins = 10)
+    {
+        Guard.SameLength(sortedProbability.Length, outcome.Length, nameof(outcome), nameof(sortedProbability));
+        Guard.Probabilities(sortedProbability, nameof(sortedProbability));
+        Guard.Outcomes(outcome, nameof(outcome));
+        for (var i = 1; i < sortedProbability.Length; i++)
+        {
+            if (sortedProbability[i] < sortedProbability[i - 1])
+            {
+                throw new ArgumentException($"sortedProbability[{i}] is below sortedProbability[{i - 1}]; the rows must be in ascending order of p.",
+                    nameof(sortedProbability));
+            }
+        }
+
+        return FromSorted(sortedProbability, outcome, level, groups, bins);
+    }
+
+    /// <summary>The report of checked rows in ascending order of p.</summary>
+    private static CalibrationReport FromSorted(ReadOnlySpan<double> probability, ReadOnlySpan<byte> outcome, double level, int groups, int bins)
+    {
         var z = Quantiles.TwoSidedZ(level);
         ArgumentOutOfRangeException.ThrowIfLessThan(groups, 2);
         ArgumentOutOfRangeException.ThrowIfLessThan(bins, 1);
@@ -106,28 +139,33 @@ public static class CalibrationStatistics
         if (events > 0 && events < n)
         {
             var logit = new double[n];
+            var y = new double[n];
             for (var i = 0; i < n; i++)
             {
                 logit[i] = LogisticFit.Logit(probability[i]);
+                y[i] = outcome[i];
             }
 
-            if (LogisticFit.TryFitIntercept(logit, outcome, out var a, out var aSe))
+            // The two fits are independent passes over the same rows: run them on two cores.
+            bool hasIntercept = false, hasSlope = false;
+            double a = 0, aSe = 0, c = 0, b = 0, bSe = 0;
+            Parallel.Invoke(
+                () => hasIntercept = LogisticFit.TryFitIntercept(logit, y, out a, out aSe),
+                () => hasSlope = LogisticFit.TryFitLine(logit, y, out c, out b, out _, out bSe));
+            if (hasIntercept)
             {
                 intercept = new FittedValue(a, aSe, a - z * aSe, a + z * aSe);
             }
 
-            if (LogisticFit.TryFitLine(logit, outcome, out var c, out var b, out _, out var bSe))
+            if (hasSlope)
             {
                 slope = new FittedValue(b, bSe, b - z * bSe, b + z * bSe);
                 slopeIntercept = c;
             }
         }
 
-        var sortedP = probability.ToArray();
-        var sortedY = outcome.ToArray();
-        Array.Sort(sortedP, sortedY);
-        var hosmerLemeshow = HosmerLemeshow.FromSorted(sortedP, sortedY, groups);
-        var auc = events > 0 && events < n ? Discrimination.FromSorted(sortedP, sortedY, z) : null;
+        var hosmerLemeshow = HosmerLemeshow.FromSorted(probability, outcome, groups);
+        var auc = events > 0 && events < n ? Discrimination.FromSorted(probability, outcome, z) : null;
 
         return new CalibrationReport(
             n, events, expected, observedExpected, intercept, slope, slopeIntercept, spiegelhalter, hosmerLemeshow,
