@@ -34,7 +34,7 @@ internal static class OutcomeIngestion
     internal static readonly DateTimeOffset Start = new(2026, 12, 2, 0, 0, 0, TimeSpan.Zero);
     internal static readonly DateTimeOffset RecordedAt = new(2026, 12, 9, 0, 0, 0, TimeSpan.Zero);
 
-    public static async Task RunAsync(string file, int predictions, int batchSize)
+    public static async Task RunAsync(string file, int predictions, int batchSize, bool experiments = true)
     {
         ArgumentOutOfRangeException.ThrowIfLessThan(predictions, 1);
         ArgumentOutOfRangeException.ThrowIfLessThan(batchSize, 1);
@@ -54,7 +54,10 @@ internal static class OutcomeIngestion
         await IngestAsync(byKeyFile, data, batchSize, byKey: true, halfway: null);
 
         // 2. Where the time goes, and what a change would gain: raw SQL on copies of the half-way database.
-        Experiments(pristine, scratch, data, batchSize);
+        if (experiments)
+        {
+            Experiments(pristine, scratch, data, batchSize);
+        }
 
         DeleteDatabase(pristine);
         DeleteDatabase(scratch);
@@ -186,8 +189,6 @@ internal static class OutcomeIngestion
             new("A+cache  A, cache_size 256 MiB", ReplicaById, false, Pragmas: BigCache),
             new("A+sort+cache", ReplicaById, false, Sorted: true, Pragmas: BigCache),
             new("G+sort+cache", RawProposedById, false, Sorted: true, Pragmas: BigCache),
-            new("H  G+sort+cache + the report's hourly aggregates upserted in the same transaction (proposal of --report)", RawProposedByIdWithAggregates, false,
-                Sorted: true, Pragmas: BigCache, Setup: ReportSpeed.AggregateSchema),
             new("A, in scoring order (not shuffled: the reports still without an outcome, oldest first)", ReplicaById, false, InOrder: true),
             new("G+sort+cache, outcomes WITHOUT ROWID", RawProposedById, false, Sorted: true, Pragmas: BigCache, Setup: WithoutRowid),
             new("S+sort+cache  set-based: temp table, 1 receipt query, 2 INSERT..SELECT", SetBasedById, false, Sorted: true, Pragmas: BigCache),

@@ -29,7 +29,7 @@ public static class Program
         if (args.Length > 3 && args[0] == "--outcomes")
         {
             var ci = System.Globalization.CultureInfo.InvariantCulture;
-            OutcomeIngestion.RunAsync(args[1], int.Parse(args[2], ci), int.Parse(args[3], ci)).GetAwaiter().GetResult();
+            OutcomeIngestion.RunAsync(args[1], int.Parse(args[2], ci), int.Parse(args[3], ci), experiments: !(args.Length > 4 && args[4] == "store-only")).GetAwaiter().GetResult();
             return;
         }
 

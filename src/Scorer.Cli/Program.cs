@@ -17,6 +17,7 @@ public static class Program
         root.Subcommands.Add(Serve());
         root.Subcommands.Add(Calibration(stdout, stderr));
         root.Subcommands.Add(Recalibrate(stdout, stderr));
+        root.Subcommands.Add(DemoCommand.Create(stdout, stderr));
         return root.Parse(args).Invoke(new InvocationConfiguration { Output = stdout, Error = stderr });
     }
 

@@ -105,6 +105,9 @@ public static class ScorerServer
         builder.Services.AddSingleton<Scorer.Transport.Rest.MonitorEvents>();
         builder.Services.AddSingleton<Scorer.Transport.Rest.LabelledExport>();
         builder.Services.AddSingleton<Scorer.Transport.Rest.RestScoring>();
+        // The monitor page (docs/page.md): its trends, overview and files.
+        builder.Services.AddSingleton<Scorer.Monitor.Reporting.TrendReporter>();
+        builder.Services.AddSingleton<Scorer.Transport.Rest.PageApi>();
         builder.Services.AddSingleton(options.Limits);
         var apiKeys = new ApiKeyInterceptor(options.Keys);
         builder.Services.AddSingleton(apiKeys);
@@ -219,6 +222,8 @@ public static class ScorerServer
         app.MapGet("/v1/models/{model}/monitor/events", (HttpContext context, string model) => monitorEvents.HandleAsync(context, model));
         var export = app.Services.GetRequiredService<Scorer.Transport.Rest.LabelledExport>();
         app.MapGet("/v1/models/{model}/labelled", (HttpContext context, string model) => export.HandleAsync(context, model));
+        // The monitor page at / and /models/{model}, its files under /page/, and its JSON (docs/page.md).
+        app.Services.GetRequiredService<Scorer.Transport.Rest.PageApi>().Map(app);
         app.MapGet("/healthz", () => Results.Text("ok\n"));
         app.MapGet("/readyz", async ([Microsoft.AspNetCore.Mvc.FromServices] ReadinessCheck check) =>
         {

@@ -6,15 +6,15 @@ namespace Scorer.Monitor.Reporting;
 
 /// <summary>
 /// Every labelled prediction of each version the monitor reports on, in memory, as columns (prediction time, p,
-/// outcome) with an index in ascending order of p, kept up to date from the store's change feed
+/// outcome) in ascending order of p, kept up to date from the store's change feed
 /// (<see cref="IScorerStore.GetLabelledChangesAsync"/>). A report over a window then reads no rows from the store and
-/// sorts nothing: it takes the window's rows in p order straight from the index (<see cref="WindowAsync"/>), and the
+/// sorts nothing: it takes the window's rows in p order in one sequential scan (<see cref="WindowAsync"/>), and the
 /// statistics are computed exactly over them (<see cref="Statistics.CalibrationStatistics.ComputeSorted"/>).
 /// </summary>
 /// <remarks>
-/// Memory: 8 (time) + 8 (p) + 1 (outcome) + 4 (index) bytes per labelled prediction, plus the id map (about 40 bytes
-/// per prediction): about 60 MB per million. Each refresh costs what changed since the last one, plus one merge of the
-/// p index (linear in the version's rows) when something new arrived. Every replica keeps its own cache from the same
+/// Memory: two sets of columns of 8 (time) + 8 (p) + 1 (outcome) + 4 (slot) bytes, a position of 4 bytes and the id
+/// map (about 40 bytes) per labelled prediction: about 86 MB per million. Each refresh costs what changed since the
+/// last one, plus one sequential merge (linear in the version's rows) when something new arrived. Every replica keeps its own cache from the same
 /// store, so every replica reports the same numbers.
 /// </remarks>
 public sealed class LabelledCache(IScorerStore store)
@@ -57,57 +57,107 @@ public sealed class LabelledCache(IScorerStore store)
         }
     }
 
-    /// <summary>The columns of one version. Touched only under <see cref="Gate"/>.</summary>
+    /// <summary>
+    /// The columns of one version, kept in ascending order of p (time, p, outcome, and the row's slot), so that a window
+    /// is one sequential scan. A row's slot is its arrival number; <c>_position[slot]</c> says where the row is now,
+    /// for relabelling. New rows are sorted among themselves and merged in, into a second set of columns that then
+    /// becomes the first (one linear, sequential pass). Touched only under <see cref="Gate"/>.
+    /// </summary>
     private sealed class VersionRows
     {
         public readonly SemaphoreSlim Gate = new(1, 1);
         public long Cursor;
         public long Applied;
         private readonly Dictionary<Guid, int> _slots = [];
-        private long[] _ticks = new long[1024];
-        private double[] _p = new double[1024];
-        private byte[] _y = new byte[1024];
-        private int[] _order = [];
+        private Columns _rows = new(0);
+        private Columns _spare = new(0);
+        private int[] _position = [];
         private int _count;
 
         public void Apply(LabelledChanges changes)
         {
             var points = changes.Points;
-            var added = new List<int>();
+            var added = new List<(double P, long Ticks, byte Y, int Slot)>();
+            var addedIndex = new Dictionary<int, int>();
             foreach (var point in points)
             {
                 if (_slots.TryGetValue(point.Id, out var slot))
                 {
-                    _y[slot] = point.Outcome; // relabelled: the prediction (time, p) never changes
+                    // Relabelled: the prediction (time, p) never changes, only its outcome.
+                    if (slot < _count)
+                    {
+                        _rows.Y[_position[slot]] = point.Outcome;
+                    }
+                    else
+                    {
+                        var k = addedIndex[slot];
+                        added[k] = added[k] with { Y = point.Outcome };
+                    }
+
                     continue;
                 }
 
-                if (_count == _p.Length)
-                {
-                    var size = _p.Length * 2;
-                    Array.Resize(ref _ticks, size);
-                    Array.Resize(ref _p, size);
-                    Array.Resize(ref _y, size);
-                }
-
-                slot = _count++;
+                slot = _count + added.Count;
                 _slots.Add(point.Id, slot);
-                _ticks[slot] = point.ScoredAt.UtcTicks;
-                _p[slot] = point.Probability;
-                _y[slot] = point.Outcome;
-                added.Add(slot);
+                addedIndex.Add(slot, added.Count);
+                added.Add((point.Probability, point.ScoredAt.UtcTicks, point.Outcome, slot));
             }
 
             if (added.Count > 0)
             {
-                MergeIntoOrder(added);
+                Merge(added);
             }
 
             Cursor = changes.Cursor;
             Volatile.Write(ref Applied, Applied + points.Count);
         }
 
-            /// <summary>SplitMix64's finaliser: a sum of these over the window's slots tells one set of rows from another.</summary>
+        private void Merge(List<(double P, long Ticks, byte Y, int Slot)> added)
+        {
+            added.Sort((a, b) => a.P.CompareTo(b.P));
+            var total = _count + added.Count;
+            if (_spare.Capacity < total)
+            {
+                _spare = new Columns(Math.Max(total, _rows.Capacity * 2));
+            }
+
+            if (_position.Length < total)
+            {
+                Array.Resize(ref _position, Math.Max(total, _position.Length * 2));
+            }
+
+            var from = _rows;
+            var to = _spare;
+            int a = 0, b = 0, k = 0;
+            while (a < _count || b < added.Count)
+            {
+                if (b == added.Count || (a < _count && from.P[a] <= added[b].P))
+                {
+                    to.P[k] = from.P[a];
+                    to.Ticks[k] = from.Ticks[a];
+                    to.Y[k] = from.Y[a];
+                    to.Slot[k] = from.Slot[a];
+                    a++;
+                }
+                else
+                {
+                    var row = added[b++];
+                    to.P[k] = row.P;
+                    to.Ticks[k] = row.Ticks;
+                    to.Y[k] = row.Y;
+                    to.Slot[k] = row.Slot;
+                }
+
+                _position[to.Slot[k]] = k;
+                k++;
+            }
+
+            _spare = from;
+            _rows = to;
+            _count = total;
+        }
+
+        /// <summary>SplitMix64's finaliser: a sum of these over the window's slots tells one set of rows from another.</summary>
         private static ulong Mix(ulong z)
         {
             z = (z ^ (z >> 30)) * 0xBF58476D1CE4E5B9UL;
@@ -115,56 +165,39 @@ public sealed class LabelledCache(IScorerStore store)
             return z ^ (z >> 31);
         }
 
-        /// <summary>Sorts the new slots by p and merges them into the p index (one linear pass).</summary>
-        private void MergeIntoOrder(List<int> added)
-        {
-            var newSlots = added.ToArray();
-            var keys = new double[newSlots.Length];
-            for (var i = 0; i < newSlots.Length; i++)
-            {
-                keys[i] = _p[newSlots[i]];
-            }
-
-            Array.Sort(keys, newSlots);
-            var merged = new int[_order.Length + newSlots.Length];
-            int a = 0, b = 0, k = 0;
-            while (a < _order.Length && b < newSlots.Length)
-            {
-                merged[k++] = _p[_order[a]] <= keys[b] ? _order[a++] : newSlots[b++];
-            }
-
-            while (a < _order.Length)
-            {
-                merged[k++] = _order[a++];
-            }
-
-            while (b < newSlots.Length)
-            {
-                merged[k++] = newSlots[b++];
-            }
-
-            _order = merged;
-        }
-
         public LabelledWindow Select(long fromTicks, long toTicks)
         {
-            var p = ArrayPool<double>.Shared.Rent(Math.Max(1, _order.Length));
-            var y = ArrayPool<byte>.Shared.Rent(Math.Max(1, _order.Length));
+            var p = ArrayPool<double>.Shared.Rent(Math.Max(1, _count));
+            var y = ArrayPool<byte>.Shared.Rent(Math.Max(1, _count));
+            var rows = _rows;
             var n = 0;
             var members = 0UL;
-            foreach (var slot in _order)
+            for (var i = 0; i < _count; i++)
             {
-                var t = _ticks[slot];
+                var t = rows.Ticks[i];
                 if (t >= fromTicks && t < toTicks)
                 {
-                    p[n] = _p[slot];
-                    y[n] = _y[slot];
+                    p[n] = rows.P[i];
+                    y[n] = rows.Y[i];
                     n++;
-                    members += Mix((ulong)slot);
+                    members += Mix((ulong)rows.Slot[i]);
                 }
             }
 
             return new LabelledWindow(p, y, n, (Applied, n, members));
+        }
+
+        private sealed class Columns(int capacity)
+        {
+            public int Capacity { get; } = capacity;
+
+            public double[] P { get; } = new double[capacity];
+
+            public long[] Ticks { get; } = new long[capacity];
+
+            public byte[] Y { get; } = new byte[capacity];
+
+            public int[] Slot { get; } = new int[capacity];
         }
     }
 }

@@ -134,8 +134,9 @@ public static class CalibrationStatistics
             spiegelhalter = new SpiegelhalterTest(zStatistic, Tails.TwoSidedNormal(zStatistic));
         }
 
-        FittedValue? intercept = null, slope = null;
-        double? slopeIntercept = null;
+        // The two calibration fits are independent passes over the logits: they run on two other threads while this one
+        // forms Hosmer–Lemeshow and the AUC from the sorted rows.
+        Task<(bool HasIntercept, double A, double ASe, bool HasSlope, double C, double B, double BSe)>? fits = null;
         if (events > 0 && events < n)
         {
             var logit = new double[n];
@@ -146,26 +147,36 @@ public static class CalibrationStatistics
                 y[i] = outcome[i];
             }
 
-            // The two fits are independent passes over the same rows: run them on two cores.
-            bool hasIntercept = false, hasSlope = false;
-            double a = 0, aSe = 0, c = 0, b = 0, bSe = 0;
-            Parallel.Invoke(
-                () => hasIntercept = LogisticFit.TryFitIntercept(logit, y, out a, out aSe),
-                () => hasSlope = LogisticFit.TryFitLine(logit, y, out c, out b, out _, out bSe));
-            if (hasIntercept)
+            fits = Task.Run(() =>
             {
-                intercept = new FittedValue(a, aSe, a - z * aSe, a + z * aSe);
-            }
-
-            if (hasSlope)
-            {
-                slope = new FittedValue(b, bSe, b - z * bSe, b + z * bSe);
-                slopeIntercept = c;
-            }
+                bool hasIntercept = false, hasSlope = false;
+                double a = 0, aSe = 0, c = 0, b = 0, bSe = 0;
+                Parallel.Invoke(
+                    () => hasIntercept = LogisticFit.TryFitIntercept(logit, y, out a, out aSe),
+                    () => hasSlope = LogisticFit.TryFitLine(logit, y, out c, out b, out _, out bSe));
+                return (hasIntercept, a, aSe, hasSlope, c, b, bSe);
+            });
         }
 
         var hosmerLemeshow = HosmerLemeshow.FromSorted(probability, outcome, groups);
         var auc = events > 0 && events < n ? Discrimination.FromSorted(probability, outcome, z) : null;
+
+        FittedValue? intercept = null, slope = null;
+        double? slopeIntercept = null;
+        if (fits is not null)
+        {
+            var f = fits.GetAwaiter().GetResult();
+            if (f.HasIntercept)
+            {
+                intercept = new FittedValue(f.A, f.ASe, f.A - z * f.ASe, f.A + z * f.ASe);
+            }
+
+            if (f.HasSlope)
+            {
+                slope = new FittedValue(f.B, f.BSe, f.B - z * f.BSe, f.B + z * f.BSe);
+                slopeIntercept = f.C;
+            }
+        }
 
         return new CalibrationReport(
             n, events, expected, observedExpected, intercept, slope, slopeIntercept, spiegelhalter, hosmerLemeshow,

@@ -1,0 +1,183 @@
+using Scorer.Monitor.Sequential;
+using Scorer.Monitor.Statistics;
+using Scorer.Registry;
+using Scorer.Store;
+
+namespace Scorer.Monitor.Reporting;
+
+/// <summary>
+/// One bucket of prediction time: its labelled predictions and the calibration intercept, slope and AUC computed over
+/// them alone (each null when it cannot be estimated there, as in the report).
+/// </summary>
+public sealed record TrendBucket(DateTimeOffset From, DateTimeOffset To, int Labelled, int Events, double Expected, FittedValue? Intercept,
+    FittedValue? Slope, AucEstimate? Auc);
+
+/// <summary>
+/// The calibration intercept and slope and the AUC of a version over time: the window cut into buckets of one
+/// <see cref="Step"/>, aligned to whole multiples of it since the Unix epoch, from the bucket of the window's first
+/// labelled prediction to the bucket of now.
+/// </summary>
+public sealed record TrendView(string Window, DateTimeOffset From, DateTimeOffset To, TimeSpan Step, double Level, IReadOnlyList<TrendBucket> Buckets);
+
+/// <summary>One point of a CUSUM path: the 1-based position of the outcome among the chart's, its prediction time, S after it (before any reset).</summary>
+public sealed record CusumPoint(long Index, DateTimeOffset Time, double Value);
+
+/// <summary>
+/// The path of one CUSUM chart over the window, replayed from the store: at most the asked number of points (in each
+/// group of consecutive outcomes its lowest and highest S), the chart's threshold now, its signals within the window,
+/// and whether the replay ended where the running chart stands (<see cref="Matches"/>; false when outcomes arrived for
+/// predictions the chart had already passed, which the chart never takes in).
+/// </summary>
+public sealed record CusumPath(double OddsRatio, double Threshold, long Steps, double Value, bool Matches, IReadOnlyList<CusumPoint> Points,
+    IReadOnlyList<ChartSignal> Signals);
+
+/// <summary>Both CUSUM paths of a version; null paths and <see cref="Waiting"/> when the charts have not started.</summary>
+public sealed record CusumPaths(string Window, DateTimeOffset From, DateTimeOffset To, CusumPath? Up, CusumPath? Down, long Outcomes, DateTimeOffset? Through,
+    string? Waiting);
+
+/// <summary>
+/// What the page draws over time and the report does not hold: the calibration intercept and slope and the AUC per
+/// bucket of prediction time (<see cref="TrendAsync"/>), and the paths of the CUSUM charts (<see cref="CusumAsync"/>).
+/// </summary>
+public sealed class TrendReporter(IScorerStore store, ChartRunner charts, MonitorOptions options, TimeProvider time)
+{
+    /// <summary>The bucket lengths a trend chooses from: the shortest that keeps the buckets within the asked number.</summary>
+    public static IReadOnlyList<TimeSpan> Steps { get; } =
+    [
+        TimeSpan.FromSeconds(10), TimeSpan.FromSeconds(30), TimeSpan.FromMinutes(1), TimeSpan.FromMinutes(5), TimeSpan.FromMinutes(15),
+        TimeSpan.FromHours(1), TimeSpan.FromHours(6), TimeSpan.FromDays(1), TimeSpan.FromDays(7), TimeSpan.FromDays(30),
+    ];
+
+    public MonitorOptions Options => options;
+
+    /// <summary>
+    /// The trend of a version over a window (a name of <see cref="MonitorOptions.Windows"/>): the window's labelled
+    /// predictions in prediction-time order, cut into at most <paramref name="maxBuckets"/> buckets, and
+    /// <see cref="CalibrationStatistics.Compute"/> over each bucket's rows.
+    /// </summary>
+    /// <exception cref="ArgumentException">The window is not configured.</exception>
+    /// <exception cref="ArgumentOutOfRangeException">maxBuckets is below 1.</exception>
+    public async Task<TrendView> TrendAsync(LoadedVersion version, string window, int maxBuckets, CancellationToken cancellationToken = default)
+    {
+        ArgumentOutOfRangeException.ThrowIfLessThan(maxBuckets, 1);
+        var now = time.GetUtcNow();
+        var (from, to) = Bounds(window, now);
+        var rows = await store.GetLabelledAsync(version.Model, version.Version, from, to, cancellationToken).ConfigureAwait(false);
+        var first = rows.Count > 0 ? rows[0].ScoredAt : now;
+        var span = now - first;
+        var step = Steps.FirstOrDefault(s => span.Ticks / s.Ticks < maxBuckets, Steps[^1]);
+        var start = new DateTimeOffset(first.UtcTicks - ((first.UtcTicks - DateTimeOffset.UnixEpoch.UtcTicks) % step.Ticks), TimeSpan.Zero);
+        var buckets = new List<TrendBucket>();
+        var probability = new List<double>();
+        var outcome = new List<byte>();
+        var next = 0;
+        for (var bucketFrom = start; bucketFrom <= now; bucketFrom += step)
+        {
+            var bucketTo = bucketFrom + step;
+            probability.Clear();
+            outcome.Clear();
+            while (next < rows.Count && rows[next].ScoredAt < bucketTo)
+            {
+                probability.Add(rows[next].Probability);
+                outcome.Add(rows[next].Outcome);
+                next++;
+            }
+
+            var c = CalibrationStatistics.Compute(System.Runtime.InteropServices.CollectionsMarshal.AsSpan(probability),
+                System.Runtime.InteropServices.CollectionsMarshal.AsSpan(outcome), options.Level);
+            buckets.Add(new TrendBucket(bucketFrom, bucketTo, c.Labelled, c.Events, c.Expected, c.CalibrationIntercept, c.CalibrationSlope,
+                c.Auc is { } auc && double.IsFinite(auc.Estimate) ? auc : null));
+        }
+
+        return new TrendView(window, from, to, step, options.Level, buckets);
+    }
+
+    /// <summary>
+    /// The paths of a version's CUSUM charts within a window: S replayed from the store over the outcomes the chart has
+    /// taken in (its first <see cref="CusumView.Steps"/> labelled predictions in prediction-time order), restarting at 0
+    /// where the chart signalled, as the chart did. At most <paramref name="maxPoints"/> points per chart.
+    /// </summary>
+    /// <exception cref="ArgumentException">The window is not configured.</exception>
+    /// <exception cref="ArgumentOutOfRangeException">maxPoints is below 8.</exception>
+    public async Task<CusumPaths> CusumAsync(LoadedVersion version, string window, int maxPoints, CancellationToken cancellationToken = default)
+    {
+        ArgumentOutOfRangeException.ThrowIfLessThan(maxPoints, 8);
+        var (from, to) = Bounds(window, time.GetUtcNow());
+        var view = charts.View(version.Model, version.Version);
+        if (view?.Up is not { } up || view.Down is not { } down || view.Through is not { } through)
+        {
+            return new CusumPaths(window, from, to, null, null, view?.Outcomes ?? 0, view?.Through,
+                view?.Waiting ?? "the charts have not taken in any outcome yet");
+        }
+
+        // Every row the chart has taken in was scored no later than its cursor; rows scored just after it are cut by the step count.
+        var rows = await store.GetLabelledAsync(version.Model, version.Version, DateTimeOffset.UnixEpoch, through.AddMilliseconds(1), cancellationToken)
+            .ConfigureAwait(false);
+        return new CusumPaths(window, from, to, Replay(up), Replay(down), view.Outcomes, through, null);
+
+        CusumPath Replay(CusumView chart)
+        {
+            var signalled = chart.Signals.Select(s => s.Index).ToHashSet();
+            var steps = (int)Math.Min(chart.Steps, rows.Count);
+            var points = new List<CusumPoint>();
+            var s = 0.0;
+            for (var i = 0; i < steps; i++)
+            {
+                var row = rows[i];
+                var statistic = Math.Max(0.0, s + RiskAdjustedCusum.Weight(row.Probability, row.Outcome, chart.OddsRatio));
+                s = signalled.Contains(i + 1) ? 0.0 : statistic;
+                if (row.ScoredAt >= from && row.ScoredAt < to)
+                {
+                    points.Add(new CusumPoint(i + 1, row.ScoredAt, statistic));
+                }
+            }
+
+            var matches = steps == chart.Steps && Math.Abs(s - chart.Value) <= 1e-9 * Math.Max(1.0, chart.Value);
+            return new CusumPath(chart.OddsRatio, chart.Threshold, chart.Steps, chart.Value, matches, Thin(points, maxPoints),
+                [.. chart.Signals.Where(x => x.Time >= from && x.Time < to)]);
+        }
+    }
+
+    /// <summary>At most <paramref name="maxPoints"/> points: in each group of consecutive points its lowest and highest, in order; the last point always.</summary>
+    private static List<CusumPoint> Thin(List<CusumPoint> points, int maxPoints)
+    {
+        if (points.Count <= maxPoints)
+        {
+            return points;
+        }
+
+        var group = (int)Math.Ceiling(points.Count / (maxPoints / 2.0 - 1));
+        var thinned = new List<CusumPoint>(maxPoints);
+        for (var start = 0; start < points.Count; start += group)
+        {
+            var end = Math.Min(points.Count, start + group);
+            var low = start;
+            var high = start;
+            for (var i = start + 1; i < end; i++)
+            {
+                low = points[i].Value < points[low].Value ? i : low;
+                high = points[i].Value > points[high].Value ? i : high;
+            }
+
+            thinned.Add(points[Math.Min(low, high)]);
+            if (low != high)
+            {
+                thinned.Add(points[Math.Max(low, high)]);
+            }
+        }
+
+        if (thinned[^1] != points[^1])
+        {
+            thinned.Add(points[^1]);
+        }
+
+        return thinned;
+    }
+
+    /// <summary>A window's range of prediction time, as the report takes it: [now − length, now + 1 minute).</summary>
+    private (DateTimeOffset From, DateTimeOffset To) Bounds(string window, DateTimeOffset now)
+    {
+        var span = options.Windows.TryGetValue(window, out var s) ? s : throw new ArgumentException($"'{window}' is not a window", nameof(window));
+        return (span is { } length ? now - length : DateTimeOffset.UnixEpoch, now.AddMinutes(1));
+    }
+}

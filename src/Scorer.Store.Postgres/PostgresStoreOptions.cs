@@ -1,0 +1,26 @@
+namespace Scorer.Store.Postgres;
+
+/// <summary>Settings of the PostgreSQL store beyond its connection string.</summary>
+public sealed record PostgresStoreOptions
+{
+    /// <summary>
+    /// The schema that holds the store's tables, created by <see cref="PostgresScorerStore.MigrateAsync"/> when missing;
+    /// null (the default) uses the first schema of the connection's search path (normally <c>public</c>). A lower-case
+    /// identifier: a letter or underscore, then letters, digits or underscores, at most 63 in all. Several stores (or
+    /// test runs) can share one database, each in a schema of its own.
+    /// </summary>
+    public string? Schema { get; init; }
+
+    /// <summary>
+    /// How long logged predictions are kept before <see cref="PostgresScorerStore.PruneAsync"/> may delete them (see
+    /// there for which ones it deletes); null (the default) keeps them forever, and pruning deletes nothing.
+    /// </summary>
+    public TimeSpan? PredictionRetention { get; init; }
+}
+
+/// <summary>
+/// What one <see cref="PostgresScorerStore.PruneAsync"/> call did: <see cref="Deleted"/> predictions removed from the
+/// log, and <see cref="KeptAwaitingOutcome"/> predictions older than the retention kept because their outcome is still
+/// expected.
+/// </summary>
+public sealed record PruneResult(long Deleted, long KeptAwaitingOutcome);

@@ -1,0 +1,83 @@
+using Npgsql;
+using NpgsqlTypes;
+
+namespace Scorer.Store.Postgres;
+
+/// <summary>
+/// Writes a batch of predictions with binary COPY, and the batch's per-minute counts, inside the caller's transaction.
+/// </summary>
+/// <remarks>
+/// Binary COPY streams the rows in PostgreSQL's own binary formats: no SQL text per row, no parameters, doubles and
+/// times exact. The per-minute counts are summed in memory first (a batch spans few versions and minutes), then
+/// upserted in one statement, sorted so that concurrent writers lock the counter rows in one order.
+/// </remarks>
+internal static class PredictionCopy
+{
+    public const string CopySql =
+        "COPY predictions (id, model, version, stage, scored_at, \"key\", eta, probability, features, live_id) FROM STDIN (FORMAT BINARY)";
+
+    public const string MinuteSql =
+        "INSERT INTO prediction_minutes (model, version, minute, predictions) "
+        + "SELECT * FROM unnest($1::text[], $2::text[], $3::bigint[], $4::bigint[]) "
+        + "ON CONFLICT (model, version, minute) DO UPDATE SET predictions = prediction_minutes.predictions + excluded.predictions";
+
+    /// <summary>Copies every row or throws; on a throw the caller's transaction must be rolled back.</summary>
+    /// <exception cref="PostgresException">SQLSTATE 23505 on predictions_pkey: an id is already stored (or repeated).</exception>
+    public static async Task RunAsync(NpgsqlConnection connection, IReadOnlyList<PredictionRecord> batch, CancellationToken cancellationToken)
+    {
+        await using var importer = await connection.BeginBinaryImportAsync(CopySql, cancellationToken).ConfigureAwait(false);
+        foreach (var row in batch)
+        {
+            await importer.StartRowAsync(cancellationToken).ConfigureAwait(false);
+            await importer.WriteAsync(row.Id, NpgsqlDbType.Uuid, cancellationToken).ConfigureAwait(false);
+            await importer.WriteAsync(row.Model, NpgsqlDbType.Text, cancellationToken).ConfigureAwait(false);
+            await importer.WriteAsync(row.Version, NpgsqlDbType.Text, cancellationToken).ConfigureAwait(false);
+            await importer.WriteAsync(PostgresValues.ToText(row.Stage), NpgsqlDbType.Text, cancellationToken).ConfigureAwait(false);
+            await importer.WriteAsync(PostgresValues.ToTimestamp(row.ScoredAt), NpgsqlDbType.TimestampTz, cancellationToken).ConfigureAwait(false);
+            if (row.Key is null)
+            {
+                await importer.WriteNullAsync(cancellationToken).ConfigureAwait(false);
+            }
+            else
+            {
+                await importer.WriteAsync(row.Key, NpgsqlDbType.Text, cancellationToken).ConfigureAwait(false);
+            }
+
+            await importer.WriteAsync(row.Eta, NpgsqlDbType.Double, cancellationToken).ConfigureAwait(false);
+            await importer.WriteAsync(row.Probability, NpgsqlDbType.Double, cancellationToken).ConfigureAwait(false);
+            await importer.WriteAsync(row.FeaturesJson, NpgsqlDbType.Text, cancellationToken).ConfigureAwait(false);
+            if (row.LiveId is { } live)
+            {
+                await importer.WriteAsync(live, NpgsqlDbType.Uuid, cancellationToken).ConfigureAwait(false);
+            }
+            else
+            {
+                await importer.WriteNullAsync(cancellationToken).ConfigureAwait(false);
+            }
+        }
+
+        await importer.CompleteAsync(cancellationToken).ConfigureAwait(false);
+    }
+
+    /// <summary>The batch's rows counted by (model, version, minute), in ordinal order of the key, as four arrays.</summary>
+    public static (string[] Models, string[] Versions, long[] Minutes, long[] Counts) CountMinutes(IReadOnlyList<PredictionRecord> batch)
+    {
+        var counts = new Dictionary<(string Model, string Version, long Minute), long>();
+        foreach (var row in batch)
+        {
+            var key = (row.Model, row.Version, PostgresValues.Minute(row.ScoredAt));
+            counts[key] = counts.GetValueOrDefault(key) + 1;
+        }
+
+        var sorted = counts
+            .OrderBy(c => c.Key.Model, StringComparer.Ordinal)
+            .ThenBy(c => c.Key.Version, StringComparer.Ordinal)
+            .ThenBy(c => c.Key.Minute)
+            .ToArray();
+        return (
+            [.. sorted.Select(c => c.Key.Model)],
+            [.. sorted.Select(c => c.Key.Version)],
+            [.. sorted.Select(c => c.Key.Minute)],
+            [.. sorted.Select(c => c.Value)]);
+    }
+}

@@ -1,0 +1,124 @@
+using System.Globalization;
+using System.Text.Json;
+using Microsoft.Playwright;
+
+namespace Scorer.Page.Tests;
+
+/// <summary>
+/// The page against the real service: what it draws is what the monitor API reports, and it follows the service live.
+/// Every server here has no API keys (loopback).
+/// </summary>
+[Collection("browser")]
+public sealed class MonitorPageTests(BrowserFixture browser) : IAsyncLifetime
+{
+    private PageServer _server = null!;
+
+    public async Task InitializeAsync() => _server = await PageServer.StartAsync();
+
+    public async Task DisposeAsync() => await _server.DisposeAsync();
+
+    [Fact]
+    public async Task The_overview_lists_every_model_with_its_live_and_shadow_versions_status_traffic_and_last_change()
+    {
+        var scored = await _server.ScorePumpsAsync(400, seed: 1);
+        await _server.PostOutcomesAsync(scored, oddsRatio: 1, seed: 2);
+        await using var session = await browser.OpenAsync(_server.Url);
+        var page = session.Page;
+        await page.GotoAsync(_server.Url.ToString());
+        await session.WaitAsync($"() => document.querySelector('[data-model=\"{PageServer.Pumps}\"] tr[data-stage=\"live\"] td[data-labelled=\"400\"]') !== null");
+
+        var overview = await _server.GetJsonAsync("v1/overview");
+        foreach (var model in overview.GetProperty("models").EnumerateArray())
+        {
+            var name = model.GetProperty("model").GetString()!;
+            var card = page.Locator($"section[data-model=\"{name}\"]");
+            await Assertions.Expect(card.Locator("h2")).ToHaveTextAsync(name);
+            foreach (var version in model.GetProperty("versions").EnumerateArray())
+            {
+                var row = card.Locator($"tr[data-version=\"{version.GetProperty("version").GetString()}\"]");
+                await Assertions.Expect(row).ToHaveAttributeAsync("data-stage", version.GetProperty("stage").GetString()!);
+                var status = version.GetProperty("status").GetString()!;
+                await Assertions.Expect(row.Locator(".chip")).ToHaveAttributeAsync("data-status", status);
+                await Assertions.Expect(row.Locator(".chip")).ToHaveTextAsync(status == "in-tune" ? "fine" : status == "drifting" ? "watch" : status);
+                Assert.Equal(version.GetProperty("labelled").GetInt64().ToString(CultureInfo.InvariantCulture),
+                    await row.Locator("td[data-labelled]").GetAttributeAsync("data-labelled"));
+                Assert.Equal(version.GetProperty("events").GetInt64().ToString(CultureInfo.InvariantCulture),
+                    await row.Locator("td[data-events]").GetAttributeAsync("data-events"));
+                // The last change of status, with its reasons, as the overview API gives it.
+                var change = version.GetProperty("lastChange");
+                foreach (var reason in change.GetProperty("reasons").EnumerateArray())
+                {
+                    await Assertions.Expect(card).ToContainTextAsync(reason.GetString()!);
+                }
+            }
+        }
+
+        var pumps = page.Locator($"section[data-model=\"{PageServer.Pumps}\"]");
+        await Assertions.Expect(pumps.Locator($"tr[data-version=\"{PageServer.ShadowVersion}\"]")).ToHaveAttributeAsync("data-stage", "shadow");
+        await Assertions.Expect(pumps.Locator($"tr[data-version=\"{PageServer.LiveVersion}\"]")).ToContainTextAsync("400");
+        await session.ScreenshotAsync("overview");
+        Assert.Empty(session.Outside);
+        Assert.Empty(session.Errors);
+    }
+
+    [Fact]
+    public async Task The_reliability_diagram_draws_exactly_the_bins_the_monitor_api_reports()
+    {
+        var scored = await _server.ScorePumpsAsync(1500, seed: 3);
+        await _server.PostOutcomesAsync(scored, oddsRatio: 1, seed: 4);
+        var report = await _server.GetJsonAsync($"v1/models/{PageServer.Pumps}/monitor?window=all");
+        var labelled = report.GetProperty("labelled").GetInt64();
+        Assert.Equal(1500, labelled);
+
+        await using var session = await browser.OpenAsync(_server.Url);
+        var page = session.Page;
+        await page.GotoAsync(new Uri(_server.Url, $"models/{PageServer.Pumps}?window=all").ToString());
+        await session.WaitAsync($"() => document.querySelector('#chart-reliability svg[data-labelled=\"{labelled}\"]') !== null");
+        var marks = await page.Locator("#chart-reliability circle.bin").EvaluateAllAsync<string[][]>(
+            "els => els.map(e => [e.dataset.meanPredicted, e.dataset.observedRate, e.dataset.count])");
+        var bins = report.GetProperty("reliability").EnumerateArray().ToList();
+        Assert.True(bins.Count >= 3, $"only {bins.Count} bins");
+        Assert.Equal(bins.Count, marks.Length);
+        for (var i = 0; i < bins.Count; i++)
+        {
+            Assert.Equal(bins[i].GetProperty("meanPredicted").GetDouble(), double.Parse(marks[i][0], CultureInfo.InvariantCulture));
+            Assert.Equal(bins[i].GetProperty("observedRate").GetDouble(), double.Parse(marks[i][1], CultureInfo.InvariantCulture));
+            Assert.Equal(bins[i].GetProperty("count").GetInt32(), int.Parse(marks[i][2], CultureInfo.InvariantCulture));
+        }
+
+        // The key figures and the other charts are drawn too.
+        await Assertions.Expect(page.Locator("#figures")).ToContainTextAsync("1,500");
+        await Assertions.Expect(page.Locator("#chart-psi svg rect.bar").First).ToBeVisibleAsync();
+        await Assertions.Expect(page.Locator("#chart-cusum svg path.path-up")).ToBeVisibleAsync();
+        await Assertions.Expect(page.Locator("#chart-intercept svg circle.point").First).ToBeVisibleAsync();
+        await Assertions.Expect(page.Locator("#chart-auc svg circle.point").First).ToBeVisibleAsync();
+        await Assertions.Expect(page.Locator("#table-shadows tr[data-shadow=\"2026.12.1\"]")).ToBeVisibleAsync();
+        await session.ScreenshotAsync("model");
+        Assert.Empty(session.Outside);
+        Assert.Empty(session.Errors);
+    }
+
+    [Fact]
+    public async Task A_status_change_arrives_live_through_the_event_stream_after_miscalibrated_outcomes()
+    {
+        await using var session = await browser.OpenAsync(_server.Url);
+        var page = session.Page;
+        await page.GotoAsync(new Uri(_server.Url, $"models/{PageServer.Pumps}?window=all").ToString());
+        await Assertions.Expect(page.Locator("#status-slot .chip")).ToHaveAttributeAsync("data-status", "in-tune");
+        await page.EvaluateAsync("() => { window.__sameDocument = true; }");
+
+        // Outcomes with four times the odds the model gives: far more failures than predicted.
+        var scored = await _server.ScorePumpsAsync(1500, seed: 5);
+        await _server.PostOutcomesAsync(scored, oddsRatio: 4, seed: 6);
+
+        await Assertions.Expect(page.Locator("#change")).ToHaveAttributeAsync("data-to", "out-of-tune");
+        await Assertions.Expect(page.Locator("#change")).ToContainTextAsync("Status changed: fine →");
+        await Assertions.Expect(page.Locator("#status-slot .chip")).ToHaveAttributeAsync("data-status", "out-of-tune");
+        var report = await _server.GetJsonAsync($"v1/models/{PageServer.Pumps}/monitor?window=all");
+        Assert.Equal("out-of-tune", report.GetProperty("status").GetString());
+        await Assertions.Expect(page.Locator("#reasons")).ToContainTextAsync(report.GetProperty("reasons")[0].GetString()!);
+        Assert.True(await page.EvaluateAsync<bool>("() => window.__sameDocument === true"), "the page was reloaded instead of updated live");
+        await session.ScreenshotAsync("model-status-change");
+        Assert.Empty(session.Errors);
+    }
+}
