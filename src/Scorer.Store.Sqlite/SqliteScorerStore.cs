@@ -35,6 +35,7 @@ public sealed class SqliteScorerStore : IScorerStore
     private readonly string _connectionPragmas;
     private readonly TimeProvider _clock;
     private readonly SemaphoreSlim _writeLock = new(1, 1);
+    private readonly HashSet<string> _released = new(StringComparer.Ordinal);
     private volatile bool _disposed;
 
     private SqliteScorerStore(SqliteConnectionStringBuilder builder, TimeProvider clock)
@@ -935,6 +936,72 @@ public sealed class SqliteScorerStore : IScorerStore
 
         // Changes are numbered in commit order (NextChange), so every later commit carries a number above the last one read.
         return new LabelledChanges(points, last);
+    }
+
+    /// <inheritdoc />
+    /// <remarks>A SQLite file serves one process: every lease is this instance's until it is released or disposed.</remarks>
+    public Task<bool> TryHoldLeaseAsync(string name, CancellationToken cancellationToken = default)
+    {
+        ArgumentException.ThrowIfNullOrEmpty(name);
+        ObjectDisposedException.ThrowIf(_disposed, this);
+        lock (_released)
+        {
+            _released.Remove(name);
+        }
+
+        return Task.FromResult(true);
+    }
+
+    /// <inheritdoc />
+    public Task ReleaseLeaseAsync(string name, CancellationToken cancellationToken = default)
+    {
+        ArgumentException.ThrowIfNullOrEmpty(name);
+        lock (_released)
+        {
+            _released.Add(name);
+        }
+
+        return Task.CompletedTask;
+    }
+
+    /// <inheritdoc />
+    public Task SaveChartStateAsync(string model, string version, string state, string lease, CancellationToken cancellationToken = default)
+    {
+        ArgumentException.ThrowIfNullOrEmpty(model);
+        ArgumentException.ThrowIfNullOrEmpty(version);
+        ArgumentNullException.ThrowIfNull(state);
+        lock (_released)
+        {
+            if (_released.Contains(lease))
+            {
+                throw new LeaseLostException(lease);
+            }
+        }
+
+        var now = StoredValues.ToUnixMicroseconds(_clock.GetUtcNow());
+        return WriteAsync(
+            (connection, transaction) =>
+            {
+                using var save = Command(connection, transaction,
+                    "INSERT INTO chart_states (model, version, state, saved_at) VALUES ($model, $version, $state, $now) "
+                    + "ON CONFLICT (model, version) DO UPDATE SET state = excluded.state, saved_at = excluded.saved_at;");
+                save.Parameters.AddWithValue("$model", model);
+                save.Parameters.AddWithValue("$version", version);
+                save.Parameters.AddWithValue("$state", state);
+                save.Parameters.AddWithValue("$now", now);
+                return save.ExecuteNonQuery();
+            },
+            cancellationToken);
+    }
+
+    /// <inheritdoc />
+    public async Task<string?> GetChartStateAsync(string model, string version, CancellationToken cancellationToken = default)
+    {
+        await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
+        using var command = Command(connection, null, "SELECT state FROM chart_states WHERE model = $model AND version = $version;");
+        command.Parameters.AddWithValue("$model", model);
+        command.Parameters.AddWithValue("$version", version);
+        return command.ExecuteScalar() as string;
     }
 
     /// <summary>Takes the next outcome change number, inside the write transaction (see migration 0004).</summary>

@@ -78,6 +78,12 @@ public readonly record struct LabelledPoint(Guid Id, DateTimeOffset ScoredAt, do
 /// </summary>
 public sealed record LabelledChanges(IReadOnlyList<LabelledPoint> Points, long Cursor);
 
+/// <summary>A lease this instance relied on is held by another instance now (or by nobody); the work it guarded must stop.</summary>
+public sealed class LeaseLostException(string lease) : Exception($"The lease '{lease}' is no longer held by this instance.")
+{
+    public string Lease { get; } = lease;
+}
+
 /// <summary>
 /// The service's durable state. Every implementation (SQLite now, PostgreSQL later) passes the same contract tests.
 /// Methods are safe to call concurrently. Times are stored with at least millisecond precision, in UTC.
@@ -172,6 +178,27 @@ public interface IScorerStore : IAsyncDisposable
     /// or more, and the last time it sees a prediction it sees its current outcome.
     /// </summary>
     Task<LabelledChanges> GetLabelledChangesAsync(string model, string version, long cursor, CancellationToken cancellationToken = default);
+
+    /// <summary>
+    /// Tries to take, or confirms this instance still holds, the named lease: the right to run work that must run in one
+    /// process only among all that share the store (the monitor's CUSUM charts). True while this instance holds it. A
+    /// lease is held until <see cref="ReleaseLeaseAsync"/>, disposal, or the holder's death (then another instance's next
+    /// try takes it). A store that only one process uses may grant it always.
+    /// </summary>
+    Task<bool> TryHoldLeaseAsync(string name, CancellationToken cancellationToken = default);
+
+    /// <summary>Gives the named lease up, if this instance holds it.</summary>
+    Task ReleaseLeaseAsync(string name, CancellationToken cancellationToken = default);
+
+    /// <summary>
+    /// Saves the state of a version's charts (an opaque document), only while this instance holds the lease
+    /// <paramref name="lease"/>: a holder that has lost it gets <see cref="LeaseLostException"/> and nothing is written,
+    /// so a new holder's state is never overwritten by an old one.
+    /// </summary>
+    Task SaveChartStateAsync(string model, string version, string state, string lease, CancellationToken cancellationToken = default);
+
+    /// <summary>The last saved state of a version's charts, or null.</summary>
+    Task<string?> GetChartStateAsync(string model, string version, CancellationToken cancellationToken = default);
 
     /// <summary>The labelled predictions of a model (optionally one version) scored in [from, to), in prediction-time order (then id).</summary>
     Task<IReadOnlyList<LabelledPrediction>> GetLabelledAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to,

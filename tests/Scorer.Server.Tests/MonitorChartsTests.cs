@@ -150,4 +150,49 @@ public sealed class MonitorChartsTests : IDisposable
         Assert.Equal(HttpStatusCode.OK, response.StatusCode);
         return await response.Content.ReadAsStringAsync();
     }
+
+    [Fact]
+    public async Task After_a_restart_the_charts_continue_from_their_saved_state_not_from_a_replay()
+    {
+        string saved;
+        await using (var server = await StartPimaAsync())
+        {
+            await ScoreAndLabelAsync(server, flipped: true); // flipped outcomes: the upward chart signals
+            JsonElement report = default;
+            Assert.True(await Files.EventuallyAsync(async () =>
+            {
+                report = await GetJsonAsync(server, "/v1/models/pima/monitor?window=all");
+                return report.TryGetProperty("cusum", out var c) && c.TryGetProperty("up", out var up) && up.GetProperty("steps").GetInt64() == 332;
+            }, TimeSpan.FromSeconds(30)), report.ToString());
+            Assert.True(server.Service<Scorer.Monitor.Reporting.ChartRunner>().IsHolder);
+            Assert.NotEqual(0, report.GetProperty("cusum").GetProperty("up").GetProperty("signals").GetArrayLength());
+            var store = server.Service<IScorerStore>();
+            Assert.True(await Files.EventuallyAsync(async () => await store.GetChartStateAsync("pima", "r-logit") is not null, TimeSpan.FromSeconds(10)));
+            saved = (await store.GetChartStateAsync("pima", "r-logit"))!;
+        }
+
+        // Between the runs, the saved state is marked (the upward chart's value set to 1.25): a replay from the first
+        // outcome would not show the mark, a continuation does.
+        var state = JsonNode.Parse(saved)!;
+        state["up"]!["value"] = 1.25;
+        await using (var store = Scorer.Store.Sqlite.SqliteScorerStore.ForFile(_folder.Store))
+        {
+            await store.MigrateAsync();
+            Assert.True(await store.TryHoldLeaseAsync(Scorer.Monitor.Reporting.ChartRunner.Lease));
+            await store.SaveChartStateAsync("pima", "r-logit", state.ToJsonString(), Scorer.Monitor.Reporting.ChartRunner.Lease);
+        }
+
+        await using (var server = await StartPimaAsync())
+        {
+            JsonElement report = default;
+            Assert.True(await Files.EventuallyAsync(async () =>
+            {
+                report = await GetJsonAsync(server, "/v1/models/pima/monitor?window=all");
+                return report.TryGetProperty("cusum", out var c) && c.TryGetProperty("up", out _);
+            }, TimeSpan.FromSeconds(30)), report.ToString());
+            var up = report.GetProperty("cusum").GetProperty("up");
+            Assert.Equal(1.25, up.GetProperty("value").GetDouble());
+            Assert.Equal(332, up.GetProperty("steps").GetInt64());
+        }
+    }
 }

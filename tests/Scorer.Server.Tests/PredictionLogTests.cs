@@ -49,6 +49,10 @@ public sealed class PredictionLogTests : IDisposable
         public Task<IReadOnlyList<DriftCount>> GetDriftCountsAsync(string model, string version, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken = default) => inner.GetDriftCountsAsync(model, version, from, to, cancellationToken);
         public Task<IReadOnlyList<LabelledPrediction>> GetLabelledAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken = default) => inner.GetLabelledAsync(model, version, from, to, cancellationToken);
         public Task<LabelledChanges> GetLabelledChangesAsync(string model, string version, long cursor, CancellationToken cancellationToken = default) => inner.GetLabelledChangesAsync(model, version, cursor, cancellationToken);
+        public Task<bool> TryHoldLeaseAsync(string name, CancellationToken cancellationToken = default) => inner.TryHoldLeaseAsync(name, cancellationToken);
+        public Task ReleaseLeaseAsync(string name, CancellationToken cancellationToken = default) => inner.ReleaseLeaseAsync(name, cancellationToken);
+        public Task SaveChartStateAsync(string model, string version, string state, string lease, CancellationToken cancellationToken = default) => inner.SaveChartStateAsync(model, version, state, lease, cancellationToken);
+        public Task<string?> GetChartStateAsync(string model, string version, CancellationToken cancellationToken = default) => inner.GetChartStateAsync(model, version, cancellationToken);
         public Task<IReadOnlyList<PairedOutcome>> GetPairedAsync(string model, string liveVersion, string shadowVersion, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken = default) => inner.GetPairedAsync(model, liveVersion, shadowVersion, from, to, cancellationToken);
         public IAsyncEnumerable<LabelledRow> ReadLabelledRowsAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken = default) => inner.ReadLabelledRowsAsync(model, version, from, to, cancellationToken);
         public ValueTask DisposeAsync() => inner.DisposeAsync();

@@ -109,3 +109,35 @@ public abstract partial class StoreContractTests
         }
     }
 }
+
+/// <summary>Leases and the charts' saved state.</summary>
+public abstract partial class StoreContractTests
+{
+    [Fact]
+    public async Task A_chart_state_saved_under_a_held_lease_reads_back_and_is_replaced_by_the_next_save()
+    {
+        var store = await OpenAsync();
+        Assert.Null(await store.GetChartStateAsync(Renewal, "1"));
+        Assert.True(await store.TryHoldLeaseAsync("charts"));
+
+        await store.SaveChartStateAsync(Renewal, "1", "{\"steps\":1}", "charts");
+        await store.SaveChartStateAsync(Renewal, "1", "{\"steps\":2,\"é\":\"東京\"}", "charts");
+        await store.SaveChartStateAsync(Renewal, "2", "{\"steps\":9}", "charts");
+
+        Assert.Equal("{\"steps\":2,\"é\":\"東京\"}", await store.GetChartStateAsync(Renewal, "1"));
+        Assert.Equal("{\"steps\":9}", await (await OpenAsync()).GetChartStateAsync(Renewal, "2"));
+    }
+
+    [Fact]
+    public async Task A_released_lease_refuses_saves_and_can_be_taken_again()
+    {
+        var store = await OpenAsync();
+        Assert.True(await store.TryHoldLeaseAsync("charts"));
+        await store.ReleaseLeaseAsync("charts");
+
+        await Assert.ThrowsAsync<LeaseLostException>(() => store.SaveChartStateAsync(Renewal, "1", "{}", "charts"));
+        Assert.Null(await store.GetChartStateAsync(Renewal, "1"));
+        Assert.True(await store.TryHoldLeaseAsync("charts"));
+        await store.SaveChartStateAsync(Renewal, "1", "{}", "charts");
+    }
+}

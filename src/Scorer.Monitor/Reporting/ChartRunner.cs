@@ -1,4 +1,6 @@
 using System.Collections.Concurrent;
+using System.Text.Json;
+using System.Text.Json.Serialization;
 using Microsoft.Extensions.Logging;
 using Scorer.Monitor.Sequential;
 using Scorer.Monitor.Statistics;
@@ -29,9 +31,20 @@ public sealed record ChartsView(CusumView? Up, CusumView? Down, EwmaView Ewma, l
 /// and are set again when those probabilities shift.
 /// </summary>
 /// <remarks>
-/// State is kept in memory and rebuilt from the store's outcomes at start-up by the same walk, so it is the same after a
-/// restart as long as no outcome older than the frontier arrived meanwhile (such a late outcome is counted in the
-/// windows' statistics but not in a chart that has moved past it).
+/// <para>
+/// One process runs the charts among all that share the store: the holder of the store's lease
+/// <see cref="Lease"/> (a PostgreSQL advisory lock; with SQLite, the one process). After each catch-up that took
+/// outcomes in, the holder saves every changed version's chart state (values, thresholds, signals, the threshold
+/// sample and the walk's position) to the store, fenced by the lease, so a holder that lost the lease cannot overwrite
+/// its successor's state. Every other process reads the saved states each round and shows them; when the holder dies,
+/// the next to take the lease starts from the last saved state and walks on from its position: outcomes taken in after
+/// that save are taken in again by the new holder (the dead one's progress was never saved), none is taken twice in
+/// the saved state, none is skipped.
+/// </para>
+/// <para>
+/// A restart continues from the saved state. An outcome older than the frontier that arrives after the charts moved
+/// past it is counted in the windows' statistics but not in the charts.
+/// </para>
 /// </remarks>
 public sealed class ChartRunner(ModelRegistry registry, IScorerStore store, MonitorOptions options, TimeProvider time, ILogger<ChartRunner> logger)
 {
@@ -66,26 +79,72 @@ public sealed class ChartRunner(ModelRegistry registry, IScorerStore store, Moni
         while (await timer.WaitForNextTickAsync(cancellationToken).ConfigureAwait(false));
     }
 
-    /// <summary>One catch-up: implicit negatives first, then every version's charts up to its frontier.</summary>
+    /// <summary>The store lease whose holder runs the charts.</summary>
+    public const string Lease = "monitor-charts";
+
+    private bool _holder;
+
+    /// <summary>Whether this process ran the charts in its last round (it held <see cref="Lease"/>).</summary>
+    public bool IsHolder => Volatile.Read(ref _holder);
+
+    /// <summary>
+    /// One round. As the lease holder: implicit negatives first, then every version's charts up to its frontier, and
+    /// the changed states saved. Otherwise: every version's charts as the holder last saved them.
+    /// </summary>
     public async Task CatchUpAsync(CancellationToken cancellationToken = default)
     {
-        var now = time.GetUtcNow();
-        foreach (var entry in registry.Current.Models.Values)
+        var holds = await store.TryHoldLeaseAsync(Lease, cancellationToken).ConfigureAwait(false);
+        if (holds && !_holder)
         {
-            var outcome = entry.Versions.Length > 0 ? entry.Versions[^1].Document.Outcome : null;
-            var horizon = outcome?.HorizonSpan ?? TimeSpan.Zero;
-            if (outcome?.Negatives == NegativesPolicy.Implicit && horizon > TimeSpan.Zero)
+            logger.LogInformation("This process now runs the monitor's charts (lease {Lease}); continuing from their saved states", Lease);
+        }
+        else if (!holds && _holder)
+        {
+            logger.LogWarning("Another process runs the monitor's charts now (lease {Lease})", Lease);
+        }
+
+        var becameHolder = holds && !_holder;
+        Volatile.Write(ref _holder, holds);
+        if (!holds)
+        {
+            await FollowAsync(cancellationToken).ConfigureAwait(false);
+            return;
+        }
+
+        if (becameHolder)
+        {
+            await FollowAsync(cancellationToken).ConfigureAwait(false); // start from what the previous holder saved
+        }
+
+        var now = time.GetUtcNow();
+        try
+        {
+            foreach (var entry in registry.Current.Models.Values)
             {
-                while (await store.RecordImplicitNegativesAsync(entry.Name, now - horizon, now, 10_000, cancellationToken).ConfigureAwait(false) == 10_000)
+                var outcome = entry.Versions.Length > 0 ? entry.Versions[^1].Document.Outcome : null;
+                var horizon = outcome?.HorizonSpan ?? TimeSpan.Zero;
+                if (outcome?.Negatives == NegativesPolicy.Implicit && horizon > TimeSpan.Zero)
                 {
+                    while (await store.RecordImplicitNegativesAsync(entry.Name, now - horizon, now, 10_000, cancellationToken).ConfigureAwait(false) == 10_000)
+                    {
+                    }
+                }
+
+                foreach (var version in entry.Versions.Where(v => v.Stage != Stage.Retired))
+                {
+                    var charts = _charts.GetOrAdd((entry.Name, version.Version), _ => new VersionCharts(options));
+                    if (await charts.CatchUpAsync(store, entry.Name, version.Version, now - horizon, cancellationToken, OnSignal).ConfigureAwait(false))
+                    {
+                        await store.SaveChartStateAsync(entry.Name, version.Version, charts.SaveState(), Lease, cancellationToken).ConfigureAwait(false);
+                    }
                 }
             }
-
-            foreach (var version in entry.Versions.Where(v => v.Stage != Stage.Retired))
-            {
-                var charts = _charts.GetOrAdd((entry.Name, version.Version), _ => new VersionCharts(options));
-                await charts.CatchUpAsync(store, entry.Name, version.Version, now - horizon, cancellationToken, OnSignal).ConfigureAwait(false);
-            }
+        }
+        catch (LeaseLostException)
+        {
+            logger.LogWarning("The lease {Lease} was lost while saving the charts; another process runs them now", Lease);
+            Volatile.Write(ref _holder, false);
+            await FollowAsync(cancellationToken).ConfigureAwait(false);
         }
 
         void OnSignal(string model, string version, string chart, ChartSignal signal)
@@ -96,15 +155,76 @@ public sealed class ChartRunner(ModelRegistry registry, IScorerStore store, Moni
         }
     }
 
+    /// <summary>Replaces every version's charts by the state the holder last saved; raises <see cref="Signalled"/> for signals new to this process.</summary>
+    private async Task FollowAsync(CancellationToken cancellationToken)
+    {
+        foreach (var version in registry.Current.Models.Values.SelectMany(m => m.Versions).Where(v => v.Stage != Stage.Retired))
+        {
+            var saved = await store.GetChartStateAsync(version.Model, version.Version, cancellationToken).ConfigureAwait(false);
+            if (saved is null)
+            {
+                continue;
+            }
+
+            var key = (version.Model, version.Version);
+            var before = _charts.TryGetValue(key, out var previous) ? previous.View() : null;
+            var charts = VersionCharts.Restore(options, saved);
+            _charts[key] = charts;
+            var after = charts.View();
+            Announce("up", before?.Up?.Signals.Count ?? 0, after.Up);
+            Announce("down", before?.Down?.Signals.Count ?? 0, after.Down);
+
+            void Announce(string chart, int seen, CusumView? view)
+            {
+                if (view is null || previous is null)
+                {
+                    return; // a process that just started does not announce the history again
+                }
+
+                foreach (var signal in view.Signals.Skip(seen))
+                {
+                    Signalled?.Invoke(version.Model, version.Version, chart, signal);
+                }
+            }
+        }
+    }
+
+    /// <summary>What a version's charts save: everything needed to continue exactly where they were.</summary>
+    internal sealed record ChartsState(
+        CusumState? Up,
+        CusumState? Down,
+        ThresholdChoice? UpChoice,
+        ThresholdChoice? DownChoice,
+        EwmaState Ewma,
+        double[] Recent,
+        PendingOutcome[] Pending,
+        ChartSignal[] UpSignals,
+        ChartSignal[] DownSignals,
+        double[] SampleEdges,
+        double[] SampleProportions,
+        DateTimeOffset CursorTime,
+        Guid CursorId,
+        long Outcomes,
+        long SinceCheck);
+
+    /// <summary>An outcome taken in before the charts had enough to set their thresholds.</summary>
+    internal readonly record struct PendingOutcome(double P, byte Y, DateTimeOffset At, Guid Id);
+
+    private static readonly JsonSerializerOptions StateJson = new()
+    {
+        NumberHandling = JsonNumberHandling.AllowNamedFloatingPointLiterals,
+        PropertyNamingPolicy = JsonNamingPolicy.CamelCase,
+    };
+
     /// <summary>The charts of one version and the walk's position.</summary>
     private sealed class VersionCharts(MonitorOptions options)
     {
         private readonly Lock _lock = new();
-        private readonly List<(double P, byte Y, DateTimeOffset At, Guid Id)> _pending = [];
+        private readonly List<PendingOutcome> _pending = [];
         private readonly Queue<double> _recent = new();
         private readonly List<ChartSignal> _upSignals = [];
         private readonly List<ChartSignal> _downSignals = [];
-        private readonly ObservedExpectedEwma _ewma = new(options.EwmaLambda, options.EwmaLimit);
+        private ObservedExpectedEwma _ewma = new(options.EwmaLambda, options.EwmaLimit);
         private RiskAdjustedCusum? _up;
         private RiskAdjustedCusum? _down;
         private ThresholdChoice? _upChoice;
@@ -134,13 +254,56 @@ public sealed class ChartRunner(ModelRegistry registry, IScorerStore store, Moni
             ? null
             : new CusumView(chart.OddsRatio, chart.Value, chart.Threshold, choice.InControlRunLength, choice.DetectionDelay, chart.Steps, [.. signals]);
 
-        public async Task CatchUpAsync(IScorerStore store, string model, string version, DateTimeOffset frontier, CancellationToken cancellationToken,
+        /// <summary>Saves the charts as JSON (<see cref="ChartsState"/>): doubles round-trip exactly.</summary>
+        public string SaveState()
+        {
+            lock (_lock)
+            {
+                var state = new ChartsState(_up?.Save(), _down?.Save(), _upChoice, _downChoice, _ewma.Save(), [.. _recent], [.. _pending], [.. _upSignals],
+                    [.. _downSignals], _sampleEdges, _sampleProportions, _cursorTime, _cursorId, _outcomes, _sinceCheck);
+                return JsonSerializer.Serialize(state, StateJson);
+            }
+        }
+
+        /// <summary>Charts that continue from a saved state.</summary>
+        public static VersionCharts Restore(MonitorOptions options, string json)
+        {
+            var state = JsonSerializer.Deserialize<ChartsState>(json, StateJson) ?? throw new JsonException("The saved chart state is empty.");
+            var charts = new VersionCharts(options)
+            {
+                _up = state.Up is { } up ? RiskAdjustedCusum.Restore(up) : null,
+                _down = state.Down is { } down ? RiskAdjustedCusum.Restore(down) : null,
+                _upChoice = state.UpChoice,
+                _downChoice = state.DownChoice,
+                _ewma = ObservedExpectedEwma.Restore(state.Ewma),
+                _sampleEdges = state.SampleEdges,
+                _sampleProportions = state.SampleProportions,
+                _cursorTime = state.CursorTime,
+                _cursorId = state.CursorId,
+                _outcomes = state.Outcomes,
+                _sinceCheck = state.SinceCheck,
+            };
+            foreach (var p in state.Recent)
+            {
+                charts._recent.Enqueue(p);
+            }
+
+            charts._pending.AddRange(state.Pending);
+            charts._upSignals.AddRange(state.UpSignals);
+            charts._downSignals.AddRange(state.DownSignals);
+            return charts;
+        }
+
+        /// <summary>Takes in the matured outcomes after the walk's position; true when it took any.</summary>
+        public async Task<bool> CatchUpAsync(IScorerStore store, string model, string version, DateTimeOffset frontier, CancellationToken cancellationToken,
             Action<string, string, string, ChartSignal> onSignal)
         {
             if (frontier <= _cursorTime)
             {
-                return;
+                return false;
             }
+
+            var took = false;
 
             var rows = await store.GetLabelledAsync(model, version, _cursorTime, frontier, cancellationToken).ConfigureAwait(false);
             foreach (var row in rows)
@@ -153,7 +316,10 @@ public sealed class ChartRunner(ModelRegistry registry, IScorerStore store, Moni
                 Take(model, version, row.Probability, row.Outcome, row.ScoredAt, row.Id, onSignal);
                 _cursorTime = row.ScoredAt;
                 _cursorId = row.Id;
+                took = true;
             }
+
+            return took;
         }
 
         private void Take(string model, string version, double p, byte y, DateTimeOffset at, Guid id, Action<string, string, string, ChartSignal> onSignal)
@@ -170,14 +336,14 @@ public sealed class ChartRunner(ModelRegistry registry, IScorerStore store, Moni
 
                 if (_up is null)
                 {
-                    _pending.Add((p, y, at, id));
+                    _pending.Add(new PendingOutcome(p, y, at, id));
                     if (_pending.Count < options.CusumMinSample)
                     {
                         return;
                     }
 
                     SetThresholds();
-                    foreach (var (pp, yy, tt, ii) in _pending)
+                    foreach (var (pp, yy, tt, ii) in _pending.ToArray())
                     {
                         Step(model, version, pp, yy, tt, ii, onSignal);
                     }
