@@ -166,12 +166,62 @@ public sealed class ModelRegistry(RegistryOptions options, IScorerStore store, T
         }
     }
 
+    /// <summary>
+    /// Reads the stages from the store, where another process sharing it may have changed them, and publishes a new
+    /// snapshot when any loaded version's stage differs. Returns whether it did.
+    /// </summary>
+    public async Task<bool> RefreshStagesAsync(CancellationToken cancellationToken = default)
+    {
+        await _gate.WaitAsync(cancellationToken).ConfigureAwait(false);
+        try
+        {
+            var changed = await ApplyStoredStagesAsync(cancellationToken).ConfigureAwait(false);
+            if (changed)
+            {
+                Publish();
+            }
+
+            return changed;
+        }
+        finally
+        {
+            _gate.Release();
+        }
+    }
+
+    /// <summary>Takes the store's stages (under the gate); true when a loaded version's stage changed.</summary>
+    private async Task<bool> ApplyStoredStagesAsync(CancellationToken cancellationToken)
+    {
+        var stored = await store.GetVersionsAsync(cancellationToken).ConfigureAwait(false);
+        var changed = false;
+        foreach (var record in stored)
+        {
+            var key = (record.Model, record.Version);
+            _stages[key] = record.Stage;
+            if (_versions.TryGetValue(key, out var loaded) && loaded.Stage != record.Stage)
+            {
+                logger.LogInformation("Stage of {Model} {Version}: {From} -> {To} (changed by another process sharing the store)", record.Model, record.Version,
+                    loaded.Stage, record.Stage);
+                _versions[key] = loaded with { Stage = record.Stage };
+                changed = true;
+            }
+        }
+
+        return changed;
+    }
+
     /// <summary>Moves a version to a stage; promoting to live retires the previous live version. Returns the changes made.</summary>
     public async Task<IReadOnlyList<StageChange>> SetStageAsync(string model, string version, Stage stage, string actor, CancellationToken cancellationToken = default)
     {
         await _gate.WaitAsync(cancellationToken).ConfigureAwait(false);
         try
         {
+            // Start from the stored stages: another process sharing the store may have moved a version since.
+            if (await ApplyStoredStagesAsync(cancellationToken).ConfigureAwait(false))
+            {
+                Publish();
+            }
+
             var entry = Current.Find(model) ?? throw new RegistryException("model", $"no model '{model}' is loaded", notFound: true);
             var target = entry.Find(version) ?? throw new RegistryException("version",
                 $"model '{model}' has no version '{version}' (loaded: {string.Join(", ", entry.Versions.Select(v => v.Version))})", notFound: true);

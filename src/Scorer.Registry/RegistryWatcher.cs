@@ -5,6 +5,8 @@ namespace Scorer.Registry;
 /// <summary>
 /// Keeps the registry in step with its folder: a file watcher triggers a reload at once, and a periodic rescan catches
 /// what watchers miss (network volumes, ConfigMap symlink swaps). New or changed files serve within the rescan interval.
+/// Each turn also reads the stages from the store, so a stage change made by another process sharing the store is
+/// served within the rescan interval; <see cref="Poke"/> starts a turn at once (a store notification calls it).
 /// </summary>
 public sealed class RegistryWatcher(ModelRegistry registry, RegistryOptions options, TimeProvider time, ILogger<RegistryWatcher> logger) : IAsyncDisposable
 {
@@ -54,7 +56,8 @@ public sealed class RegistryWatcher(ModelRegistry registry, RegistryOptions opti
         _stop.Dispose();
     }
 
-    private void Poke()
+    /// <summary>Starts a turn now (folder and stages), e.g. when the store says another process changed a stage.</summary>
+    public void Poke()
     {
         if (_poke.CurrentCount == 0)
         {
@@ -73,11 +76,12 @@ public sealed class RegistryWatcher(ModelRegistry registry, RegistryOptions opti
         while (!stop.IsCancellationRequested)
         {
             await _poke.WaitAsync(RescanInterval, stop).ConfigureAwait(false);
-
-            // Let a writer finish the file before reading it.
-            await Task.Delay(TimeSpan.FromMilliseconds(100), time, stop).ConfigureAwait(false);
             try
             {
+                // Stages first (another process sharing the store may have promoted a version), then the folder, after
+                // letting a writer finish the file it is writing.
+                await registry.RefreshStagesAsync(stop).ConfigureAwait(false);
+                await Task.Delay(TimeSpan.FromMilliseconds(100), time, stop).ConfigureAwait(false);
                 await registry.ReloadAsync(stop).ConfigureAwait(false);
             }
             catch (OperationCanceledException) when (stop.IsCancellationRequested)

@@ -10,8 +10,8 @@ public sealed class ScorerOptions
     /// <summary>Folder of model files. Default <c>models</c> (seeded with the demo models when missing).</summary>
     public string ModelsPath { get; set; } = "models";
 
-    /// <summary>SQLite database file or connection string. Default <c>data/scorer.db</c>.</summary>
-    public string Store { get; set; } = Path.Combine("data", "scorer.db");
+    /// <summary>Where the durable state is kept: SQLite (default, <c>data/scorer.db</c>) or PostgreSQL.</summary>
+    public StoreOptions Store { get; set; } = new();
 
     /// <summary>REST (HTTP/1.1 and HTTP/2) and the page. Default <c>127.0.0.1:8080</c>.</summary>
     public string Http { get; set; } = "127.0.0.1:8080";
@@ -71,10 +71,7 @@ public sealed class ScorerOptions
             problems.Add("Scorer:ModelsPath is empty; name the folder of model files");
         }
 
-        if (string.IsNullOrWhiteSpace(Store))
-        {
-            problems.Add("Scorer:Store is empty; name a SQLite file or connection string");
-        }
+        problems.AddRange(Store.Validate());
 
         if (LogFormat is not ("auto" or "text" or "json"))
         {
@@ -153,4 +150,60 @@ public sealed class ScorerOptions
         problems?.Add($"{name} is '{text}'; give HOST:PORT with an IP address, e.g. 127.0.0.1:8080 or 0.0.0.0:8080");
         return null;
     }
+}
+
+/// <summary>The store's settings (<c>Scorer:Store</c>).</summary>
+public sealed class StoreOptions
+{
+    /// <summary><c>sqlite</c> (default: one process, a file) or <c>postgres</c> (replicas sharing one database).</summary>
+    public string Kind { get; set; } = "sqlite";
+
+    /// <summary>The SQLite file. Default <c>data/scorer.db</c>.</summary>
+    public string Path { get; set; } = System.IO.Path.Combine("data", "scorer.db");
+
+    /// <summary>The PostgreSQL connection string (Npgsql form: <c>Host=…;Port=…;Username=…;Password=…;Database=…</c>).</summary>
+    public string? ConnectionString { get; set; }
+
+    /// <summary>PostgreSQL: the schema of the store's tables (default: the connection's search path, normally <c>public</c>).</summary>
+    public string? Schema { get; set; }
+
+    /// <summary>
+    /// PostgreSQL: how long logged predictions are kept (default: forever). Older ones are deleted hourly once their
+    /// outcome is recorded or no longer expected; the rest are kept and counted in the log.
+    /// </summary>
+    public TimeSpan? PredictionRetention { get; set; }
+
+    public IEnumerable<string> Validate()
+    {
+        switch (Kind)
+        {
+            case "sqlite":
+                if (string.IsNullOrWhiteSpace(Path))
+                {
+                    yield return "Scorer:Store:Path is empty; name the SQLite file";
+                }
+
+                break;
+            case "postgres":
+                if (string.IsNullOrWhiteSpace(ConnectionString))
+                {
+                    yield return "Scorer:Store:ConnectionString is empty; Scorer:Store:Kind postgres needs a connection string";
+                }
+
+                break;
+            default:
+                yield return $"Scorer:Store:Kind is '{Kind}'; give sqlite or postgres";
+                break;
+        }
+
+        if (PredictionRetention is { } retention && retention <= TimeSpan.Zero)
+        {
+            yield return $"Scorer:Store:PredictionRetention is {retention}; give a positive time span, or leave it out to keep predictions";
+        }
+    }
+
+    /// <summary>Where the store is, for the start-up log line (never the password).</summary>
+    public string Describe() => Kind == "postgres"
+        ? "PostgreSQL " + new Npgsql.NpgsqlConnectionStringBuilder(ConnectionString) { Password = null }.ConnectionString + (Schema is null ? "" : $", schema {Schema}")
+        : "SQLite " + System.IO.Path.GetFullPath(Path);
 }

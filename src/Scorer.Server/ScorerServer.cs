@@ -17,7 +17,9 @@ public static class ScorerServer
     private static readonly Dictionary<string, string> Switches = new(StringComparer.Ordinal)
     {
         ["--models"] = "Scorer:ModelsPath",
-        ["--store"] = "Scorer:Store",
+        ["--store"] = "Scorer:Store:Path",
+        ["--store-kind"] = "Scorer:Store:Kind",
+        ["--store-connection"] = "Scorer:Store:ConnectionString",
         ["--http"] = "Scorer:Http",
         ["--grpc"] = "Scorer:Grpc",
     };
@@ -85,7 +87,10 @@ public static class ScorerServer
         });
         builder.Services.AddSingleton(options);
         builder.Services.AddSingleton(TimeProvider.System);
-        builder.Services.AddSingleton<IScorerStore>(_ => SqliteScorerStore.ForFile(options.Store));
+        builder.Services.AddSingleton<IScorerStore>(_ => options.Store.Kind == "postgres"
+            ? Scorer.Store.Postgres.PostgresScorerStore.ForConnectionString(options.Store.ConnectionString!,
+                new Scorer.Store.Postgres.PostgresStoreOptions { Schema = options.Store.Schema, PredictionRetention = options.Store.PredictionRetention })
+            : SqliteScorerStore.ForFile(options.Store.Path));
         builder.Services.AddSingleton(new RegistryOptions { ModelsPath = options.ModelsPath });
         builder.Services.AddSingleton<ModelRegistry>();
         builder.Services.AddSingleton(sp => new RegistryWatcher(sp.GetRequiredService<ModelRegistry>(), sp.GetRequiredService<RegistryOptions>(),
@@ -248,7 +253,7 @@ public static class ScorerServer
         await store.MigrateAsync().ConfigureAwait(false);
         var snapshot = await app.Services.GetRequiredService<ModelRegistry>().ReloadAsync().ConfigureAwait(false);
         logger.LogInformation("REST on http://{Http}, gRPC (h2c) on http://{Grpc}; store {Store}; models from {Models}",
-            options.Http, options.Grpc, options.Store, Path.GetFullPath(options.ModelsPath));
+            options.Http, options.Grpc, options.Store.Describe(), Path.GetFullPath(options.ModelsPath));
         foreach (var version in snapshot.Models.Values.SelectMany(m => m.Versions))
         {
             logger.LogInformation("Loaded {Model} {Version} ({Stage})", version.Model, version.Version, ModelsService.StageName(version.Stage));

@@ -204,3 +204,17 @@ public interface IScorerStore : IAsyncDisposable
     Task<IReadOnlyList<LabelledPrediction>> GetLabelledAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to,
         CancellationToken cancellationToken = default);
 }
+
+/// <summary>
+/// A store shared by several processes that can tell each of them at once when one of them changed the stages
+/// (PostgreSQL: LISTEN/NOTIFY). Stores without it are polled (every registry rescan).
+/// </summary>
+public interface IStageChangeSignal
+{
+    /// <summary>
+    /// Calls <paramref name="changed"/> (on a background thread, with the model's name) each time any process sharing
+    /// the store commits a stage change, until cancelled. Reconnects after a lost connection, and then calls
+    /// <paramref name="changed"/> with null, since changes may have been missed meanwhile.
+    /// </summary>
+    Task ListenForStageChangesAsync(Action<string?> changed, CancellationToken cancellationToken);
+}

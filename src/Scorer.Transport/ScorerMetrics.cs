@@ -11,7 +11,8 @@ namespace Scorer.Transport;
 /// </summary>
 public sealed class ScorerMetrics
 {
-    public ScorerMetrics(ModelRegistry registry, PredictionLog log, ShadowScorer shadows, Scorer.Monitor.Reporting.MonitorLoop monitor)
+    public ScorerMetrics(ModelRegistry registry, PredictionLog log, ShadowScorer shadows, Scorer.Monitor.Reporting.MonitorLoop monitor,
+        Scorer.Monitor.Reporting.ChartRunner charts)
     {
         Registry = Metrics.NewCustomRegistry();
         var factory = Metrics.WithCustomRegistry(Registry);
@@ -49,8 +50,11 @@ public sealed class ScorerMetrics
         var cusumThreshold = factory.CreateGauge("scorer_monitor_cusum_threshold", "CUSUM threshold, by chart.", "model", "version", "chart");
         var cusumSignals = factory.CreateGauge("scorer_monitor_cusum_signals", "CUSUM signals since start, by chart.", "model", "version", "chart");
         var status = factory.CreateGauge("scorer_monitor_status", "Status of the version: 0 in-tune, 1 drifting, 2 out-of-tune.", "model", "version");
+        var chartsHolder = factory.CreateGauge("scorer_monitor_charts_holder",
+            "1 when this process runs the CUSUM charts (holds the store's charts lease), 0 when another process sharing the store does.");
         Registry.AddBeforeCollectCallback(() =>
         {
+            chartsHolder.Set(charts.IsHolder ? 1 : 0);
             foreach (var s in monitor.Latest)
             {
                 string[] l = [s.Version.Model, s.Version.Version, s.Window];
