@@ -4,12 +4,26 @@ using Scorer.Store;
 
 namespace Scorer.Server;
 
-/// <summary>Ready when models are loaded, the store answers, and the prediction log is not overflowing.</summary>
+/// <summary>
+/// Ready when models are loaded and the prediction log is not close to its bound. A store that does not answer makes
+/// the service degraded, not unready: scoring goes on (the log keeps the rows, up to its bound, and writes them when
+/// the store is back), while outcome reports and stage changes are refused, since they are acknowledged only once
+/// stored. Only when the log nears its bound does readiness fail, so that traffic moves to replicas that can keep
+/// their rows.
+/// </summary>
 internal sealed class ReadinessCheck(ModelRegistry registry, IScorerStore store, PredictionLog log) : IHealthCheck
 {
     public async Task<(bool Ready, IReadOnlyList<string> Reasons)> EvaluateAsync(CancellationToken cancellationToken = default)
     {
+        var (ready, _, reasons) = await CheckAsync(cancellationToken).ConfigureAwait(false);
+        return (ready, reasons);
+    }
+
+    /// <summary>Ready or not, degraded or not, and the reasons of either.</summary>
+    public async Task<(bool Ready, bool Degraded, IReadOnlyList<string> Reasons)> CheckAsync(CancellationToken cancellationToken = default)
+    {
         var reasons = new List<string>();
+        var degraded = false;
         if (registry.Current.Generation == 0)
         {
             reasons.Add("models not loaded yet");
@@ -27,20 +41,25 @@ internal sealed class ReadinessCheck(ModelRegistry registry, IScorerStore store,
         catch (Exception ex)
 #pragma warning restore CA1031
         {
-            reasons.Add("store unreachable: " + ex.Message);
+            reasons.Add("degraded: store unreachable (scoring goes on, rows wait in the prediction log; outcomes and stage changes are refused): " + ex.Message);
+            degraded = true;
         }
 
+        var ready = reasons.Count == (degraded ? 1 : 0);
         if (log.Enabled && log.Depth >= log.Capacity * 0.9)
         {
             reasons.Add($"prediction log nearly full ({log.Depth} of {log.Capacity} rows waiting)");
+            ready = false;
         }
 
-        return (reasons.Count == 0, reasons);
+        return (ready, degraded, reasons);
     }
 
     public async Task<HealthCheckResult> CheckHealthAsync(HealthCheckContext context, CancellationToken cancellationToken = default)
     {
-        var (ready, reasons) = await EvaluateAsync(cancellationToken).ConfigureAwait(false);
-        return ready ? HealthCheckResult.Healthy() : HealthCheckResult.Unhealthy(string.Join("; ", reasons));
+        var (ready, degraded, reasons) = await CheckAsync(cancellationToken).ConfigureAwait(false);
+        return !ready ? HealthCheckResult.Unhealthy(string.Join("; ", reasons))
+            : degraded ? HealthCheckResult.Degraded(string.Join("; ", reasons))
+            : HealthCheckResult.Healthy();
     }
 }

@@ -232,8 +232,9 @@ public static class ScorerServer
         app.MapGet("/healthz", () => Results.Text("ok\n"));
         app.MapGet("/readyz", async ([Microsoft.AspNetCore.Mvc.FromServices] ReadinessCheck check) =>
         {
-            var (ready, reasons) = await check.EvaluateAsync().ConfigureAwait(false);
-            return Results.Text(ready ? "ready\n" : string.Join('\n', reasons) + "\n", statusCode: ready ? 200 : 503);
+            // 200 "ready", 200 with the reasons when degraded (the store does not answer; scoring goes on), 503 otherwise.
+            var (ready, _, reasons) = await check.CheckAsync().ConfigureAwait(false);
+            return Results.Text(reasons.Count == 0 ? "ready\n" : string.Join('\n', reasons) + "\n", statusCode: ready ? 200 : 503);
         });
 
         await PrepareAsync(app, options).ConfigureAwait(false);
