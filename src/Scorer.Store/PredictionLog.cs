@@ -155,11 +155,20 @@ public sealed class PredictionLog : IAsyncDisposable
     private async Task WriteWithRetryAsync(List<PredictionRecord> batch)
     {
         var delay = TimeSpan.FromMilliseconds(100);
+        var failed = false;
         while (true)
         {
             var started = Stopwatch.GetTimestamp();
             try
             {
+                // A batch is written all or nothing. After a failure the store may still have committed it (the reply
+                // was lost): then its first row is there, and writing it again would only fail on the stored ids.
+                if (failed && await _store.GetPredictionAsync(batch[0].Id, _abort.Token).ConfigureAwait(false) is not null)
+                {
+                    Interlocked.Add(ref _written, batch.Count);
+                    return;
+                }
+
                 await _store.WritePredictionsAsync(batch, _abort.Token).ConfigureAwait(false);
                 Interlocked.Exchange(ref _lastBatchTicks, Stopwatch.GetElapsedTime(started).Ticks);
                 Interlocked.Add(ref _written, batch.Count);
@@ -174,6 +183,7 @@ public sealed class PredictionLog : IAsyncDisposable
 #pragma warning restore CA1031
             {
                 Interlocked.Increment(ref _failedWrites);
+                failed = true;
                 _logger.LogError(ex, "Writing {Rows} predictions failed; retrying in {Delay}", batch.Count, delay);
                 await Task.Delay(delay, _abort.Token).ConfigureAwait(false);
                 delay = TimeSpan.FromTicks(Math.Min(delay.Ticks * 2, TimeSpan.FromSeconds(5).Ticks));

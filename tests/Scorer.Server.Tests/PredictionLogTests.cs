@@ -16,6 +16,7 @@ public sealed class PredictionLogTests : IDisposable
     {
         public SemaphoreSlim Gate { get; } = new(0, int.MaxValue);
         public int FailuresLeft { get; set; }
+        public int LostRepliesLeft { get; set; }
         public bool Held { get; set; }
 
         public async Task WritePredictionsAsync(IReadOnlyList<PredictionRecord> batch, CancellationToken cancellationToken = default)
@@ -32,6 +33,11 @@ public sealed class PredictionLogTests : IDisposable
             }
 
             await inner.WritePredictionsAsync(batch, cancellationToken);
+            if (LostRepliesLeft > 0)
+            {
+                LostRepliesLeft--;
+                throw new IOException("connection lost after the commit (test)");
+            }
         }
 
         public Task MigrateAsync(CancellationToken cancellationToken = default) => inner.MigrateAsync(cancellationToken);
@@ -102,6 +108,24 @@ public sealed class PredictionLogTests : IDisposable
 
         await log.StopAsync();
         Assert.Equal(3, log.FailedWrites);
+        Assert.Equal(0, log.Dropped);
+        Assert.Equal(500, await store.CountPredictionsAsync("m"));
+        await store.DisposeAsync();
+    }
+
+    [Fact]
+    public async Task A_batch_committed_whose_reply_was_lost_is_not_written_again_and_the_log_goes_on()
+    {
+        var store = await StoreAsync();
+        store.LostRepliesLeft = 2;
+        var log = new PredictionLog(store, new PredictionLogOptions { MaxBatch = 50, MaxDelay = TimeSpan.FromMilliseconds(1) }, NullLogger<PredictionLog>.Instance);
+        for (var i = 0; i < 500; i++)
+        {
+            Assert.True(log.TryEnqueue(Row(i)));
+        }
+
+        await log.StopAsync();
+        Assert.Equal(2, log.FailedWrites); // one failure per lost reply: the retry finds the batch stored and moves on
         Assert.Equal(0, log.Dropped);
         Assert.Equal(500, await store.CountPredictionsAsync("m"));
         await store.DisposeAsync();
