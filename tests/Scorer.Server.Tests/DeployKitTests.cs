@@ -631,11 +631,14 @@ public sealed class DeployKitTests : IDisposable
         var port = server.Http.BaseAddress!.Port.ToString(CultureInfo.InvariantCulture);
 
         // As in the image: the setting names every address of the container; the probe asks loopback.
-        var healthy = await DeployKit.RunAsync(dotnet, [probe], "the .NET runtime", new Dictionary<string, string> { ["Scorer__Http"] = "0.0.0.0:" + port });
+        // A generous timeout here: the test machine runs other test assemblies at the same time.
+        var healthy = await DeployKit.RunAsync(dotnet, [probe], "the .NET runtime",
+            new Dictionary<string, string> { ["Scorer__Http"] = "0.0.0.0:" + port, ["SCORER_PROBE_TIMEOUT_SECONDS"] = "30" });
         Assert.True(healthy.ExitCode == 0, healthy.Output);
         Assert.Contains("/healthz answered 200", healthy.Stdout, StringComparison.Ordinal);
 
-        var missingPath = await DeployKit.RunAsync(dotnet, [probe, $"http://127.0.0.1:{port}/no-such-path"], "the .NET runtime");
+        var missingPath = await DeployKit.RunAsync(dotnet, [probe, $"http://127.0.0.1:{port}/no-such-path"], "the .NET runtime",
+            new Dictionary<string, string> { ["SCORER_PROBE_TIMEOUT_SECONDS"] = "30" });
         Assert.Equal(1, missingPath.ExitCode);
         Assert.Contains("answered 404", missingPath.Stderr, StringComparison.Ordinal);
 

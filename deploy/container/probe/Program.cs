@@ -29,7 +29,9 @@ public static class Program
             return 1;
         }
 
-        using var client = new HttpClient { Timeout = TimeSpan.FromSeconds(3) };
+        // 3 s by default (within the image's HEALTHCHECK timeout); SCORER_PROBE_TIMEOUT_SECONDS overrides it.
+        var seconds = int.TryParse(Environment.GetEnvironmentVariable("SCORER_PROBE_TIMEOUT_SECONDS"), NumberStyles.None, CultureInfo.InvariantCulture, out var s) && s > 0 ? s : 3;
+        using var client = new HttpClient { Timeout = TimeSpan.FromSeconds(seconds) };
         try
         {
             using var response = await client.GetAsync(url).ConfigureAwait(false);
