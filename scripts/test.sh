@@ -2,9 +2,11 @@
 # Runs every test of the repository and ends with one line: "N passed, N failed[, N skipped]".
 #   1. checks that the reference tools are installed (R with MASS and pROC, Python 3 with scikit-learn, statsmodels and
 #      SciPy, Prometheus's promtool); as root it installs what is missing with apt-get;
-#   2. regenerates the reference values (tests/reference/*.R into tests/reference/out/, and
+#   2. starts a throwaway PostgreSQL 15 (scripts/postgres.sh, stopped at exit) unless SCORER_TEST_POSTGRES already
+#      names one, for the store's contract tests and the replica test;
+#   3. regenerates the reference values (tests/reference/*.R into tests/reference/out/, and
 #      tests/reference/calibration/run.sh into tests/reference/calibration/out/);
-#   3. runs `dotnet test` on the solution and counts the results from the TRX files.
+#   4. runs `dotnet test` on the solution and counts the results from the TRX files.
 # Exit status: 0 when every test passed, 1 otherwise (also when no test ran).
 set -euo pipefail
 cd "$(dirname "$0")/.."
@@ -18,6 +20,9 @@ command -v promtool >/dev/null 2>&1 || missing+=(prometheus)
 if ! /usr/bin/python3 -c 'import numpy, scipy, sklearn, statsmodels' >/dev/null 2>&1; then
   missing+=(python3-numpy python3-scipy python3-sklearn python3-statsmodels)
 fi
+if ! /usr/bin/python3 -c 'import yaml' >/dev/null 2>&1; then missing+=(python3-yaml); fi
+command -v chromium >/dev/null 2>&1 || missing+=(chromium)
+[ -x /usr/lib/postgresql/15/bin/postgres ] || missing+=(postgresql-15)
 if [ ${#missing[@]} -gt 0 ]; then
   if [ "$(id -u)" = 0 ]; then
     echo "installing ${missing[*]}"
@@ -27,6 +32,14 @@ if [ ${#missing[@]} -gt 0 ]; then
     echo "The tests need Debian packages: sudo apt-get install ${missing[*]}" >&2
     exit 1
   fi
+fi
+
+if [ -z "${SCORER_TEST_POSTGRES:-}" ]; then
+  pgdir=$(mktemp -d /tmp/scorer-test-pg.XXXXXX)
+  trap 'scripts/postgres.sh stop "$pgdir" >/dev/null 2>&1 || true; rm -rf "$pgdir"' EXIT
+  echo "== PostgreSQL 15 for the store tests, in $pgdir"
+  SCORER_TEST_POSTGRES=$(scripts/postgres.sh start "$pgdir" | tail -n 1)
+  export SCORER_TEST_POSTGRES
 fi
 
 echo "== reference values (R $(Rscript -e 'cat(as.character(getRversion()))'))"

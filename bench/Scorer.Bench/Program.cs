@@ -33,6 +33,12 @@ public static class Program
             return;
         }
 
+        if (args.Length > 2 && args[0] == "--postgres")
+        {
+            PostgresWrites.RunAsync(args[1], int.Parse(args[2], System.Globalization.CultureInfo.InvariantCulture), args.Length > 3 ? int.Parse(args[3], System.Globalization.CultureInfo.InvariantCulture) : 1000).GetAwaiter().GetResult();
+            return;
+        }
+
         if (args.Length > 1 && args[0] == "--report")
         {
             ReportSpeed.RunAsync(int.Parse(args[1], System.Globalization.CultureInfo.InvariantCulture)).GetAwaiter().GetResult();

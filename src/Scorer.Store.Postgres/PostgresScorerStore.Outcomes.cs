@@ -7,29 +7,24 @@ namespace Scorer.Store.Postgres;
 /// <summary>Outcomes, implicit negatives, the labelled change feed and the prediction log's retention.</summary>
 public sealed partial class PostgresScorerStore
 {
-    private const string TargetColumns = "id, version, stage, scored_at, eta, probability, live_id";
-
-    /// <summary>The predictions a batch's id reports reach: by their own id, or as shadows paired with it.</summary>
-    private const string TargetsByIdSql =
-        $"SELECT {TargetColumns} FROM predictions WHERE model = $1 AND id = ANY($2) "
-        + $"UNION ALL SELECT {TargetColumns} FROM predictions WHERE model = $1 AND live_id = ANY($2)";
-
-    private const string TargetsByKeySql = $"SELECT {TargetColumns}, \"key\" FROM predictions WHERE model = $1 AND \"key\" = ANY($2)";
-
     /// <summary>
-    /// The outcome rows of every prediction the batch reaches, locked (FOR UPDATE, in id order) until the batch commits.
-    /// An outcome row carries its prediction's id and live_id, so the id reports need only this table.
+    /// Every prediction of the model that a batch's reports reach, with its recorded outcome (NULLs when none): by its
+    /// own id, as a shadow paired with a reported id (live_id), and by key (with the key). Index lookups, one
+    /// statement; the caller holds the model's outcome lock, so what it reads stays as read until it commits.
     /// </summary>
-    private const string RecordedSql =
-        "SELECT prediction_id, outcome, implicit FROM outcomes WHERE prediction_id = ANY($2) OR live_id = ANY($2) "
-        + "OR prediction_id IN (SELECT id FROM predictions WHERE model = $1 AND \"key\" = ANY($3)) ORDER BY prediction_id FOR UPDATE";
+    private const string TargetsSql =
+        "SELECT p.id, p.version, p.stage, p.scored_at, p.eta, p.probability, p.live_id, o.outcome, o.implicit, NULL::text "
+        + "FROM predictions p LEFT JOIN outcomes o ON o.prediction_id = p.id WHERE p.model = $1 AND p.id = ANY($2) "
+        + "UNION ALL SELECT p.id, p.version, p.stage, p.scored_at, p.eta, p.probability, p.live_id, o.outcome, o.implicit, NULL::text "
+        + "FROM predictions p LEFT JOIN outcomes o ON o.prediction_id = p.id WHERE p.model = $1 AND p.live_id = ANY($2) "
+        + "UNION ALL SELECT p.id, p.version, p.stage, p.scored_at, p.eta, p.probability, p.live_id, o.outcome, o.implicit, p.\"key\" "
+        + "FROM predictions p LEFT JOIN outcomes o ON o.prediction_id = p.id WHERE p.model = $1 AND p.\"key\" = ANY($3)";
 
     private const string InsertOutcomesSql =
         "INSERT INTO outcomes (prediction_id, model, version, stage, scored_at, eta, probability, outcome, observed_at, recorded_at, implicit, live_id) "
         + "SELECT u.id, $1, u.version, u.stage, u.scored_at, u.eta, u.probability, u.outcome, u.observed_at, $2, false, u.live_id "
         + "FROM unnest($3::uuid[], $4::text[], $5::text[], $6::timestamptz[], $7::float8[], $8::float8[], $9::smallint[], $10::timestamptz[], $11::uuid[]) "
-        + "AS u(id, version, stage, scored_at, eta, probability, outcome, observed_at, live_id) "
-        + "ON CONFLICT (prediction_id) DO NOTHING";
+        + "AS u(id, version, stage, scored_at, eta, probability, outcome, observed_at, live_id)";
 
     private const string UpdateOutcomesSql =
         "UPDATE outcomes o SET outcome = u.outcome, observed_at = u.observed_at, recorded_at = $1, implicit = false, change = pg_current_xact_id() "
@@ -44,16 +39,18 @@ public sealed partial class PostgresScorerStore
     /// <inheritdoc />
     /// <remarks>
     /// <para>
-    /// Set-based, three round trips whatever the batch's size: (1) one batch of statements reads every prediction the
-    /// reports reach (by id, as paired shadows, by key) and the outcome rows already recorded for them, locking those
-    /// rows; (2) the reports are applied in memory, in the SQLite driver's order and with its rules
-    /// (<see cref="OutcomeApplication"/>), giving the receipt and the net writes; one batch of statements makes them:
-    /// new outcome rows, changed ones, conflict rows, each from arrays (unnest); (3) commit.
+    /// Set-based, three round trips whatever the batch's size: (1) the model's outcome lock (writers of one model's
+    /// outcomes take turns, here and in other processes, as the SQLite driver's writers do), then one statement reads
+    /// every prediction the reports reach (by id, as paired shadows, by key) with its recorded outcome; (2) the reports
+    /// are applied in memory, in the SQLite driver's order and with its rules (<see cref="OutcomeApplication"/>),
+    /// giving the receipt and the net writes, and one batch of statements makes them: new outcome rows, changed ones,
+    /// conflict rows, each from arrays (unnest); (3) commit.
     /// </para>
     /// <para>
-    /// A prediction whose outcome row is inserted by a concurrent writer between (1) and (2) is not locked by (1); the
-    /// insert then adds fewer rows than planned (ON CONFLICT DO NOTHING), and the whole batch is rolled back and applied
-    /// again, now seeing that row. A deadlock between concurrent batches is retried the same way.
+    /// The inserts are plain INSERTs (with ON CONFLICT DO NOTHING an insert cost about half as much again in server
+    /// CPU, measured in psql on a log of a million rows): under the lock nothing else inserts these outcomes. Should something outside the
+    /// store do so all the same, the insert fails on the primary key and the whole batch is rolled back and applied
+    /// again, now seeing that row; a deadlock is retried the same way.
     /// </para>
     /// </remarks>
     public async Task<OutcomeReceipt> RecordOutcomesAsync(string model, IReadOnlyList<OutcomeReport> reports, ConflictPolicy policy, DateTimeOffset recordedAt,
@@ -73,6 +70,7 @@ public sealed partial class PostgresScorerStore
             {
                 throw new ArgumentException($"reports[{i}] has outcome {r.Outcome}; outcomes are 0 or 1.", nameof(reports));
             }
+
         }
 
         if (!Enum.IsDefined(policy))
@@ -81,7 +79,8 @@ public sealed partial class PostgresScorerStore
         }
 
         var ids = reports.Where(r => r.Id is not null).Select(r => r.Id!.Value).Distinct().ToArray();
-        var keys = reports.Where(r => r.Id is null).Select(r => r.Key!).Distinct(StringComparer.Ordinal).ToArray();
+        // A key holding U+0000 is left out of the lookup (PostgreSQL text cannot hold it, so no prediction has it): it is unknown.
+        var keys = reports.Where(r => r.Id is null && !r.Key!.Contains('\0', StringComparison.Ordinal)).Select(r => r.Key!).Distinct(StringComparer.Ordinal).ToArray();
         await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
         for (var attempt = 1; ; attempt++)
         {
@@ -96,7 +95,9 @@ public sealed partial class PostgresScorerStore
                     return receipt;
                 }
             }
-            catch (PostgresException ex) when (attempt < OutcomeAttempts && ex.SqlState is PostgresErrorCodes.DeadlockDetected or PostgresErrorCodes.SerializationFailure)
+            catch (PostgresException ex) when (attempt < OutcomeAttempts
+                && (ex.SqlState is PostgresErrorCodes.DeadlockDetected or PostgresErrorCodes.SerializationFailure
+                    || (ex.SqlState == PostgresErrorCodes.UniqueViolation && ex.ConstraintName == "outcomes_pkey")))
             {
             }
 
@@ -118,48 +119,40 @@ public sealed partial class PostgresScorerStore
         var byKey = new Dictionary<string, List<Guid>>(StringComparer.Ordinal);
         var recorded = new Dictionary<Guid, RecordedOutcome>();
 
-        // (1) Everything the reports reach, and its recorded outcomes (locked), in one round trip.
+        // (1) The model's outcome lock, then everything the reports reach with its recorded outcome, in one round trip.
         var read = new NpgsqlBatch(connection, transaction);
         await using (read.ConfigureAwait(false))
         {
-            var byIds = new NpgsqlBatchCommand(TargetsByIdSql);
-            byIds.Parameters.Add(Text(model));
-            byIds.Parameters.Add(UuidArray(ids));
-            read.BatchCommands.Add(byIds);
-            var byKeys = new NpgsqlBatchCommand(TargetsByKeySql);
-            byKeys.Parameters.Add(Text(model));
-            byKeys.Parameters.Add(TextArray(keys));
-            read.BatchCommands.Add(byKeys);
-            var outcomes = new NpgsqlBatchCommand(RecordedSql);
-            outcomes.Parameters.Add(Text(model));
-            outcomes.Parameters.Add(UuidArray(ids));
-            outcomes.Parameters.Add(TextArray(keys));
-            read.BatchCommands.Add(outcomes);
+            read.BatchCommands.Add(OutcomeLock(model));
+            var targetsOf = new NpgsqlBatchCommand(TargetsSql);
+            targetsOf.Parameters.Add(Text(model));
+            targetsOf.Parameters.Add(UuidArray(ids));
+            targetsOf.Parameters.Add(TextArray(keys));
+            read.BatchCommands.Add(targetsOf);
 
             await using var reader = await read.ExecuteReaderAsync(cancellationToken).ConfigureAwait(false);
-            for (var result = 0; result < 2; result++)
+            await reader.NextResultAsync(cancellationToken).ConfigureAwait(false);
+            while (await reader.ReadAsync(cancellationToken).ConfigureAwait(false))
             {
-                while (await reader.ReadAsync(cancellationToken).ConfigureAwait(false))
+                var target = new OutcomeTarget(reader.GetGuid(0), reader.GetString(1), reader.GetString(2), reader.GetDateTime(3), reader.GetDouble(4),
+                    reader.GetDouble(5), reader.IsDBNull(6) ? null : reader.GetGuid(6));
+                if (targets.TryAdd(target.Id, target))
                 {
-                    var target = new OutcomeTarget(reader.GetGuid(0), reader.GetString(1), reader.GetString(2), reader.GetDateTime(3), reader.GetDouble(4),
-                        reader.GetDouble(5), reader.IsDBNull(6) ? null : reader.GetGuid(6));
-                    if (targets.TryAdd(target.Id, target) && target.LiveId is { } live)
+                    if (target.LiveId is { } live)
                     {
                         Add(shadowsOf, live, target.Id);
                     }
 
-                    if (result == 1)
+                    if (!reader.IsDBNull(7))
                     {
-                        Add(byKey, reader.GetString(7), target.Id);
+                        recorded[target.Id] = new RecordedOutcome((byte)reader.GetInt16(7), reader.GetBoolean(8));
                     }
                 }
 
-                await reader.NextResultAsync(cancellationToken).ConfigureAwait(false);
-            }
-
-            while (await reader.ReadAsync(cancellationToken).ConfigureAwait(false))
-            {
-                recorded[reader.GetGuid(0)] = new RecordedOutcome((byte)reader.GetInt16(1), reader.GetBoolean(2));
+                if (!reader.IsDBNull(9))
+                {
+                    Add(byKey, reader.GetString(9), target.Id);
+                }
             }
         }
 
@@ -220,7 +213,7 @@ public sealed partial class PostgresScorerStore
 
             if (insert is not null && insert.RecordsAffected != applied.Inserts.Count)
             {
-                return null; // a concurrent writer recorded one of these predictions first: apply the batch again
+                return null; // cannot happen with a plain INSERT; were it to, the batch is applied again
             }
         }
 
@@ -230,20 +223,20 @@ public sealed partial class PostgresScorerStore
     /// <inheritdoc />
     /// <remarks>
     /// <para>
-    /// The log is walked in log_seq order (the order rows were written) from the model's cursor. log_seq comes from a
-    /// sequence, whose numbers are taken when rows are written, not when they commit: a batch still in flight can hold
-    /// numbers below those of a batch already committed, and a walk that moved its cursor past them would never come
-    /// back. So the walk first finds a horizon below which every number is settled: it takes the log's advisory lock
-    /// exclusively (every prediction write holds it shared, from before its COPY to its commit), which waits for the
-    /// writes in flight to end, reads the sequence's last value, and lets go at once (one short transaction; new writes
-    /// wait only that long). Rows up to the horizon are then final, and the walk never passes it.
+    /// The log is walked in log_seq order (the order rows were written) from the model's cursor. log_seq comes from
+    /// the batch number each write takes from the sequence prediction_batches, and numbers are taken when rows are
+    /// written, not when they commit: a batch still in flight can hold numbers below those of a batch already
+    /// committed, and a walk that moved its cursor past them would never come back. So the walk first finds a horizon
+    /// below which every number is settled: it takes the log's advisory lock exclusively (every prediction write holds
+    /// it shared, from before it takes its number to its commit), which waits for the writes in flight to end, reads
+    /// the last batch number taken, and lets go at once (one short transaction; new writes wait only that long). Rows
+    /// up to the horizon are then final, and the walk never passes it.
     /// </para>
     /// <para>
-    /// The walk itself is one statement, in one transaction with a per-model advisory lock (sweeps of one model take
-    /// turns): up to <paramref name="limit"/> rows of the model after the cursor, stopping at the first one not yet
-    /// mature (so a row logged late with an early time is still reached by a later call), an implicit 0 inserted for
-    /// each mature row without an outcome (ON CONFLICT DO NOTHING: an outcome recorded meanwhile wins), and the cursor
-    /// moved to the last mature row walked.
+    /// The walk itself is one statement, in one transaction holding the model's outcome lock (see
+    /// <see cref="RecordOutcomesAsync"/>): up to <paramref name="limit"/> rows of the model after the cursor, stopping
+    /// at the first one not yet mature (so a row logged late with an early time is still reached by a later call), an
+    /// implicit 0 inserted for each mature row without an outcome, and the cursor moved to the last mature row walked.
     /// </para>
     /// </remarks>
     public async Task<int> RecordImplicitNegativesAsync(string model, DateTimeOffset maturedBefore, DateTimeOffset recordedAt, int limit = 10_000,
@@ -259,20 +252,19 @@ public sealed partial class PostgresScorerStore
         {
             // No explicit transaction: the batch runs as one implicit transaction, which ends (and lets go of the lock) with it.
             settle.BatchCommands.Add(new NpgsqlBatchCommand($"SELECT pg_advisory_xact_lock({LogLockKey})"));
-            settle.BatchCommands.Add(new NpgsqlBatchCommand(
-                "SELECT coalesce(pg_sequence_last_value(pg_get_serial_sequence('predictions', 'log_seq')::regclass), 0)"));
+            settle.BatchCommands.Add(new NpgsqlBatchCommand("SELECT pg_sequence_last_value('prediction_batches')"));
             await using var reader = await settle.ExecuteReaderAsync(cancellationToken).ConfigureAwait(false);
             await reader.NextResultAsync(cancellationToken).ConfigureAwait(false);
             await reader.ReadAsync(cancellationToken).ConfigureAwait(false);
-            horizon = reader.GetInt64(0);
+
+            // The last row the last batch number taken can hold; -1 (nothing to walk) before the first batch.
+            horizon = reader.IsDBNull(0) ? -1 : (reader.GetInt64(0) * RowsPerBatchNumber) + RowsPerBatchNumber - 1;
         }
 
         var sweep = new NpgsqlBatch(connection);
         await using (sweep.ConfigureAwait(false))
         {
-            var lockModel = new NpgsqlBatchCommand($"SELECT pg_advisory_xact_lock({SweepLockClass}, hashtext($1))");
-            lockModel.Parameters.Add(Text(model));
-            sweep.BatchCommands.Add(lockModel);
+            sweep.BatchCommands.Add(OutcomeLock(model));
             var walk = new NpgsqlBatchCommand(
                 "WITH walk_from AS (SELECT coalesce((SELECT last_row FROM maturity_cursors WHERE model = $1), 0) AS after), "
                 + "walk AS (SELECT p.log_seq, p.id, p.version, p.stage, p.scored_at, p.eta, p.probability, p.live_id FROM predictions p, walk_from c "
@@ -280,8 +272,8 @@ public sealed partial class PostgresScorerStore
                 + "stop AS (SELECT coalesce(min(log_seq), 9223372036854775807) AS at FROM walk WHERE scored_at >= $4), "
                 + "mature AS (SELECT w.* FROM walk w, stop s WHERE w.log_seq < s.at), "
                 + "labelled AS (INSERT INTO outcomes (prediction_id, model, version, stage, scored_at, eta, probability, outcome, observed_at, recorded_at, implicit, live_id) "
-                + "  SELECT id, $1, version, stage, scored_at, eta, probability, 0, NULL, $5, true, live_id FROM mature ORDER BY id "
-                + "  ON CONFLICT (prediction_id) DO NOTHING RETURNING 1), "
+                + "  SELECT m.id, $1, m.version, m.stage, m.scored_at, m.eta, m.probability, 0, NULL, $5, true, m.live_id FROM mature m "
+                + "  WHERE NOT EXISTS (SELECT 1 FROM outcomes o WHERE o.prediction_id = m.id) ORDER BY m.id RETURNING 1), "
                 + "moved AS (INSERT INTO maturity_cursors (model, last_row) SELECT $1, max(log_seq) FROM mature HAVING count(*) > 0 "
                 + "  ON CONFLICT (model) DO UPDATE SET last_row = excluded.last_row RETURNING 1) "
                 + "SELECT (SELECT count(*) FROM labelled)::integer, (SELECT count(*) FROM moved)::integer");
@@ -302,20 +294,25 @@ public sealed partial class PostgresScorerStore
     /// <remarks>
     /// <para>
     /// Every insert or update of an outcome row stamps it with the id of its transaction (pg_current_xact_id(), xid8,
-    /// column <c>change</c>). PostgreSQL hands out transaction ids when a transaction first writes, not when it
-    /// commits, so neither ids nor any sequence give commit order: a transaction still in flight can hold a smaller id
-    /// than one already committed. So the read takes only the stamps at or above the cursor and below the xmin of its
-    /// own snapshot (pg_snapshot_xmin(pg_current_snapshot()), in the same statement): every transaction below xmin has
-    /// ended, so those rows are final and visible, and none can appear there later. Rows of a transaction still running
-    /// carry a stamp of xmin or more and are read by a later call; a row changed again is stamped anew, above the old
-    /// stamp, and read again.
+    /// column <c>change</c>); the read returns the model version's rows stamped at or above the cursor, in stamp order,
+    /// and the cursor returned is one past the largest stamp read (or the cursor given, when nothing was read: it stays
+    /// put while nothing changes).
     /// </para>
     /// <para>
-    /// The cursor returned is one past the largest stamp read (every stamp below it that belongs to this version has
-    /// been read, since all of them were below xmin), or the cursor given when nothing was read: it stays put while
-    /// nothing changes, whatever else the database does. Points come in stamp order; a long-running transaction holds
-    /// the feed back (never skips it) until it ends. Stamps are xid8 values (epoch and id, never wrapping) carried as
-    /// longs.
+    /// Neither transaction ids nor sequence numbers follow commit order in PostgreSQL: an id is handed out when a
+    /// transaction first writes, and a transaction still in flight can hold a smaller id than one already committed; a
+    /// reader that moved its cursor past the committed one would skip the other's change for good. What makes the
+    /// stamps safe here is the model's outcome lock (see <see cref="RecordOutcomesAsync"/>): every writer of the model's
+    /// outcomes, in any process, holds it exclusively from before its first write to its commit, and this read takes
+    /// it shared (in the same implicit transaction, before its snapshot) for the length of one statement. So when the
+    /// read's snapshot is taken no writer of the model is in flight: every change made so far is committed and
+    /// visible, and every later writer takes its transaction id after the read, above every stamp read. The read never
+    /// skips a change, returns a committed change at once (it is not held back by unrelated transactions in flight,
+    /// as a bound at the snapshot's xmin would hold it back), and waits at most for one batch of the model's outcomes
+    /// to commit.
+    /// </para>
+    /// <para>
+    /// Stamps are xid8 values (epoch and transaction id, never wrapping), carried as longs.
     /// </para>
     /// </remarks>
     public async Task<LabelledChanges> GetLabelledChangesAsync(string model, string version, long cursor, CancellationToken cancellationToken = default)
@@ -324,24 +321,30 @@ public sealed partial class PostgresScorerStore
         ArgumentException.ThrowIfNullOrEmpty(version);
         ArgumentOutOfRangeException.ThrowIfNegative(cursor);
         await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
-        await using var command = Command(connection, null,
-            "SELECT prediction_id, scored_at, probability, outcome, change::text::bigint FROM outcomes "
-            + "WHERE model = $1 AND version = $2 AND change >= $3::text::xid8 AND change < pg_snapshot_xmin(pg_current_snapshot()) ORDER BY change");
-        command.Parameters.Add(Text(model));
-        command.Parameters.Add(Text(version));
-        command.Parameters.Add(Text(cursor.ToString(CultureInfo.InvariantCulture)));
-        var points = new List<LabelledPoint>();
-        var next = cursor;
-        await using (var reader = await command.ExecuteReaderAsync(cancellationToken).ConfigureAwait(false))
+        var read = new NpgsqlBatch(connection);
+        await using (read.ConfigureAwait(false))
         {
+            // No explicit transaction: the batch is one implicit transaction, and the lock lasts until it ends.
+            read.BatchCommands.Add(OutcomeLock(model, shared: true));
+            var changes = new NpgsqlBatchCommand(
+                "SELECT prediction_id, scored_at, probability, outcome, change::text::bigint FROM outcomes "
+                + "WHERE model = $1 AND version = $2 AND change >= $3::text::xid8 ORDER BY change");
+            changes.Parameters.Add(Text(model));
+            changes.Parameters.Add(Text(version));
+            changes.Parameters.Add(Text(cursor.ToString(CultureInfo.InvariantCulture)));
+            read.BatchCommands.Add(changes);
+            var points = new List<LabelledPoint>();
+            var next = cursor;
+            await using var reader = await read.ExecuteReaderAsync(cancellationToken).ConfigureAwait(false);
+            await reader.NextResultAsync(cancellationToken).ConfigureAwait(false);
             while (await reader.ReadAsync(cancellationToken).ConfigureAwait(false))
             {
                 points.Add(new LabelledPoint(reader.GetGuid(0), PostgresValues.FromTimestamp(reader.GetDateTime(1)), reader.GetDouble(2), (byte)reader.GetInt16(3)));
                 next = reader.GetInt64(4) + 1;
             }
-        }
 
-        return new LabelledChanges(points, next);
+            return new LabelledChanges(points, next);
+        }
     }
 
     /// <summary>
@@ -391,6 +394,13 @@ public sealed partial class PostgresScorerStore
 
     private static DateTimeOffset SafeSubtract(DateTimeOffset time, TimeSpan span) =>
         time.UtcTicks - DateTimeOffset.MinValue.UtcTicks < span.Ticks ? DateTimeOffset.MinValue : time - span;
+
+    /// <summary>
+    /// The model's outcome lock (see <see cref="RecordOutcomesAsync"/>), held to the end of the transaction: exclusive
+    /// for writers, shared for the change feed's read.
+    /// </summary>
+    private static NpgsqlBatchCommand OutcomeLock(string model, bool shared = false) =>
+        new($"SELECT pg_advisory_xact_lock{(shared ? "_shared" : "")}({OutcomeLockClass}, hashtext(current_schema() || '.' || $1))") { Parameters = { Text(model) } };
 
     private static void Add<TKey>(Dictionary<TKey, List<Guid>> map, TKey key, Guid id)
         where TKey : notnull

@@ -14,8 +14,8 @@ public sealed class BrowserFixture : IAsyncLifetime
 
     public IBrowser Browser { get; private set; } = null!;
 
-    /// <summary>Where the screenshots go (a CI artifact): tests/Scorer.Page.Tests/TestResults/screenshots.</summary>
-    public static string Screenshots { get; } = Path.Combine(Scorer.Testing.TestRepository.Root, "tests", "Scorer.Page.Tests", "TestResults", "screenshots");
+    /// <summary>Where the screenshots go, beside the test results scripts/test.sh writes (a CI artifact): TestResults/screenshots.</summary>
+    public static string Screenshots { get; } = Path.Combine(Scorer.Testing.TestRepository.Root, "TestResults", "screenshots");
 
     public async Task InitializeAsync()
     {
@@ -25,6 +25,7 @@ public sealed class BrowserFixture : IAsyncLifetime
         }
 
         Directory.CreateDirectory(Screenshots);
+        Assertions.SetDefaultExpectTimeout(30_000); // an upper bound for conditions to come true, never a pause
         _playwright = await Playwright.CreateAsync();
         Browser = await _playwright.Chromium.LaunchAsync(new BrowserTypeLaunchOptions
         {

@@ -27,7 +27,20 @@ public sealed class MonitorPageTests(BrowserFixture browser) : IAsyncLifetime
         await page.GotoAsync(_server.Url.ToString());
         await session.WaitAsync($"() => document.querySelector('[data-model=\"{PageServer.Pumps}\"] tr[data-stage=\"live\"] td[data-labelled=\"400\"]') !== null");
 
-        var overview = await _server.GetJsonAsync("v1/overview");
+        // The page shows what the overview API gives once both have the monitor's round after the outcomes.
+        JsonElement overview = default;
+        Assert.True(await Eventually.HoldsAsync(async () =>
+        {
+            overview = await _server.GetJsonAsync("v1/overview");
+            var expected = overview.GetProperty("models").EnumerateArray().SelectMany(m => m.GetProperty("versions").EnumerateArray().Select(v =>
+                $"{m.GetProperty("model").GetString()} {v.GetProperty("version").GetString()} {v.GetProperty("status").GetString()} {v.GetProperty("labelled").GetInt64()} {v.GetProperty("events").GetInt64()}"));
+            var shown = await page.EvaluateAsync<string[]>("""
+                () => [...document.querySelectorAll('section[data-model] tr[data-version]')].map(tr =>
+                  `${tr.closest('section').dataset.model} ${tr.dataset.version} ${tr.querySelector('.chip').dataset.status} ${tr.querySelector('td[data-labelled]').dataset.labelled} ${tr.querySelector('td[data-events]').dataset.events}`)
+                """);
+            return expected.Order().SequenceEqual(shown.Order());
+        }, TimeSpan.FromSeconds(30)), "the page did not come to show what the overview API gives");
+
         foreach (var model in overview.GetProperty("models").EnumerateArray())
         {
             var name = model.GetProperty("model").GetString()!;
@@ -39,7 +52,13 @@ public sealed class MonitorPageTests(BrowserFixture browser) : IAsyncLifetime
                 await Assertions.Expect(row).ToHaveAttributeAsync("data-stage", version.GetProperty("stage").GetString()!);
                 var status = version.GetProperty("status").GetString()!;
                 await Assertions.Expect(row.Locator(".chip")).ToHaveAttributeAsync("data-status", status);
-                await Assertions.Expect(row.Locator(".chip")).ToHaveTextAsync(status == "in-tune" ? "fine" : status == "drifting" ? "watch" : status);
+                var word = status switch
+                {
+                    "in-tune" => "fine",
+                    "drifting" => "watch",
+                    _ => version.GetProperty("advice").GetString()!.StartsWith("Refit due", StringComparison.Ordinal) ? "refit due" : "recalibrate",
+                };
+                await Assertions.Expect(row.Locator(".chip")).ToHaveTextAsync(word);
                 Assert.Equal(version.GetProperty("labelled").GetInt64().ToString(CultureInfo.InvariantCulture),
                     await row.Locator("td[data-labelled]").GetAttributeAsync("data-labelled"));
                 Assert.Equal(version.GetProperty("events").GetInt64().ToString(CultureInfo.InvariantCulture),
@@ -112,7 +131,7 @@ public sealed class MonitorPageTests(BrowserFixture browser) : IAsyncLifetime
         await _server.PostOutcomesAsync(scored, oddsRatio: 4, seed: 6);
 
         await Assertions.Expect(page.Locator("#change")).ToHaveAttributeAsync("data-to", "out-of-tune");
-        await Assertions.Expect(page.Locator("#change")).ToContainTextAsync("Status changed: fine →");
+        await Assertions.Expect(page.Locator("#change")).ToContainTextAsync(new System.Text.RegularExpressions.Regex("^Status changed: fine → recalibrate"));
         await Assertions.Expect(page.Locator("#status-slot .chip")).ToHaveAttributeAsync("data-status", "out-of-tune");
         var report = await _server.GetJsonAsync($"v1/models/{PageServer.Pumps}/monitor?window=all");
         Assert.Equal("out-of-tune", report.GetProperty("status").GetString());
@@ -120,5 +139,25 @@ public sealed class MonitorPageTests(BrowserFixture browser) : IAsyncLifetime
         Assert.True(await page.EvaluateAsync<bool>("() => window.__sameDocument === true"), "the page was reloaded instead of updated live");
         await session.ScreenshotAsync("model-status-change");
         Assert.Empty(session.Errors);
+    }
+
+    [Fact]
+    public async Task The_overview_keeps_the_keyboard_focus_and_opened_details_while_it_updates_live()
+    {
+        await using var session = await browser.OpenAsync(_server.Url);
+        var page = session.Page;
+        await page.GotoAsync(_server.Url.ToString());
+        await session.WaitAsync("() => document.body.dataset.state === 'ready'");
+        var open = page.Locator($"a[data-key=\"open|{PageServer.Pumps}\"]");
+        await open.FocusAsync();
+        var renders = await page.EvaluateAsync<int>("() => Number(document.getElementById('overview').dataset.renders)");
+
+        var scored = await _server.ScorePumpsAsync(300, seed: 7);
+        await _server.PostOutcomesAsync(scored, oddsRatio: 1, seed: 8);
+        await session.WaitAsync($"() => document.querySelector('[data-model=\"{PageServer.Pumps}\"] tr[data-stage=\"live\"] td[data-labelled=\"300\"]') !== null");
+        Assert.True(await page.EvaluateAsync<int>("() => Number(document.getElementById('overview').dataset.renders)") > renders);
+        await Assertions.Expect(open).ToBeFocusedAsync();
+        await page.Keyboard.PressAsync("Enter");
+        await page.WaitForURLAsync(url => url.EndsWith($"/models/{PageServer.Pumps}", StringComparison.Ordinal));
     }
 }

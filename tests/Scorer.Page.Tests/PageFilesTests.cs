@@ -13,7 +13,7 @@ public sealed partial class PageFilesTests(BrowserFixture browser) : IAsyncLifet
 
     public async Task DisposeAsync() => await _server.DisposeAsync();
 
-    [GeneratedRegex("""(?:src|href)="(/page/[^"?]+)\?v=([0-9a-f]{16})\"""")]
+    [GeneratedRegex("(?:src|href)=\"(/page/[^\"?]+)\\?v=([0-9a-f]{16})\"")]
     private static partial Regex Asset();
 
     [Fact]
@@ -75,26 +75,34 @@ public sealed partial class PageFilesTests(BrowserFixture browser) : IAsyncLifet
     {
         var before = Environment.CurrentDirectory;
         var elsewhere = Directory.CreateTempSubdirectory("scorer-page-cwd-").FullName;
+        PageServer server;
         try
         {
-            Environment.CurrentDirectory = elsewhere; // the files are embedded: nothing is read from disk
-            await using var session = await browser.OpenAsync(_server.Url);
-            var requests = new List<string>();
-            session.Page.Request += (_, request) => requests.Add(request.Url);
-            await session.Page.GotoAsync(new Uri(_server.Url, $"models/{PageServer.Pumps}").ToString());
-            await session.WaitAsync("() => document.body.dataset.state === 'ready'");
-            await session.Page.GotoAsync(_server.Url.ToString());
-            await session.WaitAsync("() => document.body.dataset.state === 'ready'");
-            Assert.Contains(requests, r => r.Contains("/page/page.js", StringComparison.Ordinal));
-            Assert.Contains(requests, r => r.Contains("/v1/overview/events", StringComparison.Ordinal));
-            Assert.All(requests, r => Assert.StartsWith(_server.Url.GetLeftPart(UriPartial.Authority) + "/", r, StringComparison.Ordinal));
-            Assert.Empty(session.Outside);
-            Assert.Empty(session.Errors); // a Content-Security-Policy violation is logged as a console error
+            Environment.CurrentDirectory = elsewhere; // an empty folder: the files must come from the assembly
+            server = await PageServer.StartAsync();
         }
         finally
         {
             Environment.CurrentDirectory = before;
-            Directory.Delete(elsewhere, recursive: true);
         }
+
+        await using (server)
+        {
+            await using var session = await browser.OpenAsync(server.Url);
+            var requests = new List<string>();
+            session.Page.Request += (_, request) => requests.Add(request.Url);
+            await session.Page.GotoAsync(new Uri(server.Url, $"models/{PageServer.Pumps}").ToString());
+            await session.WaitAsync("() => document.body.dataset.state === 'ready'");
+            await session.Page.GotoAsync(server.Url.ToString());
+            await session.WaitAsync("() => document.body.dataset.state === 'ready'");
+            Assert.Contains(requests, r => r.Contains("/page/page.js", StringComparison.Ordinal));
+            Assert.Contains(requests, r => r.Contains("/page/page.css", StringComparison.Ordinal));
+            Assert.Contains(requests, r => r.Contains("/v1/overview/events", StringComparison.Ordinal));
+            Assert.All(requests, r => Assert.StartsWith(server.Url.GetLeftPart(UriPartial.Authority) + "/", r, StringComparison.Ordinal));
+            Assert.Empty(session.Outside);
+            Assert.Empty(session.Errors); // a Content-Security-Policy violation is logged as a console error
+        }
+
+        Directory.Delete(elsewhere, recursive: true);
     }
 }

@@ -136,7 +136,8 @@ internal static class DemoCommand
                 """).ConfigureAwait(false);
             await stdout.FlushAsync(cancellationToken).ConfigureAwait(false);
 
-            using var stop = CancellationTokenSource.CreateLinkedTokenSource(cancellationToken);
+            // Ctrl+C and SIGTERM reach the host (its console lifetime), which stops the application: stop the traffic then.
+            using var stop = CancellationTokenSource.CreateLinkedTokenSource(cancellationToken, app.Lifetime.ApplicationStopping);
             if (options.Duration is { } duration)
             {
                 stop.CancelAfter(TimeSpan.FromSeconds(duration));

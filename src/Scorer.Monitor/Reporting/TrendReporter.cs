@@ -63,10 +63,12 @@ public sealed class TrendReporter(IScorerStore store, ChartRunner charts, Monito
         var now = time.GetUtcNow();
         var (from, to) = Bounds(window, now);
         var rows = await store.GetLabelledAsync(version.Model, version.Version, from, to, cancellationToken).ConfigureAwait(false);
-        var first = rows.Count > 0 ? rows[0].ScoredAt : now;
-        var span = now - first;
-        var step = Steps.FirstOrDefault(s => span.Ticks / s.Ticks < maxBuckets, Steps[^1]);
-        var start = new DateTimeOffset(first.UtcTicks - ((first.UtcTicks - DateTimeOffset.UnixEpoch.UtcTicks) % step.Ticks), TimeSpan.Zero);
+        var first = (rows.Count > 0 ? rows[0].ScoredAt : now).UtcTicks - DateTimeOffset.UnixEpoch.UtcTicks;
+        var last = now.UtcTicks - DateTimeOffset.UnixEpoch.UtcTicks;
+
+        // The shortest step whose aligned buckets, from the one holding the first row to the one holding now, are few enough.
+        var step = Steps.FirstOrDefault(s => (last / s.Ticks) - (first / s.Ticks) + 1 <= maxBuckets, Steps[^1]);
+        var start = new DateTimeOffset(DateTimeOffset.UnixEpoch.UtcTicks + (first / step.Ticks * step.Ticks), TimeSpan.Zero);
         var buckets = new List<TrendBucket>();
         var probability = new List<double>();
         var outcome = new List<byte>();

@@ -87,8 +87,13 @@
     let controller = null;
     let attempt = 0;
     let timer = null;
+    // Not a live region: it changes every few seconds. The word changes with the state only; the time is in its title.
     const live = $('live');
-    const setLive = (state, text) => { live.dataset.state = state; live.textContent = text; };
+    const setLive = (state, text) => {
+      live.dataset.state = state;
+      if (live.textContent !== text) live.textContent = text;
+      live.title = state === 'live' ? `last event at ${clock(new Date())}` : text;
+    };
 
     async function run() {
       controller = new AbortController();
@@ -97,7 +102,7 @@
       try {
         await readEvents(pathOf(), (kind, data) => {
           attempt = 0;
-          setLive('live', `live · ${clock(new Date())}`);
+          setLive('live', 'live');
           onEvent(kind, data);
         }, mine.signal);
         if (mine.signal.aborted) return;
@@ -175,14 +180,14 @@
   function h(tag, attrs, ...children) {
     const node = document.createElement(tag);
     for (const [k, v] of Object.entries(attrs || {})) if (v !== undefined && v !== null && v !== false) node.setAttribute(k, v === true ? '' : v);
-    for (const c of children.flat()) if (c !== undefined && c !== null && c !== false) node.append(c instanceof Node ? c : String(c));
+    for (const c of children.flat(Infinity)) if (c !== undefined && c !== null && c !== false) node.append(c instanceof Node ? c : String(c));
     return node;
   }
 
   function s(tag, attrs, ...children) {
     const node = document.createElementNS(SVG, tag);
     for (const [k, v] of Object.entries(attrs || {})) if (v !== undefined && v !== null) node.setAttribute(k, typeof v === 'number' ? +v.toFixed(2) : v);
-    for (const c of children.flat()) if (c !== undefined && c !== null && c !== false) node.append(c instanceof Node ? c : String(c));
+    for (const c of children.flat(Infinity)) if (c !== undefined && c !== null && c !== false) node.append(c instanceof Node ? c : String(c));
     return node;
   }
 
@@ -247,7 +252,7 @@
       label: `Reliability diagram over ${bins.length} bins` });
     f.svg.setAttribute('data-labelled', String(report.labelled));
     f.svg.append(s('line', { class: 'diagonal', x1: f.px(0), y1: f.py(0), x2: f.px(max), y2: f.py(max) }),
-      s('text', { x: f.px(max * 0.97), y: f.py(max * 0.97) + 14, 'text-anchor': 'end' }, 'perfect calibration'));
+      s('text', { class: 'halo', x: f.px(max * 0.97), y: f.py(max * 0.97) + 14, 'text-anchor': 'end' }, 'perfect calibration'));
     const most = Math.max(...bins.map((b) => b.count));
     const marks = s('g', { class: 'bins' });
     for (const b of bins) {
@@ -303,8 +308,6 @@
       s('line', { class: 'zero', x1: f.left, x2: f.right, y1: f.py(0), y2: f.py(0) }),
       s('line', { class: 'threshold-up', x1: f.left, x2: f.right, y1: f.py(paths.up.threshold), y2: f.py(paths.up.threshold) }),
       s('line', { class: 'threshold-down', x1: f.left, x2: f.right, y1: f.py(-paths.down.threshold), y2: f.py(-paths.down.threshold) }),
-      s('text', { class: 'label-strong', x: f.right - 4, y: f.py(paths.up.threshold) - 5, 'text-anchor': 'end' }, `upward h = ${num(paths.up.threshold, 2)} (odds ×${num(paths.up.oddsRatio, 2)})`),
-      s('text', { class: 'label-strong', x: f.right - 4, y: f.py(-paths.down.threshold) + 14, 'text-anchor': 'end' }, `downward h = ${num(paths.down.threshold, 2)} (odds ×${num(paths.down.oddsRatio, 2)})`),
       s('path', { class: 'path-up', d: line(up, 1), 'data-chart': 'up' }),
       s('path', { class: 'path-down', d: line(down, -1), 'data-chart': 'down' }));
     const marks = s('g', {});
@@ -318,7 +321,9 @@
           tip(`${name === 'up' ? 'Upward' : 'Downward'} signal at outcome ${count(sig.index)} (prediction of ${new Date(sig.time).toLocaleString()}): S = ${num(sig.statistic, 2)}`)));
       }
     }
-    f.svg.append(marks);
+    f.svg.append(marks,
+      s('text', { class: 'label-strong', x: f.right - 4, y: f.py(paths.up.threshold) - 5, 'text-anchor': 'end' }, `upward h = ${num(paths.up.threshold, 2)} (odds ×${num(paths.up.oddsRatio, 2)})`),
+      s('text', { class: 'label-strong', x: f.right - 4, y: f.py(-paths.down.threshold) + 14, 'text-anchor': 'end' }, `downward h = ${num(paths.down.threshold, 2)} (odds ×${num(paths.down.oddsRatio, 2)})`));
     container.replaceChildren(f.svg);
     const signals = paths.up.signals.length + paths.down.signals.length;
     note.textContent = `${count(paths.outcomes)} outcomes taken in; ${signals === 0 ? 'no signal' : `${signals} signal${signals > 1 ? 's' : ''}`} in this window.` +
@@ -357,10 +362,13 @@
     container.replaceChildren(f.svg);
   }
 
+  // Ticks at whole multiples of a round span of time (local midnight for days), at most about n of them.
   function timeTicks(t0, t1, n = 5) {
+    const spans = [10, 30, 60, 300, 900, 1800, 3600, 10800, 21600, 43200, 86400, 604800].map((x) => x * 1000);
+    const span = spans.find((x) => (t1 - t0) / x <= n) || spans[spans.length - 1];
+    const offset = span >= 86400000 ? new Date(t0).getTimezoneOffset() * 60000 : 0;
     const out = [];
-    const step = (t1 - t0) / n;
-    for (let i = 0; i <= n; i++) out.push(t0 + i * step);
+    for (let t = Math.ceil((t0 - offset) / span) * span + offset; t <= t1; t += span) out.push(t);
     return out;
   }
 
@@ -395,7 +403,7 @@
     f.svg.append(s('line', { class: 'ref', x1: f.left, x2: f.right, y1: f.py.clamp(reference), y2: f.py.clamp(reference) }));
     if (floor !== undefined) {
       f.svg.append(s('line', { class: 'ref', x1: f.left, x2: f.right, y1: f.py.clamp(floor), y2: f.py.clamp(floor) }),
-        s('text', { x: f.right - 4, y: f.py.clamp(floor) - 4, 'text-anchor': 'end' }, floorLabel));
+        s('text', { class: 'halo', x: f.right - 4, y: f.py.clamp(floor) - 4, 'text-anchor': 'end' }, floorLabel));
     }
     const width = Math.max(2, (f.right - f.left) / trend.buckets.length);
     const marks = s('g', {});
@@ -445,13 +453,16 @@
       container.replaceChildren(f.svg);
     }
     const words = { promote: 'promote', 'keep-live': 'keep live', undecided: 'undecided' };
+    const pair = (d, digits) => (d ? `${num(d.live, digits)} → ${num(d.shadow, digits)}` : '–');
     tableSlot.replaceChildren(h('table', {},
-      h('thead', {}, h('tr', {}, ['Shadow', 'Paired', 'Log loss live → shadow', 'AUC live → shadow', 'Verdict'].map((c, i) => h('th', { scope: 'col', class: i === 1 ? 'num' : null }, c)))),
-      h('tbody', {}, shadows.map((sh) => h('tr', { 'data-shadow': sh.version },
-        h('td', { class: 'version-name' }, sh.version), h('td', { class: 'num' }, count(sh.paired)),
-        h('td', {}, sh.logLoss ? `${num(sh.logLoss.live, 4)} → ${num(sh.logLoss.shadow, 4)}` : '–'),
-        h('td', {}, sh.auc ? `${num(sh.auc.live)} → ${num(sh.auc.shadow)}` : '–'),
-        h('td', {}, h('strong', {}, words[sh.recommendation] || sh.recommendation), h('br'), h('span', { class: 'note' }, sh.reason)))))));
+      h('thead', {}, h('tr', {}, ['Shadow', 'Paired', 'Log loss', 'Brier', 'AUC', 'Verdict'].map((c, i) => h('th', { scope: 'col', class: i === 1 ? 'num' : null }, c)))),
+      h('tbody', {}, shadows.map((sh) => [
+        h('tr', { 'data-shadow': sh.version },
+          h('th', { scope: 'row', class: 'version-name' }, sh.version), h('td', { class: 'num' }, count(sh.paired)),
+          h('td', {}, pair(sh.logLoss, 4)), h('td', {}, pair(sh.brier, 4)), h('td', {}, pair(sh.auc, 3)),
+          h('td', {}, h('strong', { 'data-recommendation': sh.recommendation }, words[sh.recommendation] || sh.recommendation))),
+        h('tr', { class: 'reasons' }, h('td', { colspan: '6' }, sh.reason))]))),
+      h('p', { class: 'note' }, 'Live → shadow on the same rows.'));
   }
 
   // ---------------------------------------------------------------- the key
@@ -487,13 +498,20 @@
     const slot = $('overview');
     const render = (data) => {
       notice(null);
-      $('judged-window').textContent = windowWord(data.judgedWindow);
+      $('judged-window').textContent = windowWord(data.judgedWindow) === 'all' ? 'all time' : windowWord(data.judgedWindow);
       slot.setAttribute('aria-busy', 'false');
+      // Each update redraws the cards: keep the keyboard focus and the opened details where they were.
+      const focused = slot.contains(document.activeElement) ? document.activeElement.dataset.key : null;
+      const opened = [...slot.querySelectorAll('details[open]')].map((d) => d.dataset.key);
       if (data.models.length === 0) {
         slot.replaceChildren(h('p', { class: 'placeholder' }, 'No model is loaded. Put model files into the models folder; they load within seconds.'));
       } else {
         slot.replaceChildren(...data.models.map(modelCard));
       }
+      const find = (key) => [...slot.querySelectorAll('[data-key]')].find((e) => e.dataset.key === key);
+      for (const key of opened) { const d = find(key); if (d) d.open = true; }
+      if (focused) { const e = find(focused); if (e) e.focus(); }
+      slot.dataset.renders = String(Number(slot.dataset.renders || 0) + 1);
       if (data.loadErrors.length > 0) {
         slot.append(h('section', { class: 'card' }, h('h2', {}, 'Files that did not load'),
           h('ul', {}, data.loadErrors.map((e) => h('li', {}, h('span', { class: 'version-name' }, e.file), ': ', e.problems.join('; '))))));
@@ -511,6 +529,16 @@
     stream.restart();
   }
 
+  // The last change of status: to what, from what, when, and its reasons then when they differ from the reasons now.
+  function lastChange(v) {
+    const c = v.lastChange;
+    const key = `${v.model}|${v.version}`;
+    const then = c.reasons.join('\n') !== (v.reasons || []).join('\n') && c.reasons.length > 0
+      ? h('details', { 'data-key': `details|${key}` }, h('summary', { 'data-key': `summary|${key}` }, 'reasons at the change'),
+        h('ul', {}, c.reasons.map((r) => h('li', {}, r)))) : null;
+    return [statusWords(c.to, c.advice).word, c.from ? ` (was ${statusWords(c.from).word})` : ' (first report since start)', h('br'), when(c.at), then];
+  }
+
   function modelCard(m) {
     const active = m.versions.filter((v) => v.stage !== 'retired');
     const retired = m.versions.filter((v) => v.stage === 'retired');
@@ -524,15 +552,14 @@
         h('td', { class: 'num' }, count(v.scoredLastHour), h('br'), h('span', { class: 'note' }, `${count(v.scored24h)} in 24 h`)),
         h('td', { class: 'num', 'data-labelled': String(v.labelled ?? '') }, count(v.labelled), h('br'), h('span', { class: 'note' }, `${count(v.immature)} waiting`)),
         h('td', { class: 'num', 'data-events': String(v.events ?? '') }, count(v.events)),
-        h('td', {}, v.lastChange ? [statusWords(v.lastChange.to, v.lastChange.advice).word,
-          v.lastChange.from ? ` (was ${statusWords(v.lastChange.from).word})` : ' (first report since start)', h('br'), when(v.lastChange.at)] : '–')));
-      const reasons = v.lastChange ? v.lastChange.reasons : v.reasons || [];
+        h('td', {}, v.lastChange ? lastChange({ ...v, model: m.model }) : '–')));
+      const reasons = v.reasons || [];
       if (reasons.length > 0) {
         body.push(h('tr', { class: 'reasons' }, h('td', { colspan: '7' }, h('ul', {}, reasons.map((r) => h('li', {}, r))))));
       }
     }
     return h('section', { class: 'card', 'data-model': m.model, 'aria-labelledby': `model-${m.model}` },
-      h('div', { class: 'card-head' }, h('h2', { id: `model-${m.model}` }, h('a', { href: link }, m.model)),
+      h('div', { class: 'card-head' }, h('h2', { id: `model-${m.model}` }, h('a', { href: link, 'data-key': `name|${m.model}` }, m.model)),
         h('span', { class: 'meta' }, `${m.link} link · outcome: ${m.outcome} · horizon ${m.horizon}`)),
       h('p', { class: 'desc' }, firstSentence(m.description)),
       h('table', {},
@@ -541,7 +568,7 @@
           h('th', { scope: 'col', class: i >= 3 && i <= 5 ? 'num' : null }, c)))),
         h('tbody', {}, body)),
       retired.length > 0 ? h('p', { class: 'retired' }, `Retired: ${retired.map((v) => v.version).join(', ')}`) : null,
-      h('a', { class: 'open', href: link }, `Open ${m.model} →`));
+      h('a', { class: 'open', href: link, 'data-key': `open|${m.model}` }, `Open ${m.model} →`));
   }
 
   // ---------------------------------------------------------------- a model
@@ -561,12 +588,13 @@
       return `/v1/models/${encodeURIComponent(model)}/monitor/events?${q}`;
     };
 
+    // A change of status shows whichever event brings it first: the "status" event, or a refresh's snapshot.
     const stream = follow(monitorPath, (kind, report) => {
       const previous = state.report;
       state.report = report;
       notice(null);
       renderReport();
-      if (kind === 'status' && previous && previous.status !== report.status) announce(previous, report);
+      if (previous && previous.version === report.version && previous.status !== report.status) announce(previous, report);
       refreshSeries();
     }, (e) => {
       notice(e, 'The service did not give the report');
@@ -652,7 +680,8 @@
         figure('Calibration intercept', r.calibrationIntercept ? num(r.calibrationIntercept.estimate) : '–', r.calibrationIntercept ? `${level}: ${interval(r.calibrationIntercept)}` : 'not estimable'),
         figure('AUC', r.auc ? num(r.auc.estimate) : '–', r.auc ? `${level}: ${interval(r.auc)}` : 'not estimable'),
         figure('Brier', num(r.brier, 4), r.ece !== undefined ? `ECE ${num(r.ece, 4)}` : ''),
-        figure('EWMA O − E', r.ewma ? num(r.ewma.value, 4) : '–', r.ewma ? `limit ±${num(r.ewma.limit, 4)}${r.ewma.outOfControl ? ' · beyond' : ''}` : 'charts not started'));
+        figure('EWMA O − E', r.ewma && r.ewma.limit > 0 ? num(r.ewma.value, 4) : '–',
+          r.ewma && r.ewma.limit > 0 ? `limit ±${num(r.ewma.limit, 4)}${r.ewma.outOfControl ? ' · beyond' : ''}` : 'no matured outcome yet'));
       $('reasons').replaceChildren(...(r.reasons || []).map((x) => h('li', {}, x)));
       $('advice').textContent = r.advice || '';
       reliabilityChart($('chart-reliability'), r);
@@ -731,8 +760,9 @@
         const answer = await api(path, { method: 'POST', body });
         result.dataset.outcome = 'ok';
         result.replaceChildren(h('strong', {}, 'Done.'), describe(action, answer, version));
+        if (action !== 'recalibrate') state.version = ''; // show the live version, whichever it is now
         await loadOverview();
-        if (action !== 'recalibrate') { state.version = ''; select(); }
+        if (action !== 'recalibrate') select();
       } catch (err) {
         result.dataset.outcome = err instanceof ApiError && err.refused ? 'refused' : 'failed';
         result.replaceChildren(h('strong', {}, err instanceof ApiError ? err.title : 'Failed'), ` ${err.message}`,

@@ -1,0 +1,23 @@
+using Scorer.Store.Postgres;
+using Xunit.Abstractions;
+
+namespace Scorer.Store.Tests;
+
+/// <summary>
+/// The contract, on a real PostgreSQL server (<see cref="PostgresServer"/>), in a fresh schema per test (dropped after):
+/// every store a test opens shares that schema, as replicas share a database.
+/// </summary>
+[RequiresPostgres]
+public sealed class PostgresStoreContractTests(ITestOutputHelper output) : StoreContractTests(output)
+{
+    private readonly string _schema = PostgresServer.NewSchemaName();
+
+    /// <summary>timestamptz keeps microseconds.</summary>
+    protected override TimeSpan TimePrecision => TimeSpan.FromMicroseconds(1);
+
+    /// <summary>In a schema that does not exist yet, so every test also proves the store creates it.</summary>
+    protected override async Task<IScorerStore> CreateStoreAsync() =>
+        PostgresScorerStore.ForConnectionString(await PostgresServer.ConnectionStringAsync(), new PostgresStoreOptions { Schema = _schema });
+
+    protected override Task DeleteStorageAsync() => PostgresServer.DropSchemaAsync(_schema);
+}
