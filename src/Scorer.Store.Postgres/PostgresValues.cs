@@ -45,19 +45,7 @@ internal static class PostgresValues
         return n * unit == us ? n : n + 1;
     }
 
-    public static string ToText(Stage stage) => stage switch
-    {
-        Stage.Live => "live",
-        Stage.Shadow => "shadow",
-        Stage.Retired => "retired",
-        _ => throw new ArgumentOutOfRangeException(nameof(stage), stage, "Not a stage: expected Live, Shadow or Retired."),
-    };
+    public static string ToText(Stage stage) => StoreRules.ToText(stage);
 
-    public static Stage ToStage(string text) => text switch
-    {
-        "live" => Stage.Live,
-        "shadow" => Stage.Shadow,
-        "retired" => Stage.Retired,
-        _ => throw new InvalidOperationException($"The database holds an unknown stage '{text}'."),
-    };
+    public static Stage ToStage(string text) => StoreRules.ToStage(text);
 }

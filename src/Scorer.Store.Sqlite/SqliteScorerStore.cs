@@ -444,36 +444,7 @@ public sealed class SqliteScorerStore : IScorerStore
 
     private static void CheckPrediction(PredictionRecord? row, int index)
     {
-        if (row is null)
-        {
-            throw new ArgumentException($"batch[{index}] is null.", "batch");
-        }
-
-        if (string.IsNullOrEmpty(row.Model) || string.IsNullOrEmpty(row.Version))
-        {
-            throw new ArgumentException($"batch[{index}] (id {row.Id}) has no Model or no Version.", "batch");
-        }
-
-        if (!double.IsFinite(row.Eta))
-        {
-            throw new ArgumentException($"batch[{index}] (id {row.Id}) has Eta = {row.Eta.ToString(CultureInfo.InvariantCulture)}; Eta must be finite.", "batch");
-        }
-
-        if (!double.IsFinite(row.Probability))
-        {
-            throw new ArgumentException(
-                $"batch[{index}] (id {row.Id}) has Probability = {row.Probability.ToString(CultureInfo.InvariantCulture)}; Probability must be finite.", "batch");
-        }
-
-        if (row.FeaturesJson is null)
-        {
-            throw new ArgumentException($"batch[{index}] (id {row.Id}) has no FeaturesJson.", "batch");
-        }
-
-        if (!Enum.IsDefined(row.Stage))
-        {
-            throw new ArgumentException($"batch[{index}] (id {row.Id}) has Stage = {(int)row.Stage}, which is not a stage.", "batch");
-        }
+        StoreRules.CheckPrediction(row, index);
     }
 
     private static ModelVersionRecord? FindVersion(SqliteConnection connection, SqliteTransaction transaction, string model, string version)

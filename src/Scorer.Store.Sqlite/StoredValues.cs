@@ -15,21 +15,9 @@ internal static class StoredValues
     public static DateTimeOffset FromUnixMicroseconds(long microseconds) =>
         new(DateTimeOffset.UnixEpoch.UtcTicks + (microseconds * TicksPerMicrosecond), TimeSpan.Zero);
 
-    public static string ToText(Stage stage) => stage switch
-    {
-        Stage.Live => "live",
-        Stage.Shadow => "shadow",
-        Stage.Retired => "retired",
-        _ => throw new ArgumentOutOfRangeException(nameof(stage), stage, "Not a stage: expected Live, Shadow or Retired."),
-    };
+    public static string ToText(Stage stage) => StoreRules.ToText(stage);
 
-    public static Stage ToStage(string text) => text switch
-    {
-        "live" => Stage.Live,
-        "shadow" => Stage.Shadow,
-        "retired" => Stage.Retired,
-        _ => throw new InvalidOperationException($"The database holds an unknown stage '{text}'."),
-    };
+    public static Stage ToStage(string text) => StoreRules.ToStage(text);
 
     /// <summary>The Guid's 16 bytes in big-endian (RFC 9562) order, as a PostgreSQL uuid holds them.</summary>
     public static byte[] ToBytes(Guid id)

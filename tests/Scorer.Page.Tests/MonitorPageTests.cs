@@ -158,6 +158,9 @@ public sealed class MonitorPageTests(BrowserFixture browser) : IAsyncLifetime
         Assert.True(await page.EvaluateAsync<int>("() => Number(document.getElementById('overview').dataset.renders)") > renders);
         await Assertions.Expect(open).ToBeFocusedAsync();
         await page.Keyboard.PressAsync("Enter");
-        await page.WaitForURLAsync(url => url.EndsWith($"/models/{PageServer.Pumps}", StringComparison.Ordinal));
+        // Enter follows the focused link: the navigation is committed (its load is not awaited: the model view's
+        // event streams stay open, and a busy test machine can take long to finish drawing).
+        await page.WaitForURLAsync(url => url.EndsWith($"/models/{PageServer.Pumps}", StringComparison.Ordinal),
+            new PageWaitForURLOptions { WaitUntil = WaitUntilState.Commit });
     }
 }

@@ -97,14 +97,19 @@ public sealed class PageApiTests : IAsyncLifetime
     public async Task The_overview_gives_every_version_with_its_status_counts_and_last_change()
     {
         // The overview reads the monitor's latest round (every 200 ms here): wait for the round after the outcomes.
-        var judged = await _server.GetJsonAsync($"v1/models/{PageServer.Pumps}/monitor?window=30d");
+        // The charts move on as outcomes mature (a CUSUM signal adds a reason), so the report is read again each time
+        // until the overview and the report describe the same state.
+        JsonElement judged = default;
         JsonElement overview = default;
         Assert.True(await Eventually.HoldsAsync(async () =>
         {
+            judged = await _server.GetJsonAsync($"v1/models/{PageServer.Pumps}/monitor?window=30d");
             overview = await _server.GetJsonAsync("v1/overview");
-            return overview.GetProperty("models").EnumerateArray().Single(m => m.GetProperty("model").GetString() == PageServer.Pumps)
-                .GetProperty("versions")[0].GetProperty("labelled").GetInt64() == judged.GetProperty("labelled").GetInt64();
-        }, TimeSpan.FromSeconds(10)), "the overview did not catch up with the outcomes");
+            var first = overview.GetProperty("models").EnumerateArray().Single(m => m.GetProperty("model").GetString() == PageServer.Pumps)
+                .GetProperty("versions")[0];
+            return first.GetProperty("labelled").GetInt64() == judged.GetProperty("labelled").GetInt64()
+                && first.GetProperty("reasons").GetRawText() == judged.GetProperty("reasons").GetRawText();
+        }, TimeSpan.FromSeconds(20)), "the overview did not catch up with the outcomes");
         Assert.Equal(["24h", "7d", "30d", "all"], overview.GetProperty("windows").EnumerateArray().Select(w => w.GetString()!).ToArray());
         var pumps = overview.GetProperty("models").EnumerateArray().Single(m => m.GetProperty("model").GetString() == PageServer.Pumps);
         Assert.Equal(PageServer.LiveVersion, pumps.GetProperty("live").GetString());
