@@ -42,8 +42,30 @@ public sealed class LabelledCache(IScorerStore store)
         }
     }
 
-    /// <summary>How many changes have been applied to a version's rows (grows whenever an outcome arrives or changes).</summary>
-    public long Generation(string model, string version) => _versions.TryGetValue((model, version), out var rows) ? Volatile.Read(ref rows.Applied) : 0;
+    /// <summary>
+    /// Brings the version's rows up to date, then cuts those scored in [from, to) into consecutive buckets of prediction
+    /// time laid out by <paramref name="layout"/> (given the earliest such row's time, or null when there is none: the
+    /// first bucket's start, the bucket length and how many buckets); rows outside the buckets are left out. Each
+    /// bucket's rows come in ascending order of p, ready for <see cref="Statistics.CalibrationStatistics.ComputeSorted"/>.
+    /// One scan for the earliest time, one for the buckets.
+    /// </summary>
+    public async Task<IReadOnlyList<(double[] Probability, byte[] Outcome)>> BucketsAsync(string model, string version, DateTimeOffset from, DateTimeOffset to,
+        Func<DateTimeOffset?, (DateTimeOffset Start, TimeSpan Step, int Count)> layout, CancellationToken cancellationToken = default)
+    {
+        ArgumentNullException.ThrowIfNull(layout);
+        var rows = _versions.GetOrAdd((model, version), _ => new VersionRows());
+        await rows.Gate.WaitAsync(cancellationToken).ConfigureAwait(false);
+        try
+        {
+            var changes = await store.GetLabelledChangesAsync(model, version, rows.Cursor, cancellationToken).ConfigureAwait(false);
+            rows.Apply(changes);
+            return rows.SelectBuckets(from.UtcTicks, to.UtcTicks, layout);
+        }
+        finally
+        {
+            rows.Gate.Release();
+        }
+    }
 
     /// <summary>Forgets versions no longer reported on (retired or unloaded).</summary>
     public void Retain(Func<string, string, bool> keep)
@@ -185,6 +207,49 @@ public sealed class LabelledCache(IScorerStore store)
             }
 
             return new LabelledWindow(p, y, n, (Applied, n, members));
+        }
+
+        public (double[] Probability, byte[] Outcome)[] SelectBuckets(long fromTicks, long toTicks,
+            Func<DateTimeOffset?, (DateTimeOffset Start, TimeSpan Step, int Count)> layout)
+        {
+            var rows = _rows;
+            long? earliest = null;
+            for (var i = 0; i < _count; i++)
+            {
+                var t = rows.Ticks[i];
+                if (t >= fromTicks && t < toTicks && (earliest is null || t < earliest))
+                {
+                    earliest = t;
+                }
+            }
+
+            var (start, step, count) = layout(earliest is { } e ? new DateTimeOffset(e, TimeSpan.Zero) : null);
+            ArgumentOutOfRangeException.ThrowIfLessThanOrEqual(step, TimeSpan.Zero);
+            var p = new List<double>[count];
+            var y = new List<byte>[count];
+            for (var k = 0; k < count; k++)
+            {
+                (p[k], y[k]) = ([], []);
+            }
+
+            var startTicks = start.UtcTicks;
+            for (var i = 0; i < _count; i++)
+            {
+                var t = rows.Ticks[i];
+                if (t < fromTicks || t >= toTicks || t < startTicks)
+                {
+                    continue;
+                }
+
+                var k = (t - startTicks) / step.Ticks;
+                if (k < count)
+                {
+                    p[k].Add(rows.P[i]);
+                    y[k].Add(rows.Y[i]);
+                }
+            }
+
+            return [.. Enumerable.Range(0, count).Select(k => (p[k].ToArray(), y[k].ToArray()))];
         }
 
         private sealed class Columns(int capacity)

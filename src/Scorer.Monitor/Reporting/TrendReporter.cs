@@ -39,7 +39,7 @@ public sealed record CusumPaths(string Window, DateTimeOffset From, DateTimeOffs
 /// What the page draws over time and the report does not hold: the calibration intercept and slope and the AUC per
 /// bucket of prediction time (<see cref="TrendAsync"/>), and the paths of the CUSUM charts (<see cref="CusumAsync"/>).
 /// </summary>
-public sealed class TrendReporter(IScorerStore store, ChartRunner charts, MonitorOptions options, TimeProvider time)
+public sealed class TrendReporter(IScorerStore store, LabelledCache labelled, ChartRunner charts, MonitorOptions options, TimeProvider time)
 {
     /// <summary>The bucket lengths a trend chooses from: the shortest that keeps the buckets within the asked number.</summary>
     public static IReadOnlyList<TimeSpan> Steps { get; } =
@@ -52,8 +52,8 @@ public sealed class TrendReporter(IScorerStore store, ChartRunner charts, Monito
 
     /// <summary>
     /// The trend of a version over a window (a name of <see cref="MonitorOptions.Windows"/>): the window's labelled
-    /// predictions in prediction-time order, cut into at most <paramref name="maxBuckets"/> buckets, and
-    /// <see cref="CalibrationStatistics.Compute"/> over each bucket's rows.
+    /// predictions from the <see cref="LabelledCache"/>, cut into at most <paramref name="maxBuckets"/> buckets, and
+    /// <see cref="CalibrationStatistics.ComputeSorted"/> over each bucket's rows.
     /// </summary>
     /// <exception cref="ArgumentException">The window is not configured.</exception>
     /// <exception cref="ArgumentOutOfRangeException">maxBuckets is below 1.</exception>
@@ -62,32 +62,23 @@ public sealed class TrendReporter(IScorerStore store, ChartRunner charts, Monito
         ArgumentOutOfRangeException.ThrowIfLessThan(maxBuckets, 1);
         var now = time.GetUtcNow();
         var (from, to) = Bounds(window, now);
-        var rows = await store.GetLabelledAsync(version.Model, version.Version, from, to, cancellationToken).ConfigureAwait(false);
-        var first = (rows.Count > 0 ? rows[0].ScoredAt : now).UtcTicks - DateTimeOffset.UnixEpoch.UtcTicks;
         var last = now.UtcTicks - DateTimeOffset.UnixEpoch.UtcTicks;
-
-        // The shortest step whose aligned buckets, from the one holding the first row to the one holding now, are few enough.
-        var step = Steps.FirstOrDefault(s => (last / s.Ticks) - (first / s.Ticks) + 1 <= maxBuckets, Steps[^1]);
-        var start = new DateTimeOffset(DateTimeOffset.UnixEpoch.UtcTicks + (first / step.Ticks * step.Ticks), TimeSpan.Zero);
-        var buckets = new List<TrendBucket>();
-        var probability = new List<double>();
-        var outcome = new List<byte>();
-        var next = 0;
-        for (var bucketFrom = start; bucketFrom <= now; bucketFrom += step)
+        var step = Steps[^1];
+        var start = now;
+        var rows = await labelled.BucketsAsync(version.Model, version.Version, from, to, earliest =>
         {
-            var bucketTo = bucketFrom + step;
-            probability.Clear();
-            outcome.Clear();
-            while (next < rows.Count && rows[next].ScoredAt < bucketTo)
-            {
-                probability.Add(rows[next].Probability);
-                outcome.Add(rows[next].Outcome);
-                next++;
-            }
-
-            var c = CalibrationStatistics.Compute(System.Runtime.InteropServices.CollectionsMarshal.AsSpan(probability),
-                System.Runtime.InteropServices.CollectionsMarshal.AsSpan(outcome), options.Level);
-            buckets.Add(new TrendBucket(bucketFrom, bucketTo, c.Labelled, c.Events, c.Expected, c.CalibrationIntercept, c.CalibrationSlope,
+            // The shortest step whose aligned buckets, from the one holding the first row to the one holding now, are few enough.
+            var first = (earliest ?? now).UtcTicks - DateTimeOffset.UnixEpoch.UtcTicks;
+            step = Steps.FirstOrDefault(s => (last / s.Ticks) - (first / s.Ticks) + 1 <= maxBuckets, Steps[^1]);
+            start = new DateTimeOffset(DateTimeOffset.UnixEpoch.UtcTicks + (first / step.Ticks * step.Ticks), TimeSpan.Zero);
+            return (start, step, (int)((now - start).Ticks / step.Ticks) + 1);
+        }, cancellationToken).ConfigureAwait(false);
+        var buckets = new List<TrendBucket>(rows.Count);
+        for (var k = 0; k < rows.Count; k++)
+        {
+            var bucketFrom = start + (step * k);
+            var c = CalibrationStatistics.ComputeSorted(rows[k].Probability, rows[k].Outcome, options.Level);
+            buckets.Add(new TrendBucket(bucketFrom, bucketFrom + step, c.Labelled, c.Events, c.Expected, c.CalibrationIntercept, c.CalibrationSlope,
                 c.Auc is { } auc && double.IsFinite(auc.Estimate) ? auc : null));
         }
 
