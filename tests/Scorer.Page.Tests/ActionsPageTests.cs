@@ -117,7 +117,7 @@ public sealed class ActionsPageTests(BrowserFixture browser) : IAsyncLifetime
         await page.Locator("#window-7d").FocusAsync();
         await page.Keyboard.PressAsync("ArrowRight");
         await Assertions.Expect(page.Locator("#window-30d")).ToBeCheckedAsync();
-        await page.WaitForURLAsync(url => url.Contains("window=30d", StringComparison.Ordinal));
+        await Assertions.Expect(page).ToHaveURLAsync(new System.Text.RegularExpressions.Regex("window=30d"));
 
         var promote = page.Locator("button[data-action=\"promote\"]");
         await promote.FocusAsync();

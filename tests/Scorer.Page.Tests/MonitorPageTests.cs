@@ -158,9 +158,9 @@ public sealed class MonitorPageTests(BrowserFixture browser) : IAsyncLifetime
         Assert.True(await page.EvaluateAsync<int>("() => Number(document.getElementById('overview').dataset.renders)") > renders);
         await Assertions.Expect(open).ToBeFocusedAsync();
         await page.Keyboard.PressAsync("Enter");
-        // Enter follows the focused link: the navigation is committed (its load is not awaited: the model view's
-        // event streams stay open, and a busy test machine can take long to finish drawing).
-        await page.WaitForURLAsync(url => url.EndsWith($"/models/{PageServer.Pumps}", StringComparison.Ordinal),
-            new PageWaitForURLOptions { WaitUntil = WaitUntilState.Commit });
+        // Enter follows the focused link. The page's address is polled until the navigation has committed: waiting for
+        // the navigation event instead can miss one that commits before the wait subscribes (the test that failed so),
+        // and the load is not awaited (the model view's event streams stay open).
+        await Assertions.Expect(page).ToHaveURLAsync(new System.Text.RegularExpressions.Regex($"/models/{PageServer.Pumps}$"));
     }
 }
