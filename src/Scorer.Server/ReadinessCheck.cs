@@ -45,7 +45,15 @@ internal sealed class ReadinessCheck(ModelRegistry registry, IScorerStore store,
             degraded = true;
         }
 
-        var ready = reasons.Count == (degraded ? 1 : 0);
+        if (log.Enabled && log.Stalled)
+        {
+            // Rows wait and no write succeeds: the store is down (said above), or the writer cannot get rows through.
+            reasons.Add($"degraded: prediction log not draining ({log.Depth} rows waiting, none written for {log.Waiting.TotalSeconds:0} s; "
+                + $"{log.FailedWrites} failed writes, {log.SetAside} rows set aside since start)");
+            degraded = true;
+        }
+
+        var ready = reasons.Count == reasons.Count(r => r.StartsWith("degraded:", StringComparison.Ordinal));
         if (log.Enabled && log.Depth >= log.Capacity * 0.9)
         {
             reasons.Add($"prediction log nearly full ({log.Depth} of {log.Capacity} rows waiting)");

@@ -430,7 +430,7 @@ public sealed partial class PostgresScorerStore : IScorerStore
     /// The error naming the first row of the batch that could not be written: the first whose id is already stored or
     /// repeats an earlier row's (the row a row-by-row insert would have stopped at).
     /// </summary>
-    private static async Task<InvalidOperationException> DuplicateIdErrorAsync(
+    private static async Task<PredictionRefusedException> DuplicateIdErrorAsync(
         NpgsqlConnection connection, IReadOnlyList<PredictionRecord> batch, PostgresException? violation, CancellationToken cancellationToken)
     {
         var stored = new HashSet<Guid>();
@@ -449,15 +449,30 @@ public sealed partial class PostgresScorerStore : IScorerStore
         {
             if (stored.Contains(row.Id) || !seen.Add(row.Id))
             {
-                return new InvalidOperationException($"No prediction of the batch was written: id {row.Id} is repeated in the batch or already stored.", violation);
+                return new PredictionRefusedException($"No prediction of the batch was written: id {row.Id} is repeated in the batch or already stored.", violation);
             }
         }
 
         // The clash was with a concurrent batch that has since rolled back; PostgreSQL's detail still names the key.
-        return new InvalidOperationException(
+        return new PredictionRefusedException(
             $"No prediction of the batch was written: an id was being written by another batch at the same time ({violation?.Detail ?? violation?.MessageText}).",
             violation);
     }
+
+    /// <inheritdoc />
+    /// <remarks>
+    /// Refusals: a row the contract checks refuse (<see cref="ArgumentException"/>), a repeated id (<see cref="PredictionRefusedException"/>), and the server's data exceptions (SQLSTATE class 22, e.g. 22021 for a
+    /// U+0000 in text), integrity violations (class 23) and program limits (class 54, e.g. a row too large).
+    /// </remarks>
+    public bool IsRefusal(Exception error) => error switch
+    {
+        ArgumentException or PredictionRefusedException => true,
+        PostgresException p => IsDataRefusal(p.SqlState),
+        _ => false,
+    };
+
+    private static bool IsDataRefusal(string sqlState) =>
+        sqlState.StartsWith("22", StringComparison.Ordinal) || sqlState.StartsWith("23", StringComparison.Ordinal) || sqlState.StartsWith("54", StringComparison.Ordinal);
 
     /// <inheritdoc />
     public async Task<PredictionRecord?> GetPredictionAsync(Guid id, CancellationToken cancellationToken = default)

@@ -81,7 +81,7 @@ internal static class PredictionBatchInsert
                 {
                     if (raw.sqlite3_extended_errcode(db) == PrimaryKeyConstraint)
                     {
-                        throw new InvalidOperationException(
+                        throw new PredictionRefusedException(
                             $"No prediction of the batch was written: id {row.Id} is repeated in the batch or already stored.");
                     }
 

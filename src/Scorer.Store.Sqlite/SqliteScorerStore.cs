@@ -332,6 +332,19 @@ public sealed class SqliteScorerStore : IScorerStore
     }
 
     /// <inheritdoc />
+    /// <remarks>
+    /// Refusals: a row the contract checks refuse (<see cref="ArgumentException"/>), a repeated id
+    /// (<see cref="PredictionRefusedException"/>), and SQLite's constraint (19, e.g.
+    /// a repeated id), too-big (18), mismatch (20) and range (25) errors.
+    /// </remarks>
+    public bool IsRefusal(Exception error) => error switch
+    {
+        ArgumentException or PredictionRefusedException => true,
+        SqliteException { SqliteErrorCode: 18 or 19 or 20 or 25 } => true,
+        _ => false,
+    };
+
+    /// <inheritdoc />
     public async Task<PredictionRecord?> GetPredictionAsync(Guid id, CancellationToken cancellationToken = default)
     {
         await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);

@@ -120,6 +120,14 @@ public interface IScorerStore : IAsyncDisposable
     /// </summary>
     Task WritePredictionsAsync(IReadOnlyList<PredictionRecord> batch, CancellationToken cancellationToken = default);
 
+    /// <summary>
+    /// True when <paramref name="error"/>, thrown by <see cref="WritePredictionsAsync"/>, says the store refused what
+    /// the rows hold (a value it cannot keep, a broken rule such as a repeated id): writing the same rows again cannot
+    /// succeed. False for a failure that may pass (the store unreachable, a timeout, a full disk). The prediction log
+    /// sets refused rows aside instead of retrying them forever.
+    /// </summary>
+    bool IsRefusal(Exception error) => error is ArgumentException or PredictionRefusedException;
+
     Task<PredictionRecord?> GetPredictionAsync(Guid id, CancellationToken cancellationToken = default);
 
     /// <summary>The predictions of a model (optionally one version) scored in [from, to), in time order.</summary>

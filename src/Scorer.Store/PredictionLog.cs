@@ -20,19 +20,34 @@ public sealed record PredictionLogOptions
 
     /// <summary>How long shutdown waits for the queue to drain. Default 20 s.</summary>
     public TimeSpan DrainTimeout { get; init; } = TimeSpan.FromSeconds(20);
+
+    /// <summary>
+    /// The folder where rows the store refuses (a value it cannot hold, a repeated id) are kept as JSON lines with the
+    /// reason, so that no accepted row is lost and none can stop the log. Default <c>data/set-aside</c>.
+    /// </summary>
+    public string SetAsideFolder { get; init; } = Path.Combine("data", "set-aside");
+
+    /// <summary>
+    /// Rows waiting with no successful write for this long make the log "not draining" (readiness says so). Default 30 s.
+    /// </summary>
+    public TimeSpan StallAfter { get; init; } = TimeSpan.FromSeconds(30);
 }
 
 /// <summary>
 /// The prediction log behind the request path: a bounded queue drained by one writer in batches. Scoring never waits
 /// for the store. When the store is slow the queue fills to its bound (memory stays bounded); rows that find it full
 /// are dropped and counted, never lost silently. A failed write is retried with backoff and the batch kept; shutdown
-/// drains the queue, within <see cref="PredictionLogOptions.DrainTimeout"/>.
+/// drains the queue, within <see cref="PredictionLogOptions.DrainTimeout"/>. A batch the store refuses for what it
+/// holds (<see cref="IScorerStore.IsRefusal"/>) is split until the refused rows are found; those are set aside in
+/// <see cref="PredictionLogOptions.SetAsideFolder"/> with the reason and counted, and the rest is written, so no single
+/// row can stop the log.
 /// </summary>
 public sealed class PredictionLog : IAsyncDisposable
 {
     private readonly IScorerStore _store;
     private readonly PredictionLogOptions _options;
     private readonly ILogger _logger;
+    private readonly TimeProvider _time;
     private readonly Channel<PredictionRecord> _queue;
     private readonly CancellationTokenSource _abort = new();
     private readonly Task _writer;
@@ -40,14 +55,20 @@ public sealed class PredictionLog : IAsyncDisposable
     private long _written;
     private long _dropped;
     private long _failedWrites;
+    private long _setAside;
+    private long _inWriter; // rows taken from the queue and not yet written or set aside
     private long _lastBatchTicks;
+    // When the queue was last seen empty or a write last succeeded (TimeProvider timestamps), for "not draining".
+    private long _lastDrainedTimestamp;
     private int _stopped;
 
-    public PredictionLog(IScorerStore store, PredictionLogOptions options, ILogger<PredictionLog> logger)
+    public PredictionLog(IScorerStore store, PredictionLogOptions options, ILogger<PredictionLog> logger, TimeProvider? time = null)
     {
         _store = store;
         _options = options;
         _logger = logger;
+        _time = time ?? TimeProvider.System;
+        _lastDrainedTimestamp = _time.GetTimestamp();
         _queue = Channel.CreateBounded<PredictionRecord>(new BoundedChannelOptions(Math.Max(1, options.Capacity))
         {
             SingleReader = true,
@@ -62,6 +83,30 @@ public sealed class PredictionLog : IAsyncDisposable
     public long Written => Interlocked.Read(ref _written);
     public long Dropped => Interlocked.Read(ref _dropped);
     public long FailedWrites => Interlocked.Read(ref _failedWrites);
+
+    /// <summary>Rows the store refused, set aside in <see cref="PredictionLogOptions.SetAsideFolder"/> since start.</summary>
+    public long SetAside => Interlocked.Read(ref _setAside);
+
+    /// <summary>
+    /// How long rows have waited with no successful write (zero when the queue is empty or a write succeeded since
+    /// they came). Beyond <see cref="PredictionLogOptions.StallAfter"/> the log is not draining.
+    /// </summary>
+    public TimeSpan Waiting
+    {
+        get
+        {
+            if (Depth == 0 && Interlocked.Read(ref _inWriter) == 0)
+            {
+                Interlocked.Exchange(ref _lastDrainedTimestamp, _time.GetTimestamp());
+                return TimeSpan.Zero;
+            }
+
+            return _time.GetElapsedTime(Interlocked.Read(ref _lastDrainedTimestamp));
+        }
+    }
+
+    /// <summary>True when rows have waited longer than <see cref="PredictionLogOptions.StallAfter"/> with no successful write.</summary>
+    public bool Stalled => Waiting > _options.StallAfter;
     public int Depth => _queue.Reader.CanCount ? _queue.Reader.Count : 0;
     public int Capacity => _options.Capacity;
 
@@ -99,7 +144,7 @@ public sealed class PredictionLog : IAsyncDisposable
         }
 
         _queue.Writer.TryComplete();
-        var finished = await Task.WhenAny(_writer, Task.Delay(_options.DrainTimeout)).ConfigureAwait(false);
+        var finished = await Task.WhenAny(_writer, Task.Delay(_options.DrainTimeout, _time)).ConfigureAwait(false);
         if (finished != _writer)
         {
             await _abort.CancelAsync().ConfigureAwait(false);
@@ -146,14 +191,21 @@ public sealed class PredictionLog : IAsyncDisposable
 
             if (batch.Count > 0)
             {
-                await WriteWithRetryAsync(batch).ConfigureAwait(false);
+                Interlocked.Exchange(ref _inWriter, batch.Count);
+                await WriteAsync(batch, 0, batch.Count).ConfigureAwait(false);
+                Interlocked.Exchange(ref _inWriter, 0);
                 batch.Clear();
             }
         }
     }
 
-    private async Task WriteWithRetryAsync(List<PredictionRecord> batch)
+    /// <summary>
+    /// Writes rows [start, start + count) of the batch: retried with backoff while the store fails in a way that may
+    /// pass; split in halves when it refuses them, down to the single rows it refuses, which are set aside.
+    /// </summary>
+    private async Task WriteAsync(List<PredictionRecord> batch, int start, int count)
     {
+        var rows = start == 0 && count == batch.Count ? batch : batch.GetRange(start, count);
         var delay = TimeSpan.FromMilliseconds(100);
         var failed = false;
         while (true)
@@ -163,31 +215,106 @@ public sealed class PredictionLog : IAsyncDisposable
             {
                 // A batch is written all or nothing. After a failure the store may still have committed it (the reply
                 // was lost): then its first row is there, and writing it again would only fail on the stored ids.
-                if (failed && await _store.GetPredictionAsync(batch[0].Id, _abort.Token).ConfigureAwait(false) is not null)
+                if (failed && await _store.GetPredictionAsync(rows[0].Id, _abort.Token).ConfigureAwait(false) is not null)
                 {
-                    Interlocked.Add(ref _written, batch.Count);
+                    CountWritten(rows.Count);
                     return;
                 }
 
-                await _store.WritePredictionsAsync(batch, _abort.Token).ConfigureAwait(false);
+                await _store.WritePredictionsAsync(rows, _abort.Token).ConfigureAwait(false);
                 Interlocked.Exchange(ref _lastBatchTicks, Stopwatch.GetElapsedTime(started).Ticks);
-                Interlocked.Add(ref _written, batch.Count);
+                CountWritten(rows.Count);
                 return;
             }
             catch (OperationCanceledException) when (_abort.IsCancellationRequested)
             {
                 throw;
             }
-#pragma warning disable CA1031 // the store may fail for any reason; the batch is kept and retried
+#pragma warning disable CA1031 // the store may fail for any reason; the rows are kept, retried or set aside
             catch (Exception ex)
 #pragma warning restore CA1031
             {
                 Interlocked.Increment(ref _failedWrites);
                 failed = true;
-                _logger.LogError(ex, "Writing {Rows} predictions failed; retrying in {Delay}", batch.Count, delay);
-                await Task.Delay(delay, _abort.Token).ConfigureAwait(false);
+                if (_store.IsRefusal(ex))
+                {
+                    if (count == 1)
+                    {
+                        await SetAsideAsync(rows[0], ex).ConfigureAwait(false);
+                        return;
+                    }
+
+                    // Some row of these is refused: write each half on its own until the refused rows are alone.
+                    _logger.LogWarning("The store refused a batch of {Rows} predictions ({Reason}); writing it in halves to set the refused rows aside",
+                        count, ex.Message);
+                    var half = count / 2;
+                    await WriteAsync(batch, start, half).ConfigureAwait(false);
+                    await WriteAsync(batch, start + half, count - half).ConfigureAwait(false);
+                    return;
+                }
+
+                _logger.LogError(ex, "Writing {Rows} predictions failed; retrying in {Delay}", rows.Count, delay);
+                await Task.Delay(delay, _time, _abort.Token).ConfigureAwait(false);
                 delay = TimeSpan.FromTicks(Math.Min(delay.Ticks * 2, TimeSpan.FromSeconds(5).Ticks));
             }
         }
+    }
+
+    private void CountWritten(int rows)
+    {
+        Interlocked.Add(ref _written, rows);
+        Interlocked.Add(ref _inWriter, -rows);
+        Interlocked.Exchange(ref _lastDrainedTimestamp, _time.GetTimestamp());
+    }
+
+    /// <summary>
+    /// Keeps a row the store refused as one JSON line (the reason, when, and the row) in the set-aside folder, one file
+    /// per day; when even that fails, the line goes to the service's log at error level. Either way it is counted.
+    /// </summary>
+    private async Task SetAsideAsync(PredictionRecord row, Exception reason)
+    {
+        Interlocked.Increment(ref _setAside);
+        Interlocked.Add(ref _inWriter, -1);
+        Interlocked.Exchange(ref _lastDrainedTimestamp, _time.GetTimestamp());
+        var now = _time.GetUtcNow();
+        var line = SetAsideLine(row, reason.Message, now);
+        try
+        {
+            Directory.CreateDirectory(_options.SetAsideFolder);
+            var file = Path.Combine(_options.SetAsideFolder, $"predictions-{now:yyyy-MM-dd}.jsonl");
+            await File.AppendAllTextAsync(file, line + "\n", _abort.Token).ConfigureAwait(false);
+            _logger.LogError("The store refused prediction {Id} of {Model} {Version} ({Reason}); set aside in {File}", row.Id, row.Model, row.Version,
+                reason.Message, file);
+        }
+        catch (Exception ex) when (ex is IOException or UnauthorizedAccessException)
+        {
+            _logger.LogError("The store refused prediction {Id} ({Reason}) and the set-aside folder {Folder} could not take it ({Error}); the row: {Row}",
+                row.Id, reason.Message, _options.SetAsideFolder, ex.Message, line);
+        }
+    }
+
+    /// <summary>One set-aside row as a JSON line.</summary>
+    public static string SetAsideLine(PredictionRecord row, string reason, DateTimeOffset at)
+    {
+        ArgumentNullException.ThrowIfNull(row);
+        var buffer = new System.Buffers.ArrayBufferWriter<byte>(256 + (row.FeaturesJson?.Length ?? 0));
+        using (var w = new System.Text.Json.Utf8JsonWriter(buffer))
+        {
+            w.WriteStartObject();
+            w.WriteString("reason", reason);
+            w.WriteString("setAsideAt", at);
+            w.WriteString("id", row.Id);
+            w.WriteString("model", row.Model);
+            w.WriteString("version", row.Version);
+            w.WriteString("stage", row.Stage.ToString().ToLowerInvariant());
+            w.WriteString("scoredAt", row.ScoredAt);
+            w.WriteString("key", row.Key);
+            w.WriteNumber("eta", double.IsFinite(row.Eta) ? row.Eta : 0);
+            w.WriteNumber("probability", double.IsFinite(row.Probability) ? row.Probability : 0);
+            w.WriteString("features", row.FeaturesJson);
+            w.WriteEndObject();
+        }
+
+        return System.Text.Encoding.UTF8.GetString(buffer.WrittenSpan);
     }
 }

@@ -105,3 +105,10 @@ public sealed record NumberedMigration(int Version, string Name, string Sql)
         return new NumberedMigration(version, fileName, reader.ReadToEnd());
     }
 }
+
+/// <summary>
+/// A batch of predictions the store refused because of what a row holds (its id is repeated or already stored);
+/// writing the same rows again cannot succeed. Derives from <see cref="InvalidOperationException"/>, as the contract
+/// names it.
+/// </summary>
+public sealed class PredictionRefusedException(string message, Exception? inner = null) : InvalidOperationException(message, inner);

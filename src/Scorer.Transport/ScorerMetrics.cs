@@ -31,6 +31,10 @@ public sealed class ScorerMetrics
         var dropped = factory.CreateGauge("scorer_prediction_log_dropped_rows", "Rows dropped because the queue was full, since start.");
         var failed = factory.CreateGauge("scorer_prediction_log_failed_writes", "Batch writes that failed and were retried, since start.");
         var batch = factory.CreateGauge("scorer_prediction_log_batch_seconds", "Duration of the last batch write.");
+        var setAside = factory.CreateCounter("scorer_prediction_log_set_aside_rows_total",
+            "Rows the store refused for what they hold, set aside in Scorer:Log:SetAsideFolder instead of written, since start.");
+        var waiting = factory.CreateGauge("scorer_prediction_log_waiting_seconds",
+            "How long rows have waited with no successful write (0 when the queue is empty); beyond Scorer:Log:StallAfter the log is not draining.");
         var shadowDropped = factory.CreateGauge("scorer_shadow_dropped_batches", "Shadow scoring work dropped because it fell behind, since start.");
         registry.Changed += _ => reloads.Inc();
         string[] windowLabels = ["model", "version", "window"];
@@ -108,6 +112,8 @@ public sealed class ScorerMetrics
             dropped.Set(log.Dropped);
             failed.Set(log.FailedWrites);
             batch.Set(log.LastBatchLatency.TotalSeconds);
+            setAside.IncTo(log.SetAside);
+            waiting.Set(log.Waiting.TotalSeconds);
             shadowDropped.Set(shadows.Dropped);
         });
     }

@@ -13,7 +13,7 @@ namespace Scorer.Store.Tests;
 /// or whose From is given and differs from the stored stage, throws <see cref="InvalidOperationException"/> naming the
 /// version and changes nothing; a change whose From is null applies from the stored stage, and the history records
 /// that stage as its From. A NaN or infinite eta or probability throws <see cref="ArgumentException"/> naming the
-/// field; a prediction id repeated in a batch or already stored throws <see cref="InvalidOperationException"/> naming
+/// field; a prediction id repeated in a batch or already stored throws <see cref="PredictionRefusedException"/> naming
 /// the id; either way the batch writes nothing. Stores return times in UTC (offset zero). After disposal, calls throw
 /// <see cref="ObjectDisposedException"/>.
 /// </remarks>
@@ -437,7 +437,7 @@ public abstract partial class StoreContractTests : IAsyncLifetime
         var rows = Enumerable.Range(0, 10).Select(i => Prediction(Renewal, "1", T0.AddSeconds(i))).ToArray();
         rows[7] = rows[7] with { Id = rows[2].Id };
 
-        var error = await Assert.ThrowsAsync<InvalidOperationException>(() => store.WritePredictionsAsync(rows));
+        var error = await Assert.ThrowsAsync<PredictionRefusedException>(() => store.WritePredictionsAsync(rows));
 
         Assert.Contains(rows[2].Id.ToString(), error.Message, StringComparison.OrdinalIgnoreCase);
         Assert.Equal(0, await store.CountPredictionsAsync(Renewal));
@@ -454,7 +454,7 @@ public abstract partial class StoreContractTests : IAsyncLifetime
         var second = Enumerable.Range(0, 5).Select(i => Prediction(Renewal, "2", T0.AddMinutes(1).AddSeconds(i))).ToArray();
         second[4] = second[4] with { Id = first[1].Id };
 
-        var error = await Assert.ThrowsAsync<InvalidOperationException>(() => store.WritePredictionsAsync(second));
+        var error = await Assert.ThrowsAsync<PredictionRefusedException>(() => store.WritePredictionsAsync(second));
 
         Assert.Contains(first[1].Id.ToString(), error.Message, StringComparison.OrdinalIgnoreCase);
         Assert.Equal(5, await store.CountPredictionsAsync(Renewal));
