@@ -174,13 +174,18 @@ public static class Program
     {
         var models = new Option<string?>("--models") { Description = "Folder of model files (default ./models, seeded with the demo models)." };
         var store = new Option<string?>("--store") { Description = "SQLite file for stages and the prediction log (default ./data/scorer.db)." };
+        var storeKind = new Option<string?>("--store-kind") { Description = "sqlite (default) or postgres." };
+        var storeConnection = new Option<string?>("--store-connection") { Description = "The PostgreSQL connection string, with --store-kind postgres." };
         var http = new Option<string?>("--http") { Description = "HOST:PORT for REST (default 127.0.0.1:8080)." };
         var grpc = new Option<string?>("--grpc") { Description = "HOST:PORT for gRPC over h2c (default 127.0.0.1:8081)." };
-        var command = new Command("serve", "Run the scoring service (REST and gRPC) with the models of a folder.") { models, store, http, grpc };
+        var command = new Command("serve", "Run the scoring service (REST and gRPC) with the models of a folder.") { models, store, storeKind, storeConnection, http, grpc };
         command.SetAction(async (r, _) =>
         {
             var args = new List<string>();
-            foreach (var (option, name) in new[] { (models, "--models"), (store, "--store"), (http, "--http"), (grpc, "--grpc") })
+            foreach (var (option, name) in new[]
+            {
+                (models, "--models"), (store, "--store"), (storeKind, "--store-kind"), (storeConnection, "--store-connection"), (http, "--http"), (grpc, "--grpc"),
+            })
             {
                 if (r.GetValue(option) is { } value)
                 {

@@ -182,6 +182,13 @@ public sealed class StoreOptions
                 {
                     yield return "Scorer:Store:Path is empty; name the SQLite file";
                 }
+                else if (LooksLikeConnectionString(Path))
+                {
+                    // Never guess: a connection string taken as a file name would quietly serve from a new SQLite file.
+                    yield return $"Scorer:Store:Path (--store) is '{Redacted(Path)}', which looks like a PostgreSQL connection string, not a SQLite file; "
+                        + "for PostgreSQL set Scorer:Store:Kind=postgres and Scorer:Store:ConnectionString (on the command line: "
+                        + "--store-kind postgres --store-connection '…')";
+                }
 
                 break;
             case "postgres":
@@ -201,6 +208,14 @@ public sealed class StoreOptions
             yield return $"Scorer:Store:PredictionRetention is {retention}; give a positive time span, or leave it out to keep predictions";
         }
     }
+
+    /// <summary>Key=value pairs separated by semicolons, with a key a connection string has (Host, Server, Database, …).</summary>
+    private static bool LooksLikeConnectionString(string text) =>
+        text.Contains('=', StringComparison.Ordinal) && text.Split(';', StringSplitOptions.RemoveEmptyEntries).Any(part =>
+            part.Split('=', 2)[0].Trim().ToUpperInvariant() is "HOST" or "SERVER" or "DATABASE" or "USERNAME" or "USER ID" or "PASSWORD" or "PORT" or "DATA SOURCE");
+
+    /// <summary>A connection string with its password hidden, for messages.</summary>
+    private static string Redacted(string text) => System.Text.RegularExpressions.Regex.Replace(text, "(?i)(password\\s*=)[^;]*", "$1***");
 
     /// <summary>Where the store is, for the start-up log line (never the password).</summary>
     public string Describe() => Kind == "postgres"

@@ -115,6 +115,7 @@ public static class ScorerServer
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.TrendReporter>();
         builder.Services.AddSingleton<Scorer.Transport.Rest.PageApi>();
         builder.Services.AddSingleton(options.Limits);
+        builder.Services.AddSingleton<EventSubscribers>();
         var apiKeys = new ApiKeyInterceptor(options.Keys);
         builder.Services.AddSingleton(apiKeys);
         builder.Services.AddSingleton<ScorerMetrics>();
@@ -210,6 +211,9 @@ public static class ScorerServer
                 return next(context);
             });
         }
+
+        // Every other transcoded call is checked as strictly as the direct score reader before the transcoder reads it.
+        app.Use(new Scorer.Transport.Rest.TranscodedRequestCheck(options.MaxRequestBodyBytes).InvokeAsync);
 
         app.UseSwagger(); // the OpenAPI document at /swagger/v1/swagger.json
         app.MapGrpcService<ScoringService>();

@@ -44,6 +44,41 @@ public static class StoreRules
         }
     }
 
+    /// <summary>
+    /// Why the stores cannot keep <paramref name="text"/> as it is, or null when they can: PostgreSQL text cannot hold
+    /// the character U+0000, and half of a surrogate pair is not a character (UTF-8 cannot encode it). Callers check
+    /// every string they will store (keys above all) at the edge, so that the request is refused naming the field.
+    /// </summary>
+    public static string? Unstorable(string? text)
+    {
+        if (string.IsNullOrEmpty(text))
+        {
+            return null;
+        }
+
+        var span = text.AsSpan();
+        var at = span.IndexOf('\0');
+        if (at >= 0)
+        {
+            return $"holds the character U+0000 (at character {at + 1}), which the store cannot keep; remove it";
+        }
+
+        var first = span.IndexOfAnyInRange('\uD800', '\uDFFF');
+        for (var i = first < 0 ? span.Length : first; i < span.Length; i++)
+        {
+            if (char.IsHighSurrogate(span[i]) && i + 1 < span.Length && char.IsLowSurrogate(span[i + 1]))
+            {
+                i++;
+            }
+            else if (char.IsSurrogate(span[i]))
+            {
+                return $"holds half of a surrogate pair (U+{(int)span[i]:X4} at character {i + 1}), which is not a character; send valid Unicode text";
+            }
+        }
+
+        return null;
+    }
+
     /// <summary>A stage as the stores keep it: live, shadow or retired.</summary>
     public static string ToText(Stage stage) => stage switch
     {

@@ -22,6 +22,22 @@ public static class Errors
 
     public static RpcException Forbidden(string reason) => Make(Code.PermissionDenied, "authorization", reason);
 
+    /// <summary>
+    /// A caller's text as an error message repeats it: whole up to <paramref name="max"/> characters, else its start
+    /// and its length, so that a huge input is never echoed back in full.
+    /// </summary>
+    public static string Echo(string? text, int max = 80) =>
+        text is null ? "" : text.Length <= max ? text : string.Concat(text.AsSpan(0, max), $"… ({text.Length} characters)");
+
+    /// <summary>The same error with a sentence added to its message (its code and field violations kept).</summary>
+    public static RpcException WithNote(RpcException error, string note)
+    {
+        ArgumentNullException.ThrowIfNull(error);
+        var status = error.GetRpcStatus() ?? new Google.Rpc.Status { Code = (int)error.StatusCode, Message = error.Status.Detail };
+        status.Message = $"{status.Message}; {note}";
+        return status.ToRpcException();
+    }
+
     private static RpcException Make(Code code, string field, string reason)
     {
         var status = new Google.Rpc.Status

@@ -12,7 +12,7 @@ namespace Scorer.Transport;
 public sealed class ScorerMetrics
 {
     public ScorerMetrics(ModelRegistry registry, PredictionLog log, ShadowScorer shadows, Scorer.Monitor.Reporting.MonitorLoop monitor,
-        Scorer.Monitor.Reporting.ChartRunner charts)
+        Scorer.Monitor.Reporting.ChartRunner charts, EventSubscribers subscribers)
     {
         Registry = Metrics.NewCustomRegistry();
         var factory = Metrics.WithCustomRegistry(Registry);
@@ -35,6 +35,8 @@ public sealed class ScorerMetrics
             "Rows the store refused for what they hold, set aside in Scorer:Log:SetAsideFolder instead of written, since start.");
         var waiting = factory.CreateGauge("scorer_prediction_log_waiting_seconds",
             "How long rows have waited with no successful write (0 when the queue is empty); beyond Scorer:Log:StallAfter the log is not draining.");
+        var streams = factory.CreateGauge("scorer_event_streams_open", "Event streams open (monitor and overview events); at most Scorer:Limits:MaxEventSubscribers.");
+        var streamsRefused = factory.CreateCounter("scorer_event_streams_refused_total", "Event streams refused because Scorer:Limits:MaxEventSubscribers were open, since start.");
         var shadowDropped = factory.CreateGauge("scorer_shadow_dropped_batches", "Shadow scoring work dropped because it fell behind, since start.");
         registry.Changed += _ => reloads.Inc();
         string[] windowLabels = ["model", "version", "window"];
@@ -115,6 +117,8 @@ public sealed class ScorerMetrics
             setAside.IncTo(log.SetAside);
             waiting.Set(log.Waiting.TotalSeconds);
             shadowDropped.Set(shadows.Dropped);
+            streams.Set(subscribers.Open);
+            streamsRefused.IncTo(subscribers.Refused);
         });
     }
 

@@ -1,6 +1,6 @@
 namespace Scorer.Transport;
 
-/// <summary>Limits on what one request may carry. Each has a documented default.</summary>
+/// <summary>Limits on what one request may carry, and on what callers may hold open. Each has a documented default.</summary>
 public sealed record ScoringLimits
 {
     /// <summary>Rows per request message. Default 10,000.</summary>
@@ -14,4 +14,7 @@ public sealed record ScoringLimits
 
     /// <summary>Values in one dense message. Default 10,000,000.</summary>
     public int MaxDenseValues { get; init; } = 10_000_000;
+
+    /// <summary>Event streams open at once (monitor events over SSE and gRPC, overview events). Default 500.</summary>
+    public int MaxEventSubscribers { get; init; } = 500;
 }

@@ -8,7 +8,7 @@ namespace Scorer.Transport;
 
 /// <summary>Rows a live version scored, to be scored again by the model's shadow versions.</summary>
 /// <remarks><see cref="LiveIds"/>: the live prediction's id of each row, stored with the shadow prediction to pair them.</remarks>
-public sealed record ShadowWork(IReadOnlyList<LoadedVersion> Shadows, NamedValue[][] Rows, Guid[] LiveIds, string?[] Keys, string[] FeaturesJson, DateTimeOffset ScoredAt);
+public sealed record ShadowWork(IReadOnlyList<LoadedVersion> Shadows, NamedValue[][] Rows, Guid[] LiveIds, string?[] Keys, DateTimeOffset ScoredAt);
 
 /// <summary>
 /// Scores rows with the shadow versions off the request path and logs the results (stage shadow); nothing is
@@ -70,7 +70,7 @@ public sealed class ShadowScorer : IAsyncDisposable
 
                         tally?.Add(r.Eta, work.Rows[i]);
                         _log.TryEnqueue(new PredictionRecord(PredictionIds.Next(_time.GetUtcNow()), shadow.Model, shadow.Version, Stage.Shadow,
-                            work.ScoredAt, work.Keys[i], r.Eta, r.Probability, work.FeaturesJson[i], work.LiveIds[i]));
+                            work.ScoredAt, work.Keys[i], r.Eta, r.Probability, LoggedFeatures.Json(shadow.Compiled, work.Rows[i]), work.LiveIds[i]));
                         Interlocked.Increment(ref _scored);
                     }
 

@@ -14,7 +14,7 @@ namespace Scorer.Transport.Rest;
 /// (<c>event: snapshot</c> or <c>event: status</c>, <c>data:</c> the report as JSON, as the REST report gives it), a
 /// comment line every 15 s to keep proxies from closing the connection. Same contract as gRPC <c>WatchReports</c>.
 /// </summary>
-public sealed class MonitorEvents(ModelRegistry registry, MonitorReporter reporter, MonitorWatch watch, ApiKeyInterceptor keys)
+public sealed class MonitorEvents(ModelRegistry registry, MonitorReporter reporter, MonitorWatch watch, ApiKeyInterceptor keys, EventSubscribers subscribers)
 {
     private static readonly JsonFormatter Json = new(JsonFormatter.Settings.Default.WithFormatDefaultValues(true));
 
@@ -22,6 +22,7 @@ public sealed class MonitorEvents(ModelRegistry registry, MonitorReporter report
     {
         LoadedVersion version;
         string window;
+        EventSubscribers.Lease lease;
         try
         {
             keys.Authorize(context.Request.Headers.Authorization.Count > 0 ? context.Request.Headers.Authorization.ToString() : null, "/scorer.v1.Monitor/WatchReports");
@@ -31,6 +32,7 @@ public sealed class MonitorEvents(ModelRegistry registry, MonitorReporter report
                 Version = context.Request.Query["version"].ToString(),
                 Window = context.Request.Query["window"].ToString(),
             });
+            lease = subscribers.Enter();
         }
         catch (RpcException ex)
         {
@@ -38,6 +40,7 @@ public sealed class MonitorEvents(ModelRegistry registry, MonitorReporter report
             return;
         }
 
+        using var held = lease;
         context.Response.ContentType = "text/event-stream; charset=utf-8";
         context.Response.Headers.CacheControl = "no-cache";
         context.Response.Headers["X-Accel-Buffering"] = "no";

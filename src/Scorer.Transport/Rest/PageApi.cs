@@ -46,13 +46,15 @@ public sealed class PageApi
     private readonly IScorerStore _store;
     private readonly ApiKeyInterceptor _keys;
     private readonly TimeProvider _time;
+    private readonly EventSubscribers _subscribers;
     private readonly PageFiles _files = new();
     private readonly Lock _lock = new();
     private readonly Dictionary<(string Model, string Version), StatusChange> _changes = [];
 
     public PageApi(ModelRegistry registry, MonitorReporter reporter, MonitorLoop loop, TrendReporter trends, IScorerStore store, ApiKeyInterceptor keys,
-        TimeProvider time)
+        TimeProvider time, EventSubscribers subscribers)
     {
+        _subscribers = subscribers;
         _registry = registry;
         _reporter = reporter;
         _loop = loop;
@@ -221,6 +223,7 @@ public sealed class PageApi
     private async Task StreamOverviewAsync(HttpContext context)
     {
         var aborted = context.RequestAborted;
+        using var lease = _subscribers.Enter();
         var signals = Channel.CreateBounded<bool>(new BoundedChannelOptions(16) { FullMode = BoundedChannelFullMode.DropOldest });
         void OnUpdated(bool status) => signals.Writer.TryWrite(status);
         Updated += OnUpdated;

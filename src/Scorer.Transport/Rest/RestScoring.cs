@@ -41,7 +41,7 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
         var status = StatusCode.OK;
         var reader = context.Request.BodyReader;
         ReadResult read = default;
-        var haveBody = false;
+        var holding = false; // a read result not yet handed back to the body reader
         try
         {
             keys.Authorize(context.Request.Headers.Authorization.Count > 0 ? context.Request.Headers.Authorization.ToString() : null, Method);
@@ -49,13 +49,14 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
             while (true)
             {
                 read = await reader.ReadAsync(context.RequestAborted).ConfigureAwait(false);
-                haveBody = true;
+                holding = true;
                 if (read.IsCompleted)
                 {
                     break;
                 }
 
                 reader.AdvanceTo(read.Buffer.Start, read.Buffer.End);
+                holding = false;
             }
 
             Answer(context, model, read.Buffer);
@@ -65,15 +66,22 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
             status = ex.StatusCode;
             WriteError(context.Response, ex);
         }
-        catch (Microsoft.AspNetCore.Http.BadHttpRequestException ex) when (ex.StatusCode == StatusCodes.Status413PayloadTooLarge)
+        catch (Microsoft.AspNetCore.Http.BadHttpRequestException ex)
         {
-            status = StatusCode.ResourceExhausted;
-            context.Response.StatusCode = StatusCodes.Status413PayloadTooLarge;
-            WriteStatus(context.Response, StatusCode.ResourceExhausted, "body: " + ex.Message, null);
+            // The body could not be read: over the size limit (413), or cut off or malformed in its framing (400).
+            var tooLarge = ex.StatusCode == StatusCodes.Status413PayloadTooLarge;
+            status = tooLarge ? StatusCode.ResourceExhausted : StatusCode.InvalidArgument;
+            context.Response.StatusCode = tooLarge ? StatusCodes.Status413PayloadTooLarge : StatusCodes.Status400BadRequest;
+            WriteStatus(context.Response, status, "body: " + ex.Message, null);
+        }
+        catch (Exception ex) when (ex is IOException or OperationCanceledException && context.RequestAborted.IsCancellationRequested)
+        {
+            status = StatusCode.Cancelled; // the caller went away while sending; nobody is left to answer
+            return;
         }
         finally
         {
-            if (haveBody)
+            if (holding)
             {
                 reader.AdvanceTo(read.Buffer.End);
             }
@@ -104,7 +112,7 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
             var request = ReadRequest(json, modelName);
             var version = core.Resolve(modelName, request.Version, out var entry);
             core.CheckRowCount(request.Rows.Count);
-            ScoringCore.CheckKeyCount(request.Keys?.Count ?? 0, request.Rows.Count);
+            ScoringCore.CheckKeys(request.Keys, request.Rows.Count);
             var settings = ScoringCore.Settings(request.Level.HasValue, request.Level ?? 0, "level");
             context.Response.StatusCode = StatusCodes.Status200OK;
             context.Response.ContentType = "application/json; charset=utf-8";
@@ -133,7 +141,6 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
         var shadowRows = entry.Shadows.Length > 0 && version.Stage == Stage.Live ? new NamedValue[]?[rowCount] : null;
         var shadowKeys = shadowRows is null ? null : new string?[rowCount];
         var shadowIds = shadowRows is null ? null : new Guid[rowCount];
-        var shadowFeatures = shadowRows is null ? null : new string?[rowCount];
         var values = ArrayPool<NamedValue>.Shared.Rent(Math.Min(limits.MaxFeaturesPerRow, 1024));
         int scoredRows = 0, warnedRows = 0;
         var tally = core.Drift.Begin(version, now);
@@ -178,12 +185,10 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
                 warnedRows += r.WarningCount > 0 ? 1 : 0;
                 tally?.Add(r.Eta, row);
                 WriteScored(w, r, model, contributions, warnings, request.Contributions ?? 0, key);
-                string? features = null;
                 if (log.Enabled)
                 {
-                    features = Encoding.UTF8.GetString(rowJson);
                     log.TryEnqueue(new PredictionRecord(id, version.Model, version.Version, version.Stage, now, string.IsNullOrEmpty(key) ? null : key,
-                        r.Eta, r.Probability, features));
+                        r.Eta, r.Probability, LoggedFeatures.Json(model, row)));
                 }
 
                 if (shadowRows is not null)
@@ -191,7 +196,6 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
                     shadowRows[i] = row.ToArray();
                     shadowIds![i] = id;
                     shadowKeys![i] = string.IsNullOrEmpty(key) ? null : key;
-                    shadowFeatures![i] = features ?? Encoding.UTF8.GetString(rowJson);
                 }
             }
 
@@ -207,7 +211,7 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
         core.Count(version, scoredRows, warnedRows);
         if (shadowRows is not null)
         {
-            core.Shadow(version, entry, shadowRows, shadowIds!, shadowKeys!, shadowFeatures!, now);
+            core.Shadow(version, entry, shadowRows, shadowIds!, shadowKeys!, now);
         }
     }
 
@@ -247,7 +251,13 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
             }
 
             var chars = reader.ValueSpan.Length <= nameBuffer.Length ? nameBuffer : new char[reader.ValueSpan.Length];
-            var nameLength = reader.CopyString(chars);
+            if (!TryCopyText(ref reader, chars, out var nameLength))
+            {
+                field = $"rows[{index}]";
+                reason = $"a field name {NotText} (byte {reader.TokenStartIndex + 1} of the row)";
+                return false;
+            }
+
             var name = chars[..nameLength];
             var f = model.FeatureIndexOf(name);
             var nameText = f >= 0 ? model.FeatureNames[f] : name.ToString();
@@ -259,11 +269,11 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
                     v = FeatureValue.Of(reader.TryGetDouble(out var d) ? d : (reader.ValueSpan[0] == (byte)'-' ? double.NegativeInfinity : double.PositiveInfinity));
                     break;
                 case JsonTokenType.String:
-                    v = FeatureValue.Of(ReadLevel(ref reader, model, f, limits.MaxStringLength, out var tooLong));
-                    if (tooLong)
+                    v = FeatureValue.Of(ReadLevel(ref reader, model, f, limits.MaxStringLength, out var tooLong, out var notText));
+                    if (tooLong || notText)
                     {
                         field = nameText;
-                        reason = $"longer than {limits.MaxStringLength} characters";
+                        reason = notText ? $"the value {NotText}" : $"longer than {limits.MaxStringLength} characters";
                         return false;
                     }
 
@@ -289,13 +299,50 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
         return true;
     }
 
+    private const string NotText = "is not valid Unicode text (invalid UTF-8 bytes, or an escape such as \\ud800 that is half of a surrogate pair)";
+
+    /// <summary>Copies the current string token's text; false when it is not valid text (bad UTF-8, an unpaired surrogate escape).</summary>
+    private static bool TryCopyText(ref Utf8JsonReader reader, scoped Span<char> into, out int length)
+    {
+        try
+        {
+            length = reader.CopyString(into);
+            return true;
+        }
+        catch (InvalidOperationException)
+        {
+            length = 0;
+            return false;
+        }
+    }
+
+    /// <summary>The current string token as text, or the request refused naming <paramref name="field"/>.</summary>
+    private static string ReadText(ref Utf8JsonReader reader, string field)
+    {
+        try
+        {
+            return reader.GetString()!;
+        }
+        catch (InvalidOperationException)
+        {
+            throw Errors.Invalid(field, $"{NotText[3..]}, at byte {reader.TokenStartIndex + 1}");
+        }
+    }
+
     /// <summary>A string value: the model's own level string when it is one (no allocation), else a new string.</summary>
-    private static string? ReadLevel(ref Utf8JsonReader reader, CompiledModel model, int feature, int maxLength, out bool tooLong)
+    private static string? ReadLevel(ref Utf8JsonReader reader, CompiledModel model, int feature, int maxLength, out bool tooLong, out bool notText)
     {
         var raw = reader.ValueSpan;
         Span<char> buffer = stackalloc char[256];
         var chars = raw.Length <= buffer.Length ? buffer : new char[raw.Length];
-        var text = chars[..reader.CopyString(chars)];
+        tooLong = false;
+        notText = !TryCopyText(ref reader, chars, out var length);
+        if (notText)
+        {
+            return null;
+        }
+
+        var text = chars[..length];
         tooLong = text.Length > maxLength;
         if (tooLong)
         {
@@ -459,7 +506,7 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
                     {
                         JsonTokenType.Null => null,
                         JsonTokenType.Number when reader.TryGetDouble(out var d) => d,
-                        JsonTokenType.String => ParseDoubleString(reader.GetString()!, "level"),
+                        JsonTokenType.String => ParseDoubleString(ReadText(ref reader, "level"), "level"),
                         _ => throw Errors.Invalid("level", $"expected a number, got {Describe(reader.TokenType)}"),
                     };
                 }
@@ -469,7 +516,7 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
                     version = reader.TokenType switch
                     {
                         JsonTokenType.Null => null,
-                        JsonTokenType.String => reader.GetString(),
+                        JsonTokenType.String => ReadText(ref reader, "version"),
                         _ => throw Errors.Invalid("version", $"expected a string, got {Describe(reader.TokenType)}"),
                     };
                 }
@@ -486,7 +533,7 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
                     while (reader.Read() && reader.TokenType != JsonTokenType.EndArray)
                     {
                         Expect(ref reader, JsonTokenType.String, $"keys[{keys.Count}]", "a string");
-                        keys.Add(reader.GetString());
+                        keys.Add(ReadText(ref reader, $"keys[{keys.Count}]"));
                     }
 
                     if (keys.Count == 0)
@@ -501,23 +548,23 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
                     {
                         JsonTokenType.Null => null,
                         JsonTokenType.Number when reader.TryGetInt32(out var n) => n,
-                        JsonTokenType.String when int.TryParse(reader.GetString(), NumberStyles.AllowLeadingSign, CultureInfo.InvariantCulture, out var n) => n,
+                        JsonTokenType.String when int.TryParse(ReadText(ref reader, "contributions"), NumberStyles.AllowLeadingSign, CultureInfo.InvariantCulture, out var n) => n,
                         _ => throw Errors.Invalid("contributions", "expected a whole number: how many of the largest contributions to return, 0 for all, -1 for none"),
                     };
                 }
                 else if (reader.ValueTextEquals("model"u8))
                 {
                     reader.Read();
-                    var named = reader.TokenType == JsonTokenType.String ? reader.GetString() : null;
+                    var named = reader.TokenType == JsonTokenType.String ? ReadText(ref reader, "model") : null;
                     if (!string.IsNullOrEmpty(named) && !string.Equals(named, modelName, StringComparison.Ordinal))
                     {
-                        throw Errors.Invalid("model", $"the body names '{named}' but the path names '{modelName}'; leave it out of the body");
+                        throw Errors.Invalid("model", $"the body names '{Errors.Echo(named)}' but the path names '{Errors.Echo(modelName)}'; leave it out of the body");
                     }
                 }
                 else
                 {
-                    var name = reader.GetString();
-                    throw Errors.Invalid(name ?? "body", $"not a field of a score request ({FieldList})");
+                    var name = ReadText(ref reader, "body");
+                    throw Errors.Invalid(Errors.Echo(name), $"not a field of a score request ({FieldList})");
                 }
             }
 
@@ -526,6 +573,11 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
             {
                 throw Errors.Invalid("body", "more than one JSON value");
             }
+        }
+        catch (InvalidOperationException)
+        {
+            // A field name compared while unescaped (ValueTextEquals) that is not valid text.
+            throw Errors.Invalid("body", $"a field name is {NotText[3..]}, at byte {reader.TokenStartIndex + 1}");
         }
         catch (JsonException ex)
         {
@@ -542,7 +594,7 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
         "Infinity" => double.PositiveInfinity,
         "-Infinity" => double.NegativeInfinity,
         _ when double.TryParse(text, NumberStyles.Float, CultureInfo.InvariantCulture, out var d) => d,
-        _ => throw Errors.Invalid(field, $"'{text}' is not a number"),
+        _ => throw Errors.Invalid(field, $"'{Errors.Echo(text)}' is not a number"),
     };
 
     private static void Expect(ref Utf8JsonReader reader, JsonTokenType type, string field, string what)

@@ -10,7 +10,7 @@ namespace Scorer.Transport.Services;
 
 /// <summary>The monitor's reports over gRPC (and REST through transcoding).</summary>
 public sealed class MonitorService(ModelRegistry registry, MonitorReporter reporter, MonitorWatch watch, Scorer.Store.IScorerStore store, RegistryOptions folder,
-    TimeProvider time) : V1.Monitor.MonitorBase
+    TimeProvider time, EventSubscribers subscribers) : V1.Monitor.MonitorBase
 {
     public override async Task<RecalibrateResponse> Recalibrate(RecalibrateRequest request, ServerCallContext context)
     {
@@ -45,9 +45,13 @@ public sealed class MonitorService(ModelRegistry registry, MonitorReporter repor
         var eta = labelled.Select(l => l.Eta).ToArray();
         var y = labelled.Select(l => l.Outcome).ToArray();
         var events = y.Count(v => v == 1);
-        if (events < 1 || events == y.Length)
+        var needed = Math.Max(1, reporter.Options.MinEvents);
+        if (events < needed || y.Length - events < needed)
         {
-            throw Errors.Precondition("window", $"{y.Length} labelled predictions with {events} events over {window}: a recalibration needs events and non-events");
+            // Nothing is written: a candidate fitted on a handful of outcomes would only carry their noise.
+            throw Errors.Precondition("window", $"the window {window} holds {y.Length} labelled predictions of {version.Model} {version.Version} "
+                + $"({events} events, {y.Length - events} non-events); a recalibration needs at least {needed} of each (Scorer:Monitor:MinEvents): "
+                + "wait for more outcomes or choose a longer window");
         }
 
         RecalibrationFit? fit;
@@ -111,6 +115,7 @@ public sealed class MonitorService(ModelRegistry registry, MonitorReporter repor
     public override async Task WatchReports(MonitorRequest request, IServerStreamWriter<MonitorEvent> responseStream, ServerCallContext context)
     {
         var (version, window) = Resolve(registry, reporter.Options, request);
+        using var lease = subscribers.Enter();
         await foreach (var e in watch.WatchAsync(version, window, context.CancellationToken).ConfigureAwait(false))
         {
             await responseStream.WriteAsync(e, context.CancellationToken).ConfigureAwait(false);

@@ -19,7 +19,8 @@ public sealed record OutcomeSettings
 /// Outcomes of earlier predictions, by id or business key. Each message is checked whole before anything is recorded
 /// (a bad entry refuses the message, naming it), then recorded in one transaction before the answer is sent.
 /// </summary>
-public sealed class OutcomesService(ModelRegistry registry, IScorerStore store, OutcomeSettings settings, ScorerMetrics metrics, TimeProvider time)
+public sealed class OutcomesService(ModelRegistry registry, IScorerStore store, OutcomeSettings settings, ScoringLimits limits, ScorerMetrics metrics,
+    TimeProvider time)
     : V1.Outcomes.OutcomesBase
 {
     public override async Task<RecordOutcomesResponse> RecordOutcomes(RecordOutcomesRequest request, ServerCallContext context)
@@ -30,12 +31,24 @@ public sealed class OutcomesService(ModelRegistry registry, IScorerStore store, 
 
     public override async Task<RecordOutcomesResponse> RecordOutcomesStream(IAsyncStreamReader<RecordOutcomesRequest> requestStream, ServerCallContext context)
     {
-        int accepted = 0, duplicates = 0;
+        int accepted = 0, duplicates = 0, messages = 0;
         var unknown = new List<string>();
         var conflicts = new List<string>();
         await foreach (var request in requestStream.ReadAllAsync(context.CancellationToken).ConfigureAwait(false))
         {
-            var receipt = await RecordAsync(request, context.CancellationToken).ConfigureAwait(false);
+            OutcomeReceipt receipt;
+            try
+            {
+                receipt = await RecordAsync(request, context.CancellationToken).ConfigureAwait(false);
+            }
+            catch (RpcException ex) when (messages > 0)
+            {
+                // Each message is recorded on its own: say what the earlier ones recorded, so the caller resends only the rest.
+                throw Errors.WithNote(ex, $"message {messages + 1} of the stream was refused and nothing of it or after it was recorded; "
+                    + $"the {messages} before it were recorded (accepted {accepted}, duplicates {duplicates}, unknown {unknown.Count}, conflicts {conflicts.Count})");
+            }
+
+            messages++;
             accepted += receipt.Accepted;
             duplicates += receipt.Duplicates;
             unknown.AddRange(receipt.Unknown);
@@ -54,7 +67,7 @@ public sealed class OutcomesService(ModelRegistry registry, IScorerStore store, 
 
         if (registry.Current.Find(request.Model) is null)
         {
-            throw Errors.NotFound("model", $"no model '{request.Model}' is loaded");
+            throw Errors.NotFound("model", $"no model '{Errors.Echo(request.Model)}' is loaded");
         }
 
         if (request.Outcomes.Count > settings.MaxPerRequest)
@@ -82,12 +95,27 @@ public sealed class OutcomesService(ModelRegistry registry, IScorerStore store, 
             Guid? id = null;
             if (hasId)
             {
-                if (!Guid.TryParse(o.Id, out var parsed))
+                // Exactly as the score response wrote it: 36 characters, no braces, no spaces around it.
+                if (o.Id.Length != 36 || !Guid.TryParseExact(o.Id, "D", out var parsed))
                 {
-                    throw Errors.Invalid(field + ".id", $"'{o.Id}' is not a prediction id (a UUID as the score response gave it)");
+                    throw Errors.Invalid(field + ".id", $"'{Errors.Echo(o.Id)}' is not a prediction id (a UUID as the score response gave it, such as "
+                        + "0193a3c4-5e6f-7a8b-9c0d-1e2f3a4b5c6d, with nothing around it)");
                 }
 
                 id = parsed;
+            }
+            else if (o.Key.Length > limits.MaxStringLength)
+            {
+                throw Errors.Invalid(field + ".key", $"longer than {limits.MaxStringLength} characters, so no prediction can carry it (Scorer:Limits:MaxStringLength)");
+            }
+            else if (Scorer.Store.StoreRules.Unstorable(o.Key) is { } reason)
+            {
+                throw Errors.Invalid(field + ".key", reason);
+            }
+
+            if (!o.HasOutcome)
+            {
+                throw Errors.Invalid(field + ".outcome", "missing; give 1 for the event, 0 for its absence (an entry without it is never taken as 0)");
             }
 
             if (o.Outcome is not (0 or 1))

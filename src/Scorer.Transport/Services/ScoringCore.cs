@@ -39,7 +39,7 @@ public sealed class ScoringCore(ModelRegistry registry, PredictionLog log, Shado
 
         var snapshot = registry.Current;
         entry = snapshot.Find(modelName) ?? throw Errors.NotFound("model",
-            $"no model '{modelName}' is loaded" + (snapshot.Models.Count > 0 ? $" (loaded: {string.Join(", ", snapshot.Models.Keys)})" : ""));
+            $"no model '{Errors.Echo(modelName)}' is loaded" + (snapshot.Models.Count > 0 ? $" (loaded: {string.Join(", ", snapshot.Models.Keys)})" : ""));
         if (string.IsNullOrEmpty(versionName))
         {
             return entry.Live ?? throw Errors.Precondition("version", $"model '{modelName}' has no live version; name a version or promote one");
@@ -47,7 +47,7 @@ public sealed class ScoringCore(ModelRegistry registry, PredictionLog log, Shado
 
         var e = entry;
         return entry.Find(versionName) ?? throw Errors.NotFound("version",
-            $"model '{modelName}' has no version '{versionName}' (loaded: {string.Join(", ", e.Versions.Select(v => v.Version))})");
+            $"model '{modelName}' has no version '{Errors.Echo(versionName)}' (loaded: {string.Join(", ", e.Versions.Select(v => v.Version))})");
     }
 
     /// <summary>The band settings for an optional confidence level.</summary>
@@ -74,11 +74,21 @@ public sealed class ScoringCore(ModelRegistry registry, PredictionLog log, Shado
         }
     }
 
-    public static void CheckKeyCount(int keys, int rows)
+    /// <summary>One key per row or none, and every key text the store can keep (else the request is refused naming the key).</summary>
+    public static void CheckKeys(IReadOnlyList<string?>? keys, int rows)
     {
-        if (keys != 0 && keys != rows)
+        var count = keys?.Count ?? 0;
+        if (count != 0 && count != rows)
         {
-            throw Errors.Invalid("keys", $"{keys} keys for {rows} rows; give one key per row, or none");
+            throw Errors.Invalid("keys", $"{count} keys for {rows} rows; give one key per row, or none");
+        }
+
+        for (var i = 0; i < count; i++)
+        {
+            if (StoreRules.Unstorable(keys![i]) is { } reason)
+            {
+                throw Errors.Invalid($"keys[{i}]", reason);
+            }
         }
     }
 
@@ -105,7 +115,7 @@ public sealed class ScoringCore(ModelRegistry registry, PredictionLog log, Shado
     public void CountBadValue(LoadedVersion version) => metrics.RowErrors.WithLabels(version.Model, "bad_value").Inc();
 
     /// <summary>Hands the rows a live version scored to its shadow versions (nothing happens without shadows).</summary>
-    public void Shadow(LoadedVersion version, ModelEntry entry, NamedValue[]?[] rows, Guid[] liveIds, string?[] keys, string?[] featuresJson, DateTimeOffset scoredAt)
+    public void Shadow(LoadedVersion version, ModelEntry entry, NamedValue[]?[] rows, Guid[] liveIds, string?[] keys, DateTimeOffset scoredAt)
     {
         if (entry.Shadows.Length == 0 || version.Stage != Stage.Live)
         {
@@ -116,7 +126,7 @@ public sealed class ScoringCore(ModelRegistry registry, PredictionLog log, Shado
         if (scored.Length > 0)
         {
             shadows.Enqueue(new ShadowWork(entry.Shadows, [.. scored.Select(i => rows[i]!)], [.. scored.Select(i => liveIds[i])], [.. scored.Select(i => keys[i])],
-                [.. scored.Select(i => featuresJson[i] ?? "{}")], scoredAt));
+                scoredAt));
         }
     }
 

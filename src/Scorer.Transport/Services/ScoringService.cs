@@ -55,7 +55,7 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
         var version = core.Resolve(request.Model, request.Version, out var entry);
         var model = version.Compiled;
         core.CheckRowCount(request.Rows.Count);
-        ScoringCore.CheckKeyCount(request.Keys.Count, request.Rows.Count);
+        ScoringCore.CheckKeys(request.Keys, request.Rows.Count);
         var settings = ScoringCore.Settings(request.HasLevel, request.Level, "level");
         var topContributions = request.HasContributions ? request.Contributions : 0;
         var now = time.GetUtcNow();
@@ -63,7 +63,6 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
         var contributions = new double[model.TermCount];
         var warnings = new Engine.Scoring.RowWarning[model.MaxWarningsPerRow];
         var rowsForShadow = entry.Shadows.Length > 0 ? new NamedValue[]?[request.Rows.Count] : null;
-        var featuresJson = new string?[request.Rows.Count];
         var ids = new Guid[request.Rows.Count];
         var keys = new string?[request.Rows.Count];
         int scoredRows = 0, warnedRows = 0;
@@ -103,9 +102,8 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
             Fill(result, r, model, contributions, warnings, topContributions);
             if (log.Enabled)
             {
-                var features = JsonFormatter.Default.Format(row);
-                featuresJson[i] = features;
-                log.TryEnqueue(new PredictionRecord(ids[i], version.Model, version.Version, version.Stage, now, keys[i], r.Eta, r.Probability, features));
+                log.TryEnqueue(new PredictionRecord(ids[i], version.Model, version.Version, version.Stage, now, keys[i], r.Eta, r.Probability,
+                    LoggedFeatures.Json(model, values)));
             }
 
             if (rowsForShadow is not null)
@@ -118,7 +116,7 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
         core.Count(version, scoredRows, warnedRows);
         if (rowsForShadow is not null)
         {
-            core.Shadow(version, entry, rowsForShadow, ids, keys, featuresJson, now);
+            core.Shadow(version, entry, rowsForShadow, ids, keys, now);
         }
 
         return response;
@@ -146,13 +144,21 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
         }
 
         var columnOf = new int[names.Count];
+        var columnFor = new int[model.FeatureCount];
         for (var c = 0; c < names.Count; c++)
         {
             columnOf[c] = model.FeatureIndexOf(names[c]);
             if (columnOf[c] < 0)
             {
-                throw Errors.Invalid($"features[{c}]", $"'{names[c]}' is not a feature of {version.Model} {version.Version} ({string.Join(", ", model.FeatureNames)})");
+                throw Errors.Invalid($"features[{c}]", $"'{Errors.Echo(names[c])}' is not a feature of {version.Model} {version.Version} ({string.Join(", ", model.FeatureNames)})");
             }
+
+            if (columnFor[columnOf[c]] > 0)
+            {
+                throw Errors.Invalid($"features[{c}]", $"'{names[c]}' is named twice (also features[{columnFor[columnOf[c]] - 1}]); name each feature once");
+            }
+
+            columnFor[columnOf[c]] = c + 1;
         }
 
         var rows = request.Values.Count / names.Count;
@@ -161,10 +167,7 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
             throw Errors.TooMuch("values", $"{rows} rows in one message; at most {limits.MaxRows * 10}");
         }
 
-        if (request.Keys.Count != 0 && request.Keys.Count != rows)
-        {
-            throw Errors.Invalid("keys", $"{request.Keys.Count} keys for {rows} rows; give one key per row, or none");
-        }
+        ScoringCore.CheckKeys(request.Keys, rows);
 
         var settings = ScoringCore.Settings(request.HasLevel, request.Level, "level");
         var f = model.FeatureCount;
@@ -215,7 +218,7 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
                 {
                     var key = request.Keys.Count > 0 && request.Keys[r].Length > 0 ? request.Keys[r] : null;
                     log.TryEnqueue(new PredictionRecord(id, version.Model, version.Version, version.Stage, now, key, s.Eta, s.Probability,
-                        DenseJson(model, dense.Slice(r * f, f))));
+                        LoggedFeatures.Json(model, dense.Slice(r * f, f))));
                 }
             }
 
@@ -328,39 +331,5 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
                 Message = RowMessages.Describe(model, warnings[w]),
             });
         }
-    }
-
-    /// <summary>A dense row's values as a JSON object (categorical codes as their level names), for the prediction log.</summary>
-    private static string DenseJson(CompiledModel model, ReadOnlySpan<double> values)
-    {
-        var buffer = new ArrayBufferWriter<byte>(256);
-        using (var w = new Utf8JsonWriter(buffer))
-        {
-            w.WriteStartObject();
-            for (var f = 0; f < values.Length; f++)
-            {
-                var v = values[f];
-                if (double.IsNaN(v))
-                {
-                    w.WriteNull(model.FeatureNames[f]);
-                }
-                else if (model.FeatureKindOf(f) == FeatureKind.Categorical && v >= 0 && v < model.Levels(f).Count && v == Math.Floor(v))
-                {
-                    w.WriteString(model.FeatureNames[f], model.Levels(f)[(int)v]);
-                }
-                else if (double.IsFinite(v))
-                {
-                    w.WriteNumber(model.FeatureNames[f], v);
-                }
-                else
-                {
-                    w.WriteNull(model.FeatureNames[f]);
-                }
-            }
-
-            w.WriteEndObject();
-        }
-
-        return System.Text.Encoding.UTF8.GetString(buffer.WrittenSpan);
     }
 }
