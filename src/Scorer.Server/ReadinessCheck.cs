@@ -48,7 +48,7 @@ internal sealed class ReadinessCheck(ModelRegistry registry, IScorerStore store,
         if (log.Enabled && log.Stalled)
         {
             // Rows wait and no write succeeds: the store is down (said above), or the writer cannot get rows through.
-            reasons.Add($"degraded: prediction log not draining ({log.Depth} rows waiting, none written for {log.Waiting.TotalSeconds:0} s; "
+            reasons.Add($"degraded: prediction log not draining ({log.Pending} rows waiting, none written for {log.Waiting.TotalSeconds:0} s; "
                 + $"{log.FailedWrites} failed writes, {log.SetAside} rows set aside since start)");
             degraded = true;
         }

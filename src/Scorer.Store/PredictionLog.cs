@@ -58,7 +58,7 @@ public sealed class PredictionLog : IAsyncDisposable
     private long _setAside;
     private long _inWriter; // rows taken from the queue and not yet written or set aside
     private long _lastBatchTicks;
-    // When the queue was last seen empty or a write last succeeded (TimeProvider timestamps), for "not draining".
+    // When the writer last had nothing in hand or a write last succeeded (TimeProvider timestamps), for "not draining".
     private long _lastDrainedTimestamp;
     private int _stopped;
 
@@ -95,15 +95,12 @@ public sealed class PredictionLog : IAsyncDisposable
     {
         get
         {
-            if (Depth == 0 && Interlocked.Read(ref _inWriter) == 0)
-            {
-                Interlocked.Exchange(ref _lastDrainedTimestamp, _time.GetTimestamp());
-                return TimeSpan.Zero;
-            }
-
-            return _time.GetElapsedTime(Interlocked.Read(ref _lastDrainedTimestamp));
+            return Depth == 0 && Interlocked.Read(ref _inWriter) == 0 ? TimeSpan.Zero : _time.GetElapsedTime(Interlocked.Read(ref _lastDrainedTimestamp));
         }
     }
+
+    /// <summary>Rows accepted and not yet written or set aside: those in the queue and those in the writer's hands.</summary>
+    public long Pending => Depth + Interlocked.Read(ref _inWriter);
 
     /// <summary>True when rows have waited longer than <see cref="PredictionLogOptions.StallAfter"/> with no successful write.</summary>
     public bool Stalled => Waiting > _options.StallAfter;
@@ -170,8 +167,15 @@ public sealed class PredictionLog : IAsyncDisposable
     {
         var batch = new List<PredictionRecord>(_options.MaxBatch);
         var reader = _queue.Reader;
-        while (await reader.WaitToReadAsync(_abort.Token).ConfigureAwait(false))
+        while (true)
         {
+            // Everything taken so far is written or set aside: rows that come now wait from here.
+            Interlocked.Exchange(ref _lastDrainedTimestamp, _time.GetTimestamp());
+            if (!await reader.WaitToReadAsync(_abort.Token).ConfigureAwait(false))
+            {
+                break;
+            }
+
             var deadline = Stopwatch.GetTimestamp() + (long)(_options.MaxDelay.TotalSeconds * Stopwatch.Frequency);
             while (batch.Count < _options.MaxBatch)
             {

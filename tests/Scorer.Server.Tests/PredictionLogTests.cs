@@ -147,4 +147,46 @@ public sealed class PredictionLogTests : IDisposable
         Assert.Equal(1, log.Dropped);
         await store.DisposeAsync();
     }
+
+    [Fact]
+    public async Task A_log_that_writes_nothing_for_longer_than_its_stall_time_makes_readiness_say_it_is_not_draining()
+    {
+        // Arrange: a store whose writes fail until told otherwise, on a fake clock.
+        var store = await StoreAsync();
+        store.FailuresLeft = int.MaxValue;
+        var time = new Microsoft.Extensions.Time.Testing.FakeTimeProvider(DateTimeOffset.UnixEpoch.AddDays(20_000));
+        var log = new PredictionLog(store, new PredictionLogOptions { MaxBatch = 50, MaxDelay = TimeSpan.FromMilliseconds(1), StallAfter = TimeSpan.FromSeconds(30) },
+            NullLogger<PredictionLog>.Instance, time);
+        var registry = new Scorer.Registry.ModelRegistry(new Scorer.Registry.RegistryOptions { ModelsPath = _folder.Models }, store, time,
+            NullLogger<Scorer.Registry.ModelRegistry>.Instance);
+        await registry.ReloadAsync();
+        var readiness = new ReadinessCheck(registry, store, log);
+        for (var i = 0; i < 10; i++)
+        {
+            Assert.True(log.TryEnqueue(Row(i)));
+        }
+
+        Assert.True(await Files.EventuallyAsync(() => Task.FromResult(log.FailedWrites >= 1), TimeSpan.FromSeconds(30)));
+        Assert.DoesNotContain((await readiness.CheckAsync()).Reasons, r => r.Contains("not draining", StringComparison.Ordinal));
+
+        // Act: 31 s pass without a successful write.
+        time.Advance(TimeSpan.FromSeconds(31));
+
+        // Assert: degraded, saying so; then a write gets through and the reason goes.
+        Assert.True(log.Stalled);
+        var (ready, degraded, reasons) = await readiness.CheckAsync();
+        Assert.True(degraded);
+        Assert.Contains(reasons, r => r.StartsWith("degraded: prediction log not draining (10 rows waiting", StringComparison.Ordinal));
+        store.FailuresLeft = 0;
+        Assert.True(await Files.EventuallyAsync(() =>
+        {
+            time.Advance(TimeSpan.FromSeconds(1)); // the writer's backoff runs on the fake clock
+            return Task.FromResult(log.Written == 10);
+        }, TimeSpan.FromSeconds(30)));
+        Assert.False(log.Stalled);
+        Assert.DoesNotContain((await readiness.CheckAsync()).Reasons, r => r.Contains("not draining", StringComparison.Ordinal));
+        _ = ready;
+        await log.StopAsync();
+        await store.DisposeAsync();
+    }
 }
