@@ -825,16 +825,20 @@ public sealed class SqliteScorerStore : IScorerStore
     }
 
     /// <inheritdoc />
-    public async IAsyncEnumerable<LabelledRow> ReadLabelledRowsAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to,
-        [System.Runtime.CompilerServices.EnumeratorCancellation] CancellationToken cancellationToken = default)
+    public async Task<IReadOnlyList<LabelledRow>> GetLabelledRowsAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to,
+        LabelledRowPosition? after, int limit, CancellationToken cancellationToken = default)
     {
         ArgumentNullException.ThrowIfNull(model);
+        ArgumentOutOfRangeException.ThrowIfLessThan(limit, 1);
         await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
         var versionFilter = version is null ? "" : "AND o.version = $version ";
+        // Each page is a range read of outcomes_by_model_time (model, scored_at, prediction_id), never a sort.
+        var start = after is null ? "" : "AND (o.scored_at, o.prediction_id) > ($afterAt, $afterId) ";
         using var command = Command(connection, null,
             "SELECT o.prediction_id, o.version, o.stage, o.scored_at, o.eta, o.probability, o.outcome, o.implicit, o.recorded_at, p.\"key\", p.features "
             + "FROM outcomes o JOIN predictions p ON p.id = o.prediction_id "
-            + $"WHERE o.model = $model {versionFilter}AND o.scored_at >= $from AND o.scored_at < $to ORDER BY o.scored_at, o.prediction_id;");
+            + $"WHERE o.model = $model {versionFilter}AND o.scored_at >= $from AND o.scored_at < $to {start}"
+            + "ORDER BY o.scored_at, o.prediction_id LIMIT $limit;");
         command.Parameters.AddWithValue("$model", model);
         if (version is not null)
         {
@@ -843,12 +847,21 @@ public sealed class SqliteScorerStore : IScorerStore
 
         command.Parameters.AddWithValue("$from", StoredValues.ToUnixMicroseconds(from));
         command.Parameters.AddWithValue("$to", StoredValues.ToUnixMicroseconds(to));
+        if (after is { } position)
+        {
+            command.Parameters.AddWithValue("$afterAt", StoredValues.ToUnixMicroseconds(position.ScoredAt));
+            command.Parameters.Add("$afterId", SqliteType.Blob).Value = StoredValues.ToBytes(position.Id);
+        }
+
+        command.Parameters.AddWithValue("$limit", limit);
         using var reader = command.ExecuteReader();
+        var rows = new List<LabelledRow>(Math.Min(limit, 4096));
         while (reader.Read())
         {
-            cancellationToken.ThrowIfCancellationRequested();
-            yield return new LabelledRow(ReadLabelled(reader), reader.IsDBNull(9) ? null : reader.GetString(9), reader.GetString(10));
+            rows.Add(new LabelledRow(ReadLabelled(reader), reader.IsDBNull(9) ? null : reader.GetString(9), reader.GetString(10)));
         }
+
+        return rows;
     }
 
     /// <inheritdoc />
