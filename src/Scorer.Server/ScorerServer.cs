@@ -117,6 +117,7 @@ public static class ScorerServer
         var apiKeys = new ApiKeyInterceptor(options.Keys);
         builder.Services.AddSingleton(apiKeys);
         builder.Services.AddSingleton<ScorerMetrics>();
+        builder.Services.AddExceptionHandler<Scorer.Transport.Rest.RestErrorHandler>();
         builder.Services.AddSingleton<MetricsInterceptor>();
         builder.Services.AddHostedService<Lifecycle>();
         builder.Services
@@ -157,6 +158,10 @@ public static class ScorerServer
         }
 
         var app = builder.Build();
+
+        // Failures of the REST routes of our own, in the API's error shape: a store that does not answer is 503 (the gRPC
+        // and transcoded routes get the same from MetricsInterceptor). After the response started, the response is aborted.
+        app.UseExceptionHandler(new ExceptionHandlerOptions { ExceptionHandler = Scorer.Transport.Rest.RestErrorHandler.UnknownAsync });
 
         // A declared body over the limit is refused before anything reads it (Kestrel's own limit catches the rest).
         app.Use(async (context, next) =>

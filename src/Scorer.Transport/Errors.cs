@@ -22,6 +22,9 @@ public static class Errors
 
     public static RpcException Forbidden(string reason) => Make(Code.PermissionDenied, "authorization", reason);
 
+    /// <summary>A part the call needs (<paramref name="field"/>: the store) does not answer now; the caller may retry.</summary>
+    public static RpcException Unavailable(string field, string reason) => Make(Code.Unavailable, field, reason);
+
     private static RpcException Make(Code code, string field, string reason)
     {
         var status = new Google.Rpc.Status
