@@ -2,6 +2,7 @@ using Serilog;
 using System.Net;
 using System.Threading.RateLimiting;
 using Microsoft.AspNetCore.Server.Kestrel.Core;
+using Microsoft.Extensions.DependencyInjection.Extensions;
 using Microsoft.Extensions.Options;
 using Scorer.Registry;
 using Scorer.Store;
@@ -86,11 +87,12 @@ public static class ScorerServer
             }
         });
         builder.Services.AddSingleton(options);
-        builder.Services.AddSingleton(TimeProvider.System);
-        builder.Services.AddSingleton<IScorerStore>(_ => options.Store.Kind == "postgres"
+        builder.Services.TryAddSingleton(TimeProvider.System); // a test may bring its own clock
+        builder.Services.AddSingleton<IScorerStore>(sp => options.Store.Kind == "postgres"
             ? Scorer.Store.Postgres.PostgresScorerStore.ForConnectionString(options.Store.ConnectionString!,
                 new Scorer.Store.Postgres.PostgresStoreOptions { Schema = options.Store.Schema, PredictionRetention = options.Store.PredictionRetention })
-            : SqliteScorerStore.ForFile(options.Store.Path));
+            : SqliteScorerStore.ForFile(options.Store.Path, new SqliteStoreOptions { MaxSizeBytes = options.Store.MaxSizeMegabytes << 20 },
+                sp.GetRequiredService<TimeProvider>()));
         builder.Services.AddSingleton(new RegistryOptions { ModelsPath = options.ModelsPath });
         builder.Services.AddSingleton<ModelRegistry>();
         builder.Services.AddSingleton(sp => new RegistryWatcher(sp.GetRequiredService<ModelRegistry>(), sp.GetRequiredService<RegistryOptions>(),

@@ -39,7 +39,10 @@ public sealed record StoreFull(DateTimeOffset Since, string Reason);
 /// </summary>
 public interface IStoreSpaceSignal
 {
-    /// <summary>Set while writes are refused for lack of space: from the first refusal until a write succeeds again.</summary>
+    /// <summary>
+    /// Set while writes are refused for lack of space: from the first refusal until none has been refused for a while
+    /// (the driver says how long), so that a small write that still fits does not hide the larger ones that do not.
+    /// </summary>
     StoreFull? Full { get; }
 
     /// <summary>Writes refused for lack of space since the store was opened.</summary>

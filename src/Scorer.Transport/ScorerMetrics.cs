@@ -12,7 +12,7 @@ namespace Scorer.Transport;
 public sealed class ScorerMetrics
 {
     public ScorerMetrics(ModelRegistry registry, PredictionLog log, ShadowScorer shadows, Scorer.Monitor.Reporting.MonitorLoop monitor,
-        Scorer.Monitor.Reporting.ChartRunner charts)
+        Scorer.Monitor.Reporting.ChartRunner charts, IScorerStore store)
     {
         Registry = Metrics.NewCustomRegistry();
         var factory = Metrics.WithCustomRegistry(Registry);
@@ -32,6 +32,8 @@ public sealed class ScorerMetrics
         var failed = factory.CreateGauge("scorer_prediction_log_failed_writes", "Batch writes that failed and were retried, since start.");
         var batch = factory.CreateGauge("scorer_prediction_log_batch_seconds", "Duration of the last batch write.");
         var shadowDropped = factory.CreateGauge("scorer_shadow_dropped_batches", "Shadow scoring work dropped because it fell behind, since start.");
+        var storeFull = factory.CreateGauge("scorer_store_full", "1 while the store refuses writes for lack of space (SQLite: a full disk, or Scorer:Store:MaxSizeMegabytes reached), else 0.");
+        var storeFullWrites = factory.CreateCounter("scorer_store_full_writes_total", "Writes the store refused for lack of space, since start.");
         registry.Changed += _ => reloads.Inc();
         string[] windowLabels = ["model", "version", "window"];
         Gauge Window(string name, string help) => factory.CreateGauge(name, help, windowLabels);
@@ -109,6 +111,11 @@ public sealed class ScorerMetrics
             failed.Set(log.FailedWrites);
             batch.Set(log.LastBatchLatency.TotalSeconds);
             shadowDropped.Set(shadows.Dropped);
+            if (store is IStoreSpaceSignal space)
+            {
+                storeFull.Set(space.Full is null ? 0 : 1);
+                storeFullWrites.IncTo(space.FullWrites);
+            }
         });
     }
 
