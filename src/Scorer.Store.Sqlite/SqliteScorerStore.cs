@@ -910,12 +910,19 @@ public sealed class SqliteScorerStore : IScorerStore, IStoreSpaceSignal
         ArgumentOutOfRangeException.ThrowIfLessThan(limit, 1);
         await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
         var versionFilter = version is null ? "" : "AND o.version = $version ";
-        // Each page is a range read of outcomes_by_model_time (model, scored_at, prediction_id), never a sort.
-        var start = after is null ? "" : "AND (o.scored_at, o.prediction_id) > ($afterAt, $afterId) ";
+        if (after is { } a && StoredValues.ToUnixMicroseconds(a.ScoredAt) < StoredValues.ToUnixMicroseconds(from))
+        {
+            after = null; // a position before the range: the range's start
+        }
+
+        // Each page is a range read of outcomes_by_model_time (model, scored_at, prediction_id) from its start, never a
+        // sort. A later page starts at the position alone: with "scored_at >= from" beside it SQLite would start every
+        // page at the range's start and filter, reading the export over and over.
+        var start = after is null ? "AND o.scored_at >= $from " : "AND (o.scored_at, o.prediction_id) > ($afterAt, $afterId) ";
         using var command = Command(connection, null,
             "SELECT o.prediction_id, o.version, o.stage, o.scored_at, o.eta, o.probability, o.outcome, o.implicit, o.recorded_at, p.\"key\", p.features "
             + "FROM outcomes o JOIN predictions p ON p.id = o.prediction_id "
-            + $"WHERE o.model = $model {versionFilter}AND o.scored_at >= $from AND o.scored_at < $to {start}"
+            + $"WHERE o.model = $model {versionFilter}{start}AND o.scored_at < $to "
             + "ORDER BY o.scored_at, o.prediction_id LIMIT $limit;");
         command.Parameters.AddWithValue("$model", model);
         if (version is not null)
@@ -923,9 +930,12 @@ public sealed class SqliteScorerStore : IScorerStore, IStoreSpaceSignal
             command.Parameters.AddWithValue("$version", version);
         }
 
-        command.Parameters.AddWithValue("$from", StoredValues.ToUnixMicroseconds(from));
         command.Parameters.AddWithValue("$to", StoredValues.ToUnixMicroseconds(to));
-        if (after is { } position)
+        if (after is not { } position)
+        {
+            command.Parameters.AddWithValue("$from", StoredValues.ToUnixMicroseconds(from));
+        }
+        else
         {
             command.Parameters.AddWithValue("$afterAt", StoredValues.ToUnixMicroseconds(position.ScoredAt));
             command.Parameters.Add("$afterId", SqliteType.Blob).Value = StoredValues.ToBytes(position.Id);

@@ -61,7 +61,7 @@ public abstract partial class StoreContractTests
     }
 
     [Fact]
-    public async Task A_page_of_labelled_rows_starts_after_the_position_given_and_a_page_limit_below_one_is_refused()
+    public async Task A_page_of_labelled_rows_starts_after_the_position_given_within_the_range_and_a_page_limit_below_one_is_refused()
     {
         var store = await OpenAsync();
         var rows = Enumerable.Range(0, 5).Select(i => Prediction(Renewal, "1", T0.AddMinutes(i))).ToList();
@@ -74,6 +74,10 @@ public abstract partial class StoreContractTests
         Assert.Equal(rows.Take(2).Select(p => p.Id), first.Select(r => r.Prediction.Id));
         Assert.Equal(rows.Skip(2).Select(p => p.Id), rest.Select(r => r.Prediction.Id));
         Assert.Empty(await store.GetLabelledRowsAsync(Renewal, null, T0, Later, rest[^1].Position, 10));
+
+        // A position before the range starts the page at the range's start.
+        var late = await store.GetLabelledRowsAsync(Renewal, null, T0.AddMinutes(3), Later, first[0].Position, 10);
+        Assert.Equal(rows.Skip(3).Select(p => p.Id), late.Select(r => r.Prediction.Id));
         await Assert.ThrowsAsync<ArgumentOutOfRangeException>(() => store.GetLabelledRowsAsync(Renewal, null, T0, Later, null, 0));
     }
 }
