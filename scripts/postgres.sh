@@ -6,6 +6,8 @@
 #                                   connection string (Npgsql syntax, over the socket), also written to
 #                                   DIR/connection-string (and the loopback one to DIR/connection-string-tcp)
 #   scripts/postgres.sh stop DIR    stop it (pg_ctl, fast shutdown)
+#   scripts/postgres.sh restart DIR start a stopped cluster again on the port it had, so clients holding its connection
+#                                   string reach it again (for tests of a store that goes away and comes back)
 #
 # Durability settings are PostgreSQL's defaults (fsync, synchronous_commit and full_page_writes on), so what the
 # benchmarks measure holds for a real server; only memory and checkpoint spacing are set, modestly.
@@ -16,7 +18,7 @@
 set -euo pipefail
 
 usage() {
-  echo "usage: $0 start DIR | stop DIR" >&2
+  echo "usage: $0 start DIR | stop DIR | restart DIR" >&2
   exit 2
 }
 
@@ -125,6 +127,21 @@ EOF
     else
       echo "not running" >&2
     fi
+    ;;
+  restart)
+    if [ ! -f "$dir/data/scorer.conf" ]; then
+      echo "no cluster started by this script in $dir (start it first)" >&2
+      exit 1
+    fi
+    if as_owner "$bin/pg_ctl" -D "$dir/data" status >/dev/null 2>&1; then
+      echo "already running" >&2
+    else
+      as_owner "$bin/pg_ctl" -D "$dir/data" -l "$dir/server.log" -w -t 60 start >&2 || {
+        tail -n 30 "$dir/server.log" >&2
+        exit 1
+      }
+    fi
+    cat "$dir/connection-string"
     ;;
   *)
     usage

@@ -5,10 +5,10 @@ using Scorer.Store;
 namespace Scorer.Server;
 
 /// <summary>
-/// Ready when models are loaded and the prediction log is not close to its bound. A store that does not answer makes
-/// the service degraded, not unready: scoring goes on (the log keeps the rows, up to its bound, and writes them when
-/// the store is back), while outcome reports and stage changes are refused, since they are acknowledged only once
-/// stored. Only when the log nears its bound does readiness fail, so that traffic moves to replicas that can keep
+/// Ready when models are loaded and the prediction log is not close to its bound. A store that does not answer, or that
+/// refuses writes for lack of space (<see cref="IStoreSpaceSignal"/>), makes the service degraded, not unready:
+/// scoring goes on (the log keeps the rows, up to its bound, and writes them when the store is back), while outcome
+/// reports and stage changes are refused, since they are acknowledged only once stored. Only when the log nears its bound does readiness fail, so that traffic moves to replicas that can keep
 /// their rows.
 /// </summary>
 internal sealed class ReadinessCheck(ModelRegistry registry, IScorerStore store, PredictionLog log) : IHealthCheck
@@ -23,7 +23,7 @@ internal sealed class ReadinessCheck(ModelRegistry registry, IScorerStore store,
     public async Task<(bool Ready, bool Degraded, IReadOnlyList<string> Reasons)> CheckAsync(CancellationToken cancellationToken = default)
     {
         var reasons = new List<string>();
-        var degraded = false;
+        var degradations = 0;
         if (registry.Current.Generation == 0)
         {
             reasons.Add("models not loaded yet");
@@ -42,7 +42,7 @@ internal sealed class ReadinessCheck(ModelRegistry registry, IScorerStore store,
 #pragma warning restore CA1031
         {
             reasons.Add("degraded: store unreachable (scoring goes on, rows wait in the prediction log; outcomes and stage changes are refused): " + ex.Message);
-            degraded = true;
+            degradations++;
         }
 
         if (log.Enabled && log.Stalled)
@@ -50,10 +50,19 @@ internal sealed class ReadinessCheck(ModelRegistry registry, IScorerStore store,
             // Rows wait and no write succeeds: the store is down (said above), or the writer cannot get rows through.
             reasons.Add($"degraded: prediction log not draining ({log.Pending} rows waiting, none written for {log.Waiting.TotalSeconds:0} s; "
                 + $"{log.FailedWrites} failed writes, {log.SetAside} rows set aside since start)");
-            degraded = true;
+            degradations++;
         }
 
-        var ready = reasons.Count == reasons.Count(r => r.StartsWith("degraded:", StringComparison.Ordinal));
+        // Reads go on when the disk is full, so the probe above does not notice; the store says when its writes are refused.
+        if (store is IStoreSpaceSignal { Full: { } full })
+        {
+            reasons.Add($"degraded: store full since {full.Since:yyyy-MM-ddTHH:mm:ssZ}, writes refused for lack of space (scoring goes on, rows wait in the "
+                + "prediction log; outcomes and stage changes may be refused): " + full.Reason);
+            degradations++;
+        }
+
+        var degraded = degradations > 0;
+        var ready = reasons.Count == degradations;
         if (log.Enabled && log.Depth >= log.Capacity * 0.9)
         {
             reasons.Add($"prediction log nearly full ({log.Depth} of {log.Capacity} rows waiting)");

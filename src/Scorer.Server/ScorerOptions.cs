@@ -173,6 +173,12 @@ public sealed class StoreOptions
     /// </summary>
     public TimeSpan? PredictionRetention { get; set; }
 
+    /// <summary>
+    /// SQLite: the most the file may grow to, in MiB (default: as far as the disk allows). Writes beyond are refused as
+    /// on a full disk, and readiness says so, so the store cannot fill a disk it shares with the system.
+    /// </summary>
+    public long? MaxSizeMegabytes { get; set; }
+
     public IEnumerable<string> Validate()
     {
         switch (Kind)
@@ -201,6 +207,16 @@ public sealed class StoreOptions
             default:
                 yield return $"Scorer:Store:Kind is '{Kind}'; give sqlite or postgres";
                 break;
+        }
+
+        if (MaxSizeMegabytes is { } size && (size < 1 || size > long.MaxValue >> 20))
+        {
+            yield return $"Scorer:Store:MaxSizeMegabytes is {size}; give a size in MiB of at least 1, or leave it out to let the file grow";
+        }
+
+        if (MaxSizeMegabytes is not null && Kind == "postgres")
+        {
+            yield return "Scorer:Store:MaxSizeMegabytes limits the SQLite file; with Scorer:Store:Kind postgres, limit the database's size on its server instead";
         }
 
         if (PredictionRetention is { } retention && retention <= TimeSpan.Zero)

@@ -2,6 +2,7 @@ using Serilog;
 using System.Net;
 using System.Threading.RateLimiting;
 using Microsoft.AspNetCore.Server.Kestrel.Core;
+using Microsoft.Extensions.DependencyInjection.Extensions;
 using Microsoft.Extensions.Options;
 using Scorer.Registry;
 using Scorer.Store;
@@ -86,11 +87,12 @@ public static class ScorerServer
             }
         });
         builder.Services.AddSingleton(options);
-        builder.Services.AddSingleton(TimeProvider.System);
-        builder.Services.AddSingleton<IScorerStore>(_ => options.Store.Kind == "postgres"
+        builder.Services.TryAddSingleton(TimeProvider.System); // a test may bring its own clock
+        builder.Services.AddSingleton<IScorerStore>(sp => options.Store.Kind == "postgres"
             ? Scorer.Store.Postgres.PostgresScorerStore.ForConnectionString(options.Store.ConnectionString!,
                 new Scorer.Store.Postgres.PostgresStoreOptions { Schema = options.Store.Schema, PredictionRetention = options.Store.PredictionRetention })
-            : SqliteScorerStore.ForFile(options.Store.Path));
+            : SqliteScorerStore.ForFile(options.Store.Path, new SqliteStoreOptions { MaxSizeBytes = options.Store.MaxSizeMegabytes << 20 },
+                sp.GetRequiredService<TimeProvider>()));
         builder.Services.AddSingleton(new RegistryOptions { ModelsPath = options.ModelsPath });
         builder.Services.AddSingleton<ModelRegistry>();
         builder.Services.AddSingleton(sp => new RegistryWatcher(sp.GetRequiredService<ModelRegistry>(), sp.GetRequiredService<RegistryOptions>(),
@@ -119,6 +121,7 @@ public static class ScorerServer
         var apiKeys = new ApiKeyInterceptor(options.Keys);
         builder.Services.AddSingleton(apiKeys);
         builder.Services.AddSingleton<ScorerMetrics>();
+        builder.Services.AddExceptionHandler<Scorer.Transport.Rest.RestErrorHandler>();
         builder.Services.AddSingleton<MetricsInterceptor>();
         builder.Services.AddHostedService<Lifecycle>();
         builder.Services
@@ -159,6 +162,10 @@ public static class ScorerServer
         }
 
         var app = builder.Build();
+
+        // Failures of the REST routes of our own, in the API's error shape: a store that does not answer is 503 (the gRPC
+        // and transcoded routes get the same from MetricsInterceptor). After the response started, the response is aborted.
+        app.UseExceptionHandler(new ExceptionHandlerOptions { ExceptionHandler = Scorer.Transport.Rest.RestErrorHandler.UnknownAsync });
 
         // A declared body over the limit is refused before anything reads it (Kestrel's own limit catches the rest).
         app.Use(async (context, next) =>

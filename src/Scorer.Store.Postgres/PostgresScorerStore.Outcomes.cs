@@ -365,7 +365,7 @@ public sealed partial class PostgresScorerStore
     /// probability: the monitor, the change feed and <see cref="GetLabelledAsync"/> are unchanged), the per-minute and
     /// drift counts. What it takes: the rows themselves, so <see cref="GetPredictionAsync"/>,
     /// <see cref="GetPredictionsAsync"/> and <see cref="CountPredictionsAsync"/> no longer see them,
-    /// <see cref="ReadLabelledRowsAsync"/> (which exports the logged features) leaves them out, and a report for a
+    /// <see cref="GetLabelledRowsAsync"/> (which exports the logged features) leaves them out, and a report for a
     /// deleted prediction is listed as unknown. One statement, one transaction.
     /// </para>
     /// </remarks>

@@ -641,29 +641,51 @@ public sealed partial class PostgresScorerStore : IScorerStore
 
     /// <inheritdoc />
     /// <remarks>Npgsql reads the rows as the server sends them, so an export of any size holds one row in memory at a time.</remarks>
-    public async IAsyncEnumerable<LabelledRow> ReadLabelledRowsAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to,
-        [System.Runtime.CompilerServices.EnumeratorCancellation] CancellationToken cancellationToken = default)
+    public async Task<IReadOnlyList<LabelledRow>> GetLabelledRowsAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to,
+        LabelledRowPosition? after, int limit, CancellationToken cancellationToken = default)
     {
         ArgumentNullException.ThrowIfNull(model);
+        ArgumentOutOfRangeException.ThrowIfLessThan(limit, 1);
+        if (after is { } a && PostgresValues.ToTimestamp(a.ScoredAt) < PostgresValues.ToTimestamp(from))
+        {
+            after = null; // a position before the range: the range's start
+        }
+
         await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
-        var versionFilter = version is null ? "" : "AND o.version = $4 ";
+        // Each page is a range read of outcomes_by_model_time (model, scored_at, prediction_id) from its start, never a
+        // sort; a later page starts at the position alone (beside "scored_at >= from" the range would start at from).
+        var start = after is null ? "o.scored_at >= $4" : "(o.scored_at, o.prediction_id) > ($4, $5)";
+        var versionFilter = version is null ? "" : $" AND o.version = ${(after is null ? 5 : 6)}";
         await using var command = Command(connection, null,
             "SELECT o.prediction_id, o.version, o.stage, o.scored_at, o.eta, o.probability, o.outcome, o.implicit, o.recorded_at, p.\"key\", p.features "
             + "FROM outcomes o JOIN predictions p ON p.id = o.prediction_id "
-            + $"WHERE o.model = $1 {versionFilter}AND o.scored_at >= $2 AND o.scored_at < $3 ORDER BY o.scored_at, o.prediction_id");
+            + $"WHERE o.model = $1 AND {start} AND o.scored_at < $2{versionFilter} ORDER BY o.scored_at, o.prediction_id LIMIT $3");
         command.Parameters.Add(Text(model));
-        command.Parameters.Add(Timestamp(from));
         command.Parameters.Add(Timestamp(to));
+        command.Parameters.Add(new NpgsqlParameter<int> { TypedValue = limit, NpgsqlDbType = NpgsqlDbType.Integer });
+        if (after is not { } position)
+        {
+            command.Parameters.Add(Timestamp(from));
+        }
+        else
+        {
+            command.Parameters.Add(Timestamp(position.ScoredAt));
+            command.Parameters.Add(new NpgsqlParameter<Guid> { TypedValue = position.Id, NpgsqlDbType = NpgsqlDbType.Uuid });
+        }
+
         if (version is not null)
         {
             command.Parameters.Add(Text(version));
         }
 
         await using var reader = await command.ExecuteReaderAsync(cancellationToken).ConfigureAwait(false);
+        var rows = new List<LabelledRow>(Math.Min(limit, 4096));
         while (await reader.ReadAsync(cancellationToken).ConfigureAwait(false))
         {
-            yield return new LabelledRow(ReadLabelled(reader), reader.IsDBNull(9) ? null : reader.GetString(9), reader.GetString(10));
+            rows.Add(new LabelledRow(ReadLabelled(reader), reader.IsDBNull(9) ? null : reader.GetString(9), reader.GetString(10)));
         }
+
+        return rows;
     }
 
     /// <inheritdoc />

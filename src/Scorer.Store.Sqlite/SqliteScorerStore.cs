@@ -26,9 +26,12 @@ namespace Scorer.Store.Sqlite;
 /// batch writes nothing. History comes in the order the changes were made.
 /// </para>
 /// </remarks>
-public sealed class SqliteScorerStore : IScorerStore
+public sealed class SqliteScorerStore : IScorerStore, IStoreSpaceSignal
 {
     private const string StageColumns = "model, version, file_sha256, loaded_at, stage";
+    /// <summary>SQLite's result code for a write that found no room (disk full, or max_page_count reached).</summary>
+    private const int SqliteFull = 13;
+
     private const string PredictionColumns = "id, model, version, stage, scored_at, \"key\", eta, probability, features, live_id";
 
     private readonly string _connectionString;
@@ -36,10 +39,21 @@ public sealed class SqliteScorerStore : IScorerStore
     private readonly TimeProvider _clock;
     private readonly SemaphoreSlim _writeLock = new(1, 1);
     private readonly HashSet<string> _released = new(StringComparer.Ordinal);
+    private readonly long? _maxSizeBytes;
+    private long _maxPageCount;
+    private volatile FullState? _full;
+    private long _fullWrites;
     private volatile bool _disposed;
 
-    private SqliteScorerStore(SqliteConnectionStringBuilder builder, TimeProvider clock)
+    private SqliteScorerStore(SqliteConnectionStringBuilder builder, SqliteStoreOptions options, TimeProvider clock)
     {
+        if (options.MaxSizeBytes is < MinimumMaxSizeBytes)
+        {
+            throw new ArgumentOutOfRangeException(nameof(options), options.MaxSizeBytes,
+                $"The SQLite store's size limit is {options.MaxSizeBytes} bytes; give at least {MinimumMaxSizeBytes} (1 MiB), or none.");
+        }
+
+        _maxSizeBytes = options.MaxSizeBytes;
         if (builder.Mode == SqliteOpenMode.Memory || string.IsNullOrEmpty(builder.DataSource)
             || builder.DataSource == ":memory:" || builder.DataSource.Contains("mode=memory", StringComparison.OrdinalIgnoreCase))
         {
@@ -74,9 +88,16 @@ public sealed class SqliteScorerStore : IScorerStore
     /// <summary>Opens (creating if missing, with its folder) the database file at <paramref name="path"/>.</summary>
     /// <param name="path">The database file.</param>
     /// <param name="clock">The clock that stamps applied migrations; the system clock by default.</param>
-    public static SqliteScorerStore ForFile(string path, TimeProvider? clock = null)
+    public static SqliteScorerStore ForFile(string path, TimeProvider? clock = null) => ForFile(path, new SqliteStoreOptions(), clock);
+
+    /// <summary>Opens (creating if missing, with its folder) the database file at <paramref name="path"/>, with <paramref name="options"/>.</summary>
+    /// <param name="path">The database file.</param>
+    /// <param name="options">The store's settings (a size limit).</param>
+    /// <param name="clock">The clock that stamps applied migrations and refused writes; the system clock by default.</param>
+    public static SqliteScorerStore ForFile(string path, SqliteStoreOptions options, TimeProvider? clock = null)
     {
         ArgumentException.ThrowIfNullOrWhiteSpace(path);
+        ArgumentNullException.ThrowIfNull(options);
         return new SqliteScorerStore(
             new SqliteConnectionStringBuilder
             {
@@ -84,6 +105,7 @@ public sealed class SqliteScorerStore : IScorerStore
                 Mode = SqliteOpenMode.ReadWriteCreate,
                 Pooling = true,
             },
+            options,
             clock ?? TimeProvider.System);
     }
 
@@ -96,8 +118,24 @@ public sealed class SqliteScorerStore : IScorerStore
     public static SqliteScorerStore ForConnectionString(string connectionString, TimeProvider? clock = null)
     {
         ArgumentException.ThrowIfNullOrWhiteSpace(connectionString);
-        return new SqliteScorerStore(new SqliteConnectionStringBuilder(connectionString), clock ?? TimeProvider.System);
+        return new SqliteScorerStore(new SqliteConnectionStringBuilder(connectionString), new SqliteStoreOptions(), clock ?? TimeProvider.System);
     }
+
+    /// <summary>The smallest size limit the store takes: 1 MiB.</summary>
+    public const long MinimumMaxSizeBytes = 1L << 20;
+
+    /// <summary>
+    /// How long the store still says it is full after a write was last refused for lack of space: a small write that
+    /// still fits must not hide the larger ones (the prediction log's batches) that do not.
+    /// </summary>
+    public static readonly TimeSpan FullHold = TimeSpan.FromMinutes(1);
+
+    /// <inheritdoc />
+    /// <remarks>Set from the first refused write until none has been refused for <see cref="FullHold"/>.</remarks>
+    public StoreFull? Full => _full is { } full && _clock.GetUtcNow() - full.Last < FullHold ? new StoreFull(full.Since, full.Reason) : null;
+
+    /// <inheritdoc />
+    public long FullWrites => Interlocked.Read(ref _fullWrites);
 
     /// <summary>The highest migration this build knows; the schema version after <see cref="MigrateAsync"/>.</summary>
     public static int LatestSchemaVersion => Migration.All[^1].Version;
@@ -429,6 +467,18 @@ public sealed class SqliteScorerStore : IScorerStore
 
             // Per connection, not per file; cheap enough to repeat on every (pooled) open.
             Execute(connection, null, _connectionPragmas);
+            if (_maxSizeBytes is { } maxSize)
+            {
+                // The limit in pages of the file's page size (read once); SQLite refuses a write that would grow the file
+                // beyond it with SQLITE_FULL, as it does when the disk is full.
+                if (Interlocked.Read(ref _maxPageCount) == 0)
+                {
+                    Interlocked.Exchange(ref _maxPageCount, Math.Max(1, maxSize / Convert.ToInt64(Scalar(connection, null, "PRAGMA page_size;"), CultureInfo.InvariantCulture)));
+                }
+
+                Execute(connection, null, string.Create(CultureInfo.InvariantCulture, $"PRAGMA max_page_count = {Interlocked.Read(ref _maxPageCount)};"));
+            }
+
             return connection;
         }
         catch
@@ -449,10 +499,38 @@ public sealed class SqliteScorerStore : IScorerStore
             transaction.Commit();
             return result;
         }
+        catch (SqliteException ex) when (ex.SqliteErrorCode == SqliteFull)
+        {
+            throw Refused(ex, $"SQLite refused the write: {ex.Message} ({Describe()})");
+        }
+        catch (IOException ex) when (ex is not StoreFullException && StoreFullException.IsDiskFull(ex))
+        {
+            throw Refused(ex, $"The write failed: {ex.Message} ({Describe()})");
+        }
         finally
         {
             _writeLock.Release();
         }
+    }
+
+    /// <summary>Notes a write refused for lack of space (<see cref="Full"/>, <see cref="FullWrites"/>) and says so; the transaction was rolled back.</summary>
+    private StoreFullException Refused(Exception ex, string reason)
+    {
+        Interlocked.Increment(ref _fullWrites);
+        var now = _clock.GetUtcNow();
+        _full = new FullState(_full is { } last && now - last.Last < FullHold ? last.Since : now, now, reason);
+        return new StoreFullException("No room left for the store, so nothing of this write was stored. " + reason, ex);
+    }
+
+    /// <summary>When writes began to be refused for lack of space, when the last one was, and why.</summary>
+    private sealed record FullState(DateTimeOffset Since, DateTimeOffset Last, string Reason);
+
+    private string Describe()
+    {
+        var file = new SqliteConnectionStringBuilder(_connectionString).DataSource;
+        return _maxSizeBytes is { } limit
+            ? string.Create(CultureInfo.InvariantCulture, $"{file}: the disk is full or the file reached its limit of {limit / (1 << 20)} MiB; free space or raise the limit")
+            : $"{file}: free space on its disk";
     }
 
     private static void CheckPrediction(PredictionRecord? row, int index)
@@ -838,30 +916,53 @@ public sealed class SqliteScorerStore : IScorerStore
     }
 
     /// <inheritdoc />
-    public async IAsyncEnumerable<LabelledRow> ReadLabelledRowsAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to,
-        [System.Runtime.CompilerServices.EnumeratorCancellation] CancellationToken cancellationToken = default)
+    public async Task<IReadOnlyList<LabelledRow>> GetLabelledRowsAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to,
+        LabelledRowPosition? after, int limit, CancellationToken cancellationToken = default)
     {
         ArgumentNullException.ThrowIfNull(model);
+        ArgumentOutOfRangeException.ThrowIfLessThan(limit, 1);
         await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
         var versionFilter = version is null ? "" : "AND o.version = $version ";
+        if (after is { } a && StoredValues.ToUnixMicroseconds(a.ScoredAt) < StoredValues.ToUnixMicroseconds(from))
+        {
+            after = null; // a position before the range: the range's start
+        }
+
+        // Each page is a range read of outcomes_by_model_time (model, scored_at, prediction_id) from its start, never a
+        // sort. A later page starts at the position alone: with "scored_at >= from" beside it SQLite would start every
+        // page at the range's start and filter, reading the export over and over.
+        var start = after is null ? "AND o.scored_at >= $from " : "AND (o.scored_at, o.prediction_id) > ($afterAt, $afterId) ";
         using var command = Command(connection, null,
             "SELECT o.prediction_id, o.version, o.stage, o.scored_at, o.eta, o.probability, o.outcome, o.implicit, o.recorded_at, p.\"key\", p.features "
             + "FROM outcomes o JOIN predictions p ON p.id = o.prediction_id "
-            + $"WHERE o.model = $model {versionFilter}AND o.scored_at >= $from AND o.scored_at < $to ORDER BY o.scored_at, o.prediction_id;");
+            + $"WHERE o.model = $model {versionFilter}{start}AND o.scored_at < $to "
+            + "ORDER BY o.scored_at, o.prediction_id LIMIT $limit;");
         command.Parameters.AddWithValue("$model", model);
         if (version is not null)
         {
             command.Parameters.AddWithValue("$version", version);
         }
 
-        command.Parameters.AddWithValue("$from", StoredValues.ToUnixMicroseconds(from));
         command.Parameters.AddWithValue("$to", StoredValues.ToUnixMicroseconds(to));
+        if (after is not { } position)
+        {
+            command.Parameters.AddWithValue("$from", StoredValues.ToUnixMicroseconds(from));
+        }
+        else
+        {
+            command.Parameters.AddWithValue("$afterAt", StoredValues.ToUnixMicroseconds(position.ScoredAt));
+            command.Parameters.Add("$afterId", SqliteType.Blob).Value = StoredValues.ToBytes(position.Id);
+        }
+
+        command.Parameters.AddWithValue("$limit", limit);
         using var reader = command.ExecuteReader();
+        var rows = new List<LabelledRow>(Math.Min(limit, 4096));
         while (reader.Read())
         {
-            cancellationToken.ThrowIfCancellationRequested();
-            yield return new LabelledRow(ReadLabelled(reader), reader.IsDBNull(9) ? null : reader.GetString(9), reader.GetString(10));
+            rows.Add(new LabelledRow(ReadLabelled(reader), reader.IsDBNull(9) ? null : reader.GetString(9), reader.GetString(10)));
         }
+
+        return rows;
     }
 
     /// <inheritdoc />

@@ -59,7 +59,14 @@ public sealed record OutcomeReceipt(int Accepted, int Duplicates, IReadOnlyList<
 public sealed record DriftCount(string Model, string Version, DateTimeOffset Hour, string Series, int Bin, long Rows);
 
 /// <summary>A labelled prediction with the row it scored, for exporting labelled rows to a refit.</summary>
-public sealed record LabelledRow(LabelledPrediction Prediction, string? Key, string FeaturesJson);
+public sealed record LabelledRow(LabelledPrediction Prediction, string? Key, string FeaturesJson)
+{
+    /// <summary>Where this row stands in the export order: pass it as the start of the next page.</summary>
+    public LabelledRowPosition Position => new(Prediction.ScoredAt, Prediction.Id);
+}
+
+/// <summary>A place in the export order of labelled rows (prediction time, then id): a page starts after it.</summary>
+public readonly record struct LabelledRowPosition(DateTimeOffset ScoredAt, Guid Id);
 
 /// <summary>A live prediction and the shadow prediction of the same row, with their outcome.</summary>
 public sealed record PairedOutcome(double LiveProbability, double ShadowProbability, byte Outcome);
@@ -173,11 +180,15 @@ public interface IScorerStore : IAsyncDisposable
         CancellationToken cancellationToken = default);
 
     /// <summary>
-    /// The labelled predictions of a model (optionally one version) scored in [from, to) with their logged rows, in
-    /// prediction-time order, streamed (for exports of any size).
+    /// One page of the labelled predictions of a model (optionally one version) scored in [from, to) with their logged
+    /// rows: at most <paramref name="limit"/> rows in prediction-time order (then id, in the store's order of ids, the
+    /// order of <see cref="GetLabelledAsync"/>), the first ones after <paramref name="after"/> (null: from the start).
+    /// Pass the <see cref="LabelledRow.Position"/> of a page's last row to get the next page; a page shorter than the
+    /// limit is the last. Each page is one short read, so an export of any size holds no connection, lock or read
+    /// snapshot between its pages; an outcome recorded during an export shows if its row comes after the page reached.
     /// </summary>
-    IAsyncEnumerable<LabelledRow> ReadLabelledRowsAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to,
-        CancellationToken cancellationToken = default);
+    Task<IReadOnlyList<LabelledRow>> GetLabelledRowsAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to, LabelledRowPosition? after,
+        int limit, CancellationToken cancellationToken = default);
 
     /// <summary>
     /// The labelled predictions of a model version recorded or changed after <paramref name="cursor"/> (0: from the

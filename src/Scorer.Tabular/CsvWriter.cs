@@ -7,22 +7,31 @@ public sealed class CsvWriter(TextWriter writer, char separator = ',')
 {
     private bool _atRecordStart = true;
 
-    public void Field(string? value)
+    public void Field(string? value) => Field(value.AsSpan());
+
+    /// <summary>A field from characters formatted in place (an id, a time), so that nothing is allocated for it.</summary>
+    public void Field(ReadOnlySpan<char> value)
     {
         Separate();
-        if (string.IsNullOrEmpty(value))
+        if (value.IsEmpty)
         {
             return;
         }
 
-        if (value.AsSpan().IndexOfAny([separator, '"', '\n', '\r']) < 0)
+        if (value.IndexOfAny([separator, '"', '\n', '\r']) < 0)
         {
             writer.Write(value);
             return;
         }
 
         writer.Write('"');
-        writer.Write(value.Replace("\"", "\"\"", StringComparison.Ordinal));
+        for (int quote; (quote = value.IndexOf('"')) >= 0; value = value[(quote + 1)..])
+        {
+            writer.Write(value[..(quote + 1)]);
+            writer.Write('"');
+        }
+
+        writer.Write(value);
         writer.Write('"');
     }
 

@@ -38,6 +38,9 @@ public static class Errors
         return status.ToRpcException();
     }
 
+    /// <summary>A part the call needs (<paramref name="field"/>: the store) does not answer now; the caller may retry.</summary>
+    public static RpcException Unavailable(string field, string reason) => Make(Code.Unavailable, field, reason);
+
     private static RpcException Make(Code code, string field, string reason)
     {
         var status = new Google.Rpc.Status

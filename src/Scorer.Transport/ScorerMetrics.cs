@@ -12,7 +12,7 @@ namespace Scorer.Transport;
 public sealed class ScorerMetrics
 {
     public ScorerMetrics(ModelRegistry registry, PredictionLog log, ShadowScorer shadows, Scorer.Monitor.Reporting.MonitorLoop monitor,
-        Scorer.Monitor.Reporting.ChartRunner charts, EventSubscribers subscribers)
+        Scorer.Monitor.Reporting.ChartRunner charts, EventSubscribers subscribers, IScorerStore store)
     {
         Registry = Metrics.NewCustomRegistry();
         var factory = Metrics.WithCustomRegistry(Registry);
@@ -38,6 +38,8 @@ public sealed class ScorerMetrics
         var streams = factory.CreateGauge("scorer_event_streams_open", "Event streams open (monitor and overview events); at most Scorer:Limits:MaxEventSubscribers.");
         var streamsRefused = factory.CreateCounter("scorer_event_streams_refused_total", "Event streams refused because Scorer:Limits:MaxEventSubscribers were open, since start.");
         var shadowDropped = factory.CreateGauge("scorer_shadow_dropped_batches", "Shadow scoring work dropped because it fell behind, since start.");
+        var storeFull = factory.CreateGauge("scorer_store_full", "1 while the store refuses writes for lack of space (SQLite: a full disk, or Scorer:Store:MaxSizeMegabytes reached), else 0.");
+        var storeFullWrites = factory.CreateCounter("scorer_store_full_writes_total", "Writes the store refused for lack of space, since start.");
         registry.Changed += _ => reloads.Inc();
         string[] windowLabels = ["model", "version", "window"];
         Gauge Window(string name, string help) => factory.CreateGauge(name, help, windowLabels);
@@ -119,6 +121,11 @@ public sealed class ScorerMetrics
             shadowDropped.Set(shadows.Dropped);
             streams.Set(subscribers.Open);
             streamsRefused.IncTo(subscribers.Refused);
+            if (store is IStoreSpaceSignal space)
+            {
+                storeFull.Set(space.Full is null ? 0 : 1);
+                storeFullWrites.IncTo(space.FullWrites);
+            }
         });
     }
 

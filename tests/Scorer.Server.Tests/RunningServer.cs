@@ -26,7 +26,10 @@ internal sealed class RunningServer : IAsyncDisposable
 
     public T Service<T>() where T : notnull => App.Services.GetRequiredService<T>();
 
-    public static async Task<RunningServer> StartAsync(TestFolder folder, IDictionary<string, string?>? settings = null)
+    /// <param name="folder">The models folder and the store file.</param>
+    /// <param name="settings">Settings over the tests' defaults.</param>
+    /// <param name="services">Services registered before the server's own (a clock the test moves).</param>
+    public static async Task<RunningServer> StartAsync(TestFolder folder, IDictionary<string, string?>? settings = null, Action<IServiceCollection>? services = null)
     {
         string[] args = ["--models", folder.Models, "--store", folder.Store, "--http", "127.0.0.1:0", "--grpc", "127.0.0.1:0"];
         var app = await ScorerServer.BuildAsync(args, b =>
@@ -42,6 +45,8 @@ internal sealed class RunningServer : IAsyncDisposable
             {
                 b.Configuration.AddInMemoryCollection(settings);
             }
+
+            services?.Invoke(b.Services);
 
         });
         await app.StartAsync();

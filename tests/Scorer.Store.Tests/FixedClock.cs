@@ -1,7 +1,9 @@
 namespace Scorer.Store.Tests;
 
-/// <summary>A clock that always says the same time.</summary>
+/// <summary>A clock that says the time it was given, until a test moves it (<see cref="Now"/>).</summary>
 internal sealed class FixedClock(DateTimeOffset now) : TimeProvider
 {
-    public override DateTimeOffset GetUtcNow() => now;
+    public DateTimeOffset Now { get; set; } = now;
+
+    public override DateTimeOffset GetUtcNow() => Now;
 }

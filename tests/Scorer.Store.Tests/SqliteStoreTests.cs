@@ -193,6 +193,65 @@ public sealed class SqliteStoreTests : IDisposable
         Assert.Equal(0, await store.CountPredictionsAsync("renewal"));
     }
 
+    [Fact]
+    public async Task A_write_beyond_the_size_limit_is_refused_as_on_a_full_disk_stores_nothing_and_is_reported_until_none_was_refused_for_a_minute()
+    {
+        var clock = new FixedClock(MigratedAt);
+        await using var store = SqliteScorerStore.ForFile(DatabasePath, new SqliteStoreOptions { MaxSizeBytes = SqliteScorerStore.MinimumMaxSizeBytes }, clock);
+        await store.MigrateAsync();
+        Assert.Null(store.Full);
+        var features = "{\"note\":\"" + new string('x', 2000) + "\"}";
+        PredictionRecord[] Batch(int first, int n) => [.. Enumerable.Range(first, n)
+            .Select(i => new PredictionRecord(Guid.NewGuid(), "renewal", "1", Stage.Live, DateTimeOffset.UnixEpoch.AddSeconds(i), $"policy-{i}", 0.25, 0.5, features))];
+
+        // About 2 kB a row against 1 MiB: the fourth batch of 200 cannot fit.
+        StoreFullException? refused = null;
+        var stored = 0;
+        for (var b = 0; b < 10 && refused is null; b++)
+        {
+            try
+            {
+                await store.WritePredictionsAsync(Batch(b * 200, 200));
+                stored += 200;
+            }
+            catch (StoreFullException ex)
+            {
+                refused = ex;
+            }
+        }
+
+        Assert.NotNull(refused);
+        Assert.Equal(13, Assert.IsType<SqliteException>(refused.InnerException).SqliteErrorCode); // SQLITE_FULL
+        Assert.Contains("1 MiB", refused.Message, StringComparison.Ordinal);
+        Assert.Equal(stored, await store.CountPredictionsAsync("renewal"));
+        Assert.Equal(MigratedAt, store.Full!.Since);
+        Assert.Equal(1, store.FullWrites);
+
+        // Still full: the same refusal again, counted, and the first one's time kept.
+        clock.Now = MigratedAt.AddSeconds(30);
+        await Assert.ThrowsAsync<StoreFullException>(() => store.WritePredictionsAsync(Batch(10_000, 200)));
+        Assert.Equal(MigratedAt, store.Full!.Since);
+        Assert.Equal(2, store.FullWrites);
+
+        // Room made inside the file (rows deleted): the next write succeeds; the store says it was full until no write
+        // has been refused for a minute (a small write that fits does not clear it while larger ones are refused).
+        Execute("DELETE FROM predictions WHERE key <> 'policy-0';");
+        await store.WritePredictionsAsync(Batch(20_000, 200));
+        Assert.Equal(201, await store.CountPredictionsAsync("renewal"));
+        clock.Now = MigratedAt.AddSeconds(30) + SqliteScorerStore.FullHold - TimeSpan.FromTicks(1);
+        Assert.NotNull(store.Full);
+        clock.Now = MigratedAt.AddSeconds(30) + SqliteScorerStore.FullHold;
+        Assert.Null(store.Full);
+        Assert.Equal(2, store.FullWrites);
+    }
+
+    [Fact]
+    public void A_size_limit_below_one_mebibyte_is_refused_naming_the_least()
+    {
+        var ex = Assert.Throws<ArgumentOutOfRangeException>(() => SqliteScorerStore.ForFile(DatabasePath, new SqliteStoreOptions { MaxSizeBytes = 4096 }));
+        Assert.Contains("at least 1048576", ex.Message, StringComparison.Ordinal);
+    }
+
     private static long Pragma(SqliteConnection connection, string name)
     {
         using var command = connection.CreateCommand();
