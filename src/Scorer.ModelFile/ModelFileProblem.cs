@@ -16,9 +16,22 @@ public sealed record ModelFileProblem(string Path, string Reason, ProblemSeverit
     }
 }
 
+/// <summary>A bound of the reader (<see cref="ModelFileReaderOptions"/>) that a file broke.</summary>
+public enum ModelFileLimit
+{
+    /// <summary><see cref="ModelFileReaderOptions.MaxBytes"/>.</summary>
+    Bytes,
+
+    /// <summary><see cref="ModelFileReaderOptions.MaxTerms"/> (terms, covariance rows or entries of a row).</summary>
+    Terms,
+}
+
 /// <summary>What loading a model file gave: the document when it is valid, and every problem found.</summary>
 public sealed record ModelFileLoadResult(ModelDocument? Document, IReadOnlyList<ModelFileProblem> Problems)
 {
+    /// <summary>The bound the file broke, when it was refused for its size rather than for what it says.</summary>
+    public ModelFileLimit? Limit { get; init; }
+
     public bool IsValid => Document is not null;
     public IEnumerable<ModelFileProblem> Errors => Problems.Where(p => p.Severity == ProblemSeverity.Error);
     public IEnumerable<ModelFileProblem> Warnings => Problems.Where(p => p.Severity == ProblemSeverity.Warning);

@@ -1,5 +1,7 @@
-using System.Collections.Immutable;
+using System.Globalization;
+using System.Text;
 using System.Text.Json;
+using System.Text.Unicode;
 using Scorer.ModelFile.Validation;
 
 namespace Scorer.ModelFile;
@@ -42,8 +44,7 @@ public static class ModelFileReader
             buffer.Write(chunk, 0, read);
             if (buffer.Length > options.MaxBytes)
             {
-                return Failed(JsonPath.Root, $"the file is larger than the limit of {options.MaxBytes} bytes",
-                    "raise ModelFileReaderOptions.MaxBytes if the model really is this large");
+                return TooLarge(options, null);
             }
         }
 
@@ -55,14 +56,20 @@ public static class ModelFileReader
         options ??= ModelFileReaderOptions.Default;
         if (utf8Json.Length > options.MaxBytes)
         {
-            return Failed(JsonPath.Root, $"the file is larger than the limit of {options.MaxBytes} bytes",
-                "raise ModelFileReaderOptions.MaxBytes if the model really is this large");
+            return TooLarge(options, utf8Json.Length);
         }
 
         // A UTF-8 byte order mark before the text is skipped (RFC 8259 section 8.1 lets a parser ignore it); some Windows editors write one.
         if (utf8Json.Span.StartsWith("\uFEFF"u8))
         {
             utf8Json = utf8Json[3..];
+        }
+
+        // JSON text is UTF-8 (RFC 8259 section 8.1). The parser checks only what it reads as structure; the bytes inside
+        // strings are decoded later, where invalid ones would throw instead of being reported.
+        if (!Utf8.IsValid(utf8Json.Span))
+        {
+            return NotUtf8(utf8Json.Span);
         }
 
         JsonDocument json;
@@ -80,6 +87,13 @@ public static class ModelFileReader
         {
             var problems = new List<ModelFileProblem>();
             var root = json.RootElement;
+
+            // The bounds first, before the schema and before any matrix: a file over them costs no more than its parse.
+            if (CheckBounds(root, options, problems))
+            {
+                return new ModelFileLoadResult(null, problems) { Limit = ModelFileLimit.Terms };
+            }
+
             CheckNumbers(root, JsonPath.Root, problems);
             if (root.ValueKind == JsonValueKind.Object && root.TryGetProperty("format", out var format)
                 && format.ValueKind == JsonValueKind.String && format.GetString() != ModelDocument.FormatV1)
@@ -136,7 +150,9 @@ public static class ModelFileReader
             return [new ModelFileProblem(JsonPath.Root, "the document cannot be written as a model file: " + FirstSentence(ex.Message))];
         }
 
-        var result = Read(ms.GetBuffer().AsMemory(0, (int)ms.Length), options);
+        // The term limit bounds what is read from files; a document built in code (a fit, a recalibration) is as large as
+        // it was asked to be, and the host refuses its file when it reads it if it is over the host's limit.
+        var result = Read(ms.GetBuffer().AsMemory(0, (int)ms.Length), (options ?? ModelFileReaderOptions.Default) with { MaxTerms = int.MaxValue });
         if (result.IsValid)
         {
             Validated.AddOrUpdate(document, Sentinel);
@@ -158,28 +174,113 @@ public static class ModelFileReader
     private static ModelFileLoadResult Failed(string path, string reason, string? hint = null) =>
         new(null, [new ModelFileProblem(path, reason, ProblemSeverity.Error, hint)]);
 
+    /// <summary>The problem of a file over <see cref="ModelFileReaderOptions.MaxBytes"/> (its length when known).</summary>
+    public static ModelFileProblem TooLargeProblem(ModelFileReaderOptions options, long? length)
+    {
+        ArgumentNullException.ThrowIfNull(options);
+        var size = length is { } n ? string.Create(CultureInfo.InvariantCulture, $" (it has {n})") : "";
+        return new ModelFileProblem(JsonPath.Root,
+            string.Create(CultureInfo.InvariantCulture, $"the file is larger than the limit of {options.MaxBytes} bytes{size}"),
+            ProblemSeverity.Error, $"raise {options.MaxBytesSetting} if the model really is this large");
+    }
+
+    private static ModelFileLoadResult TooLarge(ModelFileReaderOptions options, long? length) =>
+        new(null, [TooLargeProblem(options, length)]) { Limit = ModelFileLimit.Bytes };
+
+    /// <summary>Names the first byte that is not UTF-8, with its line and its byte position in the line (1-based, as for JSON errors).</summary>
+    private static ModelFileLoadResult NotUtf8(ReadOnlySpan<byte> text)
+    {
+        var at = 0;
+        while (at < text.Length)
+        {
+            if (Rune.DecodeFromUtf8(text[at..], out _, out var consumed) != System.Buffers.OperationStatus.Done)
+            {
+                break;
+            }
+
+            at += consumed;
+        }
+
+        var before = text[..Math.Min(at, text.Length)];
+        var line = before.Count((byte)'\n') + 1;
+        var lineStart = before.LastIndexOf((byte)'\n') + 1;
+        var bad = at < text.Length ? text[at] : (byte)0;
+        return Failed(JsonPath.Root,
+            string.Create(CultureInfo.InvariantCulture,
+                $"not valid UTF-8: byte 0x{bad:X2} at line {line}, position {at - lineStart + 1} (offset {at}) is not part of a UTF-8 character"),
+            "save the file as UTF-8; it may have been written as Latin-1 or Windows-1252");
+    }
+
+    /// <summary>
+    /// The reader's bounds on one file, checked on the parsed tree before anything else is: at most
+    /// <see cref="ModelFileReaderOptions.MaxTerms"/> terms, covariance rows and entries per covariance row. True when one is broken.
+    /// </summary>
+    private static bool CheckBounds(JsonElement root, ModelFileReaderOptions options, List<ModelFileProblem> problems)
+    {
+        if (root.ValueKind != JsonValueKind.Object)
+        {
+            return false;
+        }
+
+        var max = options.MaxTerms;
+        var hint = $"raise {options.MaxTermsSetting} if the model really has this many terms; the covariance grows with the square of the terms";
+        if (root.TryGetProperty("terms", out var terms) && terms.ValueKind == JsonValueKind.Array && terms.GetArrayLength() > max)
+        {
+            problems.Add(new ModelFileProblem("$.terms",
+                string.Create(CultureInfo.InvariantCulture, $"{terms.GetArrayLength():N0} terms is over the limit of {max:N0} terms"), ProblemSeverity.Error, hint));
+            return true; // the covariance, one row and column per term, is not looked at
+        }
+
+        if (root.TryGetProperty("covariance", out var covariance) && covariance.ValueKind == JsonValueKind.Array)
+        {
+            if (covariance.GetArrayLength() > max)
+            {
+                problems.Add(new ModelFileProblem("$.covariance",
+                    string.Create(CultureInfo.InvariantCulture, $"{covariance.GetArrayLength():N0} rows is over the limit of {max:N0} (one row per term)"), ProblemSeverity.Error, hint));
+            }
+            else
+            {
+                var i = 0;
+                foreach (var row in covariance.EnumerateArray())
+                {
+                    if (row.ValueKind == JsonValueKind.Array && row.GetArrayLength() > max)
+                    {
+                        problems.Add(new ModelFileProblem(JsonPath.Index("$.covariance", i),
+                            string.Create(CultureInfo.InvariantCulture, $"{row.GetArrayLength():N0} entries is over the limit of {max:N0} (one entry per term)"), ProblemSeverity.Error, hint));
+                    }
+
+                    i++;
+                }
+            }
+        }
+
+        return problems.Count > 0;
+    }
+
     private static string FirstSentence(string message)
     {
         var i = message.IndexOf(". ", StringComparison.Ordinal);
         return i > 0 ? message[..i] : message.TrimEnd('.');
     }
 
-    /// <summary>Every number in the file must fit a finite double (JSON has no NaN; 1e400 would become infinity).</summary>
+    /// <summary>
+    /// Every number in the file must fit a finite double (JSON has no NaN; 1e400 would become infinity). A path is
+    /// built only for a container or a number found wrong, not for each of the million numbers of a wide covariance.
+    /// </summary>
     private static void CheckNumbers(JsonElement element, string path, List<ModelFileProblem> problems)
     {
         switch (element.ValueKind)
         {
             case JsonValueKind.Number:
-                if (!element.TryGetDouble(out var d) || !double.IsFinite(d))
-                {
-                    problems.Add(new ModelFileProblem(path, $"the number {element.GetRawText()} does not fit a finite double"));
-                }
-
+                CheckNumber(element, path, problems);
                 break;
             case JsonValueKind.Object:
                 foreach (var p in element.EnumerateObject())
                 {
-                    CheckNumbers(p.Value, JsonPath.Property(path, p.Name), problems);
+                    if (p.Value.ValueKind is JsonValueKind.Number or JsonValueKind.Object or JsonValueKind.Array)
+                    {
+                        CheckNumbers(p.Value, JsonPath.Property(path, p.Name), problems);
+                    }
                 }
 
                 break;
@@ -187,12 +288,34 @@ public static class ModelFileReader
                 var i = 0;
                 foreach (var item in element.EnumerateArray())
                 {
-                    CheckNumbers(item, JsonPath.Index(path, i++), problems);
+                    if (item.ValueKind == JsonValueKind.Number)
+                    {
+                        if (!IsFinite(item))
+                        {
+                            CheckNumber(item, JsonPath.Index(path, i), problems);
+                        }
+                    }
+                    else if (item.ValueKind is JsonValueKind.Object or JsonValueKind.Array)
+                    {
+                        CheckNumbers(item, JsonPath.Index(path, i), problems);
+                    }
+
+                    i++;
                 }
 
                 break;
             default:
                 break;
+        }
+    }
+
+    private static bool IsFinite(JsonElement number) => number.TryGetDouble(out var d) && double.IsFinite(d);
+
+    private static void CheckNumber(JsonElement number, string path, List<ModelFileProblem> problems)
+    {
+        if (!IsFinite(number))
+        {
+            problems.Add(new ModelFileProblem(path, $"the number {number.GetRawText()} does not fit a finite double"));
         }
     }
 }

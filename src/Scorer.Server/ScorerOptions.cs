@@ -28,6 +28,9 @@ public sealed class ScorerOptions
     /// <summary>How often the models folder is rescanned. Default 1 s.</summary>
     public TimeSpan RescanInterval { get; set; } = TimeSpan.FromSeconds(1);
 
+    /// <summary>Bounds on one model file: its bytes and its terms (<c>Scorer:ModelFiles:…</c>).</summary>
+    public ModelFileSettings ModelFiles { get; set; } = new();
+
     /// <summary>Requests per second per client address (0 = no limit). Default 0.</summary>
     public int RateLimitPerSecond { get; set; }
 
@@ -72,6 +75,7 @@ public sealed class ScorerOptions
         }
 
         problems.AddRange(Store.Validate());
+        problems.AddRange(ModelFiles.Validate());
 
         if (LogFormat is not ("auto" or "text" or "json"))
         {
@@ -150,6 +154,44 @@ public sealed class ScorerOptions
         problems?.Add($"{name} is '{text}'; give HOST:PORT with an IP address, e.g. 127.0.0.1:8080 or 0.0.0.0:8080");
         return null;
     }
+}
+
+/// <summary>
+/// Bounds on one model file (<c>Scorer:ModelFiles</c>), so that one file costs a bounded time and memory to load: the
+/// registry refuses a file over them, listed under <c>loadErrors</c> and counted in <c>scorer_model_files_refused</c>.
+/// </summary>
+public sealed class ModelFileSettings
+{
+    /// <summary>The largest file read, in bytes; a larger one is refused from its length, unread. Default 32 MiB.</summary>
+    public long MaxBytes { get; set; } = Scorer.ModelFile.ModelFileReaderOptions.Default.MaxBytes;
+
+    /// <summary>The most terms (and so covariance rows and entries per row) of one model. Default 500.</summary>
+    public int MaxTerms { get; set; } = Scorer.ModelFile.ModelFileReaderOptions.Default.MaxTerms;
+
+    /// <summary>The reader's options with these bounds, its problems naming these settings.</summary>
+    public Scorer.ModelFile.ModelFileReaderOptions ToReaderOptions() => Scorer.ModelFile.ModelFileReaderOptions.Default with
+    {
+        MaxBytes = MaxBytes,
+        MaxTerms = MaxTerms,
+        MaxBytesSetting = "Scorer:ModelFiles:MaxBytes",
+        MaxTermsSetting = "Scorer:ModelFiles:MaxTerms",
+    };
+
+    public IEnumerable<string> Validate()
+    {
+        if (MaxBytes is < 1024 or > MaxBytesCeiling)
+        {
+            yield return $"Scorer:ModelFiles:MaxBytes is {MaxBytes}; give 1024 to {MaxBytesCeiling} (1 GiB)";
+        }
+
+        if (MaxTerms is < 1 or > MaxTermsCeiling)
+        {
+            yield return $"Scorer:ModelFiles:MaxTerms is {MaxTerms}; give 1 to {MaxTermsCeiling} (the format's own limit)";
+        }
+    }
+
+    private const long MaxBytesCeiling = 1L << 30;
+    private const int MaxTermsCeiling = 10_000;
 }
 
 /// <summary>The store's settings (<c>Scorer:Store</c>).</summary>

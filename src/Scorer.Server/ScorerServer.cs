@@ -93,7 +93,7 @@ public static class ScorerServer
                 new Scorer.Store.Postgres.PostgresStoreOptions { Schema = options.Store.Schema, PredictionRetention = options.Store.PredictionRetention })
             : SqliteScorerStore.ForFile(options.Store.Path, new SqliteStoreOptions { MaxSizeBytes = options.Store.MaxSizeMegabytes << 20 },
                 sp.GetRequiredService<TimeProvider>()));
-        builder.Services.AddSingleton(new RegistryOptions { ModelsPath = options.ModelsPath });
+        builder.Services.AddSingleton(new RegistryOptions { ModelsPath = options.ModelsPath, Reader = options.ModelFiles.ToReaderOptions() });
         builder.Services.AddSingleton<ModelRegistry>();
         builder.Services.AddSingleton(sp => new RegistryWatcher(sp.GetRequiredService<ModelRegistry>(), sp.GetRequiredService<RegistryOptions>(),
             sp.GetRequiredService<TimeProvider>(), sp.GetRequiredService<ILogger<RegistryWatcher>>()) { RescanInterval = options.RescanInterval });

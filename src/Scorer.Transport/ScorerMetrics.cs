@@ -24,6 +24,9 @@ public sealed class ScorerMetrics
             new HistogramConfiguration { LabelNames = ["method", "status"], Buckets = Histogram.ExponentialBuckets(0.0001, 2, 18) });
         var versions = factory.CreateGauge("scorer_model_versions", "Loaded versions, by model and stage.", "model", "stage");
         var loadErrors = factory.CreateGauge("scorer_model_load_errors", "Model files that could not be loaded.");
+        var refused = factory.CreateGauge("scorer_model_files_refused",
+            "Model files not loaded, by reason: changed_version, invalid, too_large, too_many_terms, not_a_regular_file, unreadable, error.", "reason");
+        var fileReads = factory.CreateCounter("scorer_model_file_reads_total", "Model files read and hashed by the registry (a file whose length and times are unchanged is not read again).");
         var reloads = factory.CreateCounter("scorer_registry_snapshots_total", "Registry snapshots published (loads, reloads, stage changes).");
         var queue = factory.CreateGauge("scorer_prediction_log_queue_rows", "Rows waiting for the store.");
         var capacity = factory.CreateGauge("scorer_prediction_log_capacity_rows", "Rows the prediction log queue holds at most.");
@@ -110,6 +113,12 @@ public sealed class ScorerMetrics
             }
 
             loadErrors.Set(snapshot.Failures.Length);
+            foreach (var kind in LoadFailure.Kinds)
+            {
+                refused.WithLabels(LoadFailure.KindName(kind)).Set(snapshot.Failures.Count(f => f.Kind == kind));
+            }
+
+            fileReads.IncTo(registry.FileReads);
             queue.Set(log.Depth);
             capacity.Set(log.Capacity);
             written.Set(log.Written);

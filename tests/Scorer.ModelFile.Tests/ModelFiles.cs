@@ -91,6 +91,39 @@ internal static class ModelFiles
         }
         """;
 
+    /// <summary>
+    /// Valid: an intercept and one indicator term per further level of the categorical feature <c>g</c> (levels
+    /// L0 … L<paramref name="terms"/>-1, reference L0), <paramref name="terms"/> terms in all, with a diagonal covariance
+    /// of as many rows (or <paramref name="covarianceRows"/> rows when given).
+    /// </summary>
+    public static string Wide(int terms, int? covarianceRows = null)
+    {
+        var rows = covarianceRows ?? terms;
+        var text = new StringBuilder();
+        text.Append("""{"format":"scorer.model/1","model":"wide","version":"1","link":"logit",""");
+        text.Append("""
+            "outcome":{"name":"y","positive":"yes","horizon":"P30D","negatives":"explicit"},
+            """);
+        text.Append("\"features\":[{\"name\":\"g\",\"type\":\"categorical\",\"reference\":\"L0\",\"levels\":[");
+        text.AppendJoin(',', Enumerable.Range(0, Math.Max(terms, 1)).Select(i => $"\"L{i}\""));
+        text.Append("]}],\"terms\":[{\"name\":\"(Intercept)\",\"coefficient\":-2,\"factors\":[]}");
+        for (var i = 1; i < terms; i++)
+        {
+            text.Append($",{{\"name\":\"g=L{i}\",\"coefficient\":0.01,\"factors\":[{{\"feature\":\"g\",\"level\":\"L{i}\"}}]}}");
+        }
+
+        text.Append("],\"covariance\":[");
+        for (var i = 0; i < rows; i++)
+        {
+            text.Append(i == 0 ? "[" : ",[");
+            text.AppendJoin(',', Enumerable.Range(0, rows).Select(j => j == i ? "0.01" : "0"));
+            text.Append(']');
+        }
+
+        text.Append("],\"baseline\":{\"n\":1000,\"events\":70}}");
+        return text.ToString();
+    }
+
     public static JsonObject Parse(string text) => JsonNode.Parse(text)!.AsObject();
 
     public static JsonNode Json(string fragment) => JsonNode.Parse(fragment)!;

@@ -82,8 +82,11 @@ public sealed partial class CompiledModel
         var used = document.Terms.SelectMany(t => t.Factors).Select(x => x.Feature).ToHashSet(StringComparer.Ordinal);
         Used = features.Select(f => used.Contains(f.Name)).ToArray();
 
+        // Distinct columns and indicators, each found by a lookup (not a search of the list: a wide model has hundreds).
         var columns = new List<(int Feature, TransformKind T, double C, double S)>();
+        var columnIndex = new Dictionary<(int, TransformKind, double, double), int>();
         var indicators = new List<(int Feature, int Level)>();
+        var indicatorIndex = new Dictionary<(int, int), int>();
         var termStart = new List<int> { 0 };
         var refs = new List<int>();
         foreach (var term in document.Terms)
@@ -93,12 +96,12 @@ public sealed partial class CompiledModel
                 var f = _featureIndex[factor.Feature];
                 if (factor.IsIndicator)
                 {
-                    var key = (f, features[f].Levels.IndexOf(factor.Level!));
-                    var i = indicators.IndexOf(key);
-                    if (i < 0)
+                    var key = (f, LevelIndex[f]![factor.Level!]);
+                    if (!indicatorIndex.TryGetValue(key, out var i))
                     {
                         indicators.Add(key);
                         i = indicators.Count - 1;
+                        indicatorIndex.Add(key, i);
                     }
 
                     refs.Add(~i);
@@ -106,11 +109,11 @@ public sealed partial class CompiledModel
                 else
                 {
                     var key = (f, factor.Transform, factor.Center, factor.Scale);
-                    var c = columns.IndexOf(key);
-                    if (c < 0)
+                    if (!columnIndex.TryGetValue(key, out var c))
                     {
                         columns.Add(key);
                         c = columns.Count - 1;
+                        columnIndex.Add(key, c);
                     }
 
                     refs.Add(c);

@@ -13,6 +13,14 @@ internal static class SchemaValidator
 
     public static void Validate(JsonElement root, List<ModelFileProblem> problems)
     {
+        // A valid file, the usual case, is checked with the flag output: the hierarchical one keeps a result node for every
+        // value of the file (a 2,000-term covariance: 4 million nodes, gigabytes, tens of seconds). Only a file with an
+        // error is evaluated again to say where; the reader's bounds (MaxTerms) keep that second pass proportionate.
+        if (Schema.Value.Evaluate(root, new EvaluationOptions { OutputFormat = OutputFormat.Flag }).IsValid)
+        {
+            return;
+        }
+
         var results = Schema.Value.Evaluate(root, new EvaluationOptions { OutputFormat = OutputFormat.Hierarchical });
         if (results.IsValid)
         {

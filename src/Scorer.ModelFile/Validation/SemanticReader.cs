@@ -11,6 +11,13 @@ namespace Scorer.ModelFile.Validation;
 /// </summary>
 internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelFileProblem> problems)
 {
+    // How many levels a message lists before it says how many there are in all.
+    private const int LevelsNamed = 10;
+
+    // The levels of each categorical feature as a set: a factor's or a baseline's level is looked up once, not searched
+    // for in the list (a feature may have hundreds of thousands of levels).
+    private readonly Dictionary<string, HashSet<string>> _levels = new(StringComparer.Ordinal);
+
     public ModelDocument? Read(JsonElement root)
     {
         var link = Str(root, "link") switch
@@ -151,10 +158,11 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
                     }
                 }
 
+                _levels[name] = seen;
                 reference = Str(f, "reference");
                 if (reference is not null && !levels.IsEmpty && !seen.Contains(reference))
                 {
-                    Error(path + ".reference", $"reference level '{reference}' is not one of the levels of '{name}' ({string.Join(", ", levels)})");
+                    Error(path + ".reference", $"reference level '{reference}' is not one of the levels of '{name}' ({ListLevels(levels)})");
                 }
             }
 
@@ -271,9 +279,9 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
                 return null;
             }
 
-            if (!feature.Levels.Contains(level))
+            if (!HasLevel(feature, level))
             {
-                Error(path + ".level", $"'{level}' is not a level of '{featureName}' ({string.Join(", ", feature.Levels)})");
+                Error(path + ".level", $"'{level}' is not a level of '{featureName}' ({ListLevels(feature.Levels)})");
                 return null;
             }
 
@@ -427,8 +435,20 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
             return null;
         }
 
-        var symmetric = (matrix + matrix.Transpose()) * 0.5;
-        var eigen = symmetric.Evd(Symmetricity.Symmetric).EigenValues.Select(c => c.Real).ToArray();
+        // The semi-definiteness check (an eigen-decomposition, k³): the term limit bounds k. The matrix is symmetrised in
+        // place rather than through copies.
+        var asRead = Enumerable.Range(0, k).Select(r => Enumerable.Range(0, k).Select(c => matrix[r, c]).ToImmutableArray()).ToImmutableArray();
+        for (i = 0; i < k; i++)
+        {
+            for (var j = i + 1; j < k; j++)
+            {
+                var mean = 0.5 * (matrix[i, j] + matrix[j, i]);
+                matrix[i, j] = mean;
+                matrix[j, i] = mean;
+            }
+        }
+
+        var eigen = matrix.Evd(Symmetricity.Symmetric).EigenValues.Select(c => c.Real).ToArray();
         var largest = eigen.Length == 0 ? 0 : eigen.Max();
         var smallest = eigen.Length == 0 ? 0 : eigen.Min();
         if (smallest < -options.DefinitenessTolerance * Math.Max(largest, double.Epsilon))
@@ -442,7 +462,7 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
             Warn("$.covariance", "singular (some combination of terms has zero variance); standard errors are computed from an eigen-decomposition");
         }
 
-        return Enumerable.Range(0, k).Select(r => Enumerable.Range(0, k).Select(c => matrix[r, c]).ToImmutableArray()).ToImmutableArray();
+        return asRead;
     }
 
     private SamplingSpec? ReadSampling(JsonElement root, ImmutableArray<TermSpec> terms, LinkKind? link)
@@ -520,7 +540,7 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
                     var map = ImmutableDictionary.CreateBuilder<string, double>(StringComparer.Ordinal);
                     foreach (var l in lv.EnumerateObject())
                     {
-                        if (!feature.Levels.Contains(l.Name))
+                        if (!HasLevel(feature, l.Name))
                         {
                             Error(JsonPath.Property(path + ".levels", l.Name), $"'{l.Name}' is not a level of '{p.Name}'");
                         }
@@ -597,6 +617,13 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
             }
         }
     }
+
+    private bool HasLevel(FeatureSpec feature, string level) =>
+        _levels.TryGetValue(feature.Name, out var set) ? set.Contains(level) : feature.Levels.Contains(level);
+
+    private static string ListLevels(ImmutableArray<string> levels) => levels.Length <= LevelsNamed
+        ? string.Join(", ", levels)
+        : string.Join(", ", levels.Take(LevelsNamed)) + string.Create(CultureInfo.InvariantCulture, $", … ({levels.Length} levels in all)");
 
     private void Error(string path, string reason, string? hint = null) => problems.Add(new ModelFileProblem(path, reason, ProblemSeverity.Error, hint));
 

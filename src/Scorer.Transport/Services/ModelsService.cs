@@ -39,7 +39,7 @@ public sealed class ModelsService(ModelRegistry registry, IScorerStore store) : 
 
         foreach (var failure in snapshot.Failures)
         {
-            var error = new LoadError { File = Path.GetFileName(failure.File), At = Time(failure.At) };
+            var error = new LoadError { File = Path.GetFileName(failure.File), At = Time(failure.At), Kind = LoadFailure.KindName(failure.Kind) };
             error.Problems.AddRange(failure.Problems.Select(p => new Problem { Field = p.Path, Reason = p.Reason, Hint = p.Hint ?? "" }));
             response.LoadErrors.Add(error);
         }
