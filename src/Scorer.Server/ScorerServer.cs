@@ -185,10 +185,11 @@ public static class ScorerServer
                     context.Response.Headers.Connection = "close";
                 }
 
+                var reason = $"{context.Request.ContentLength} bytes; at most {options.MaxRequestBodyBytes} (Scorer:MaxRequestBodyBytes)";
                 context.Response.StatusCode = StatusCodes.Status413PayloadTooLarge;
                 context.Response.ContentType = "application/json";
                 await context.Response.WriteAsync(
-                    $"{{\"code\":8,\"message\":\"body: {context.Request.ContentLength} bytes; at most {options.MaxRequestBodyBytes} (Scorer:MaxRequestBodyBytes)\",\"details\":[]}}").ConfigureAwait(false);
+                    $"{{\"code\":8,\"message\":\"body: {reason}\",\"details\":[{{\"@type\":\"type.googleapis.com/google.rpc.BadRequest\",\"fieldViolations\":[{{\"field\":\"body\",\"description\":\"{reason}\"}}]}}]}}").ConfigureAwait(false);
                 return;
             }
 
@@ -219,6 +220,9 @@ public static class ScorerServer
             });
         }
 
+        // A native gRPC request the framework could not read is answered in the one error shape, naming the body.
+        app.UseMiddleware<Scorer.Transport.UnreadableMessage>();
+
         // Every other transcoded call is checked as strictly as the direct score reader before the transcoder reads it.
         app.Use(new Scorer.Transport.Rest.TranscodedRequestCheck(options.MaxRequestBodyBytes).InvokeAsync);
 
@@ -248,6 +252,10 @@ public static class ScorerServer
             var (ready, _, reasons) = await check.CheckAsync().ConfigureAwait(false);
             return Results.Text(reasons.Count == 0 ? "ready\n" : string.Join('\n', reasons) + "\n", statusCode: ready ? 200 : 503);
         });
+
+        // A path no call answers is 404 in the one error shape, naming the path (not an empty 404).
+        app.MapFallback("{*path}", context => Scorer.Transport.Rest.RestScoring.WriteErrorAsync(context.Response, Errors.NotFound("path",
+            $"no call answers {context.Request.Method} {Errors.Echo(context.Request.Path.Value)}; the calls are listed at /swagger/v1/swagger.json")));
 
         await PrepareAsync(app, options).ConfigureAwait(false);
         return app;

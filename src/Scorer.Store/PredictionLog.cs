@@ -181,6 +181,8 @@ public sealed class PredictionLog : IAsyncDisposable
             {
                 if (reader.TryRead(out var item))
                 {
+                    // Counted as pending from the moment it leaves the queue, not only once the batch is written.
+                    Interlocked.Increment(ref _inWriter);
                     batch.Add(item);
                     continue;
                 }
@@ -195,9 +197,7 @@ public sealed class PredictionLog : IAsyncDisposable
 
             if (batch.Count > 0)
             {
-                Interlocked.Exchange(ref _inWriter, batch.Count);
                 await WriteAsync(batch, 0, batch.Count).ConfigureAwait(false);
-                Interlocked.Exchange(ref _inWriter, 0);
                 batch.Clear();
             }
         }

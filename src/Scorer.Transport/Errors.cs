@@ -41,8 +41,13 @@ public static class Errors
     /// <summary>A part the call needs (<paramref name="field"/>: the store) does not answer now; the caller may retry.</summary>
     public static RpcException Unavailable(string field, string reason) => Make(Code.Unavailable, field, reason);
 
+    /// <summary>The longest field name and reason an error carries: gRPC sends them in headers, which clients bound.</summary>
+    public const int MaxField = 200, MaxReason = 900;
+
     private static RpcException Make(Code code, string field, string reason)
     {
+        field = string.IsNullOrWhiteSpace(field) ? $"\"{field}\"" : Echo(field, MaxField); // a blank name is quoted, as JSON writes it
+        reason = Echo(reason, MaxReason);
         var status = new Google.Rpc.Status
         {
             Code = (int)code,

@@ -52,6 +52,7 @@ public sealed class MetricsInterceptor(ScorerMetrics metrics) : Interceptor
     {
         var started = Stopwatch.GetTimestamp();
         var status = "OK";
+        context.GetHttpContext().Items[UnreadableMessage.HandlerRan] = true;
         try
         {
             return await call().ConfigureAwait(false);
@@ -77,7 +78,7 @@ public sealed class MetricsInterceptor(ScorerMetrics metrics) : Interceptor
         }
     }
 
-    private static string Name(string method) => method.StartsWith("/scorer.v1.", StringComparison.Ordinal) ? method["/scorer.v1.".Length..] : method.TrimStart('/');
+    internal static string Name(string method) => method.StartsWith("/scorer.v1.", StringComparison.Ordinal) ? method["/scorer.v1.".Length..] : method.TrimStart('/');
 
     /// <summary>The request stream, counting the messages the handler has taken from it.</summary>
     private sealed class CountingReader<T>(IAsyncStreamReader<T> inner) : IAsyncStreamReader<T>
@@ -90,7 +91,16 @@ public sealed class MetricsInterceptor(ScorerMetrics metrics) : Interceptor
 
         public async Task<bool> MoveNext(CancellationToken cancellationToken)
         {
-            var more = await inner.MoveNext(cancellationToken).ConfigureAwait(false);
+            bool more;
+            try
+            {
+                more = await inner.MoveNext(cancellationToken).ConfigureAwait(false);
+            }
+            catch (Exception e) when (UnreadableMessage.Answer(e, $"message {Read + 1} of the stream") is { } answer)
+            {
+                throw answer;
+            }
+
             if (more)
             {
                 Interlocked.Increment(ref _read);

@@ -151,6 +151,9 @@ public sealed class HostileInputTests : IAsyncLifetime
         { "{{\"outcomes\":[{{\"id\":\"{0}\",\"outcome\":1,\"outcome\":0}}]}}", "outcomes[0].outcome", "named twice" },
         { "{{\"outcomes\":{{\"id\":\"{0}\"}}}}", "outcomes", "an object; expected a list" },
         { "{{\"outcomes\":[{{\"id\":\"{0}\",\"outcome\":1,\"observedAt\":5}}]}}", "outcomes[0].observedAt", "expected a time in RFC 3339 form" },
+        { "{{\"outcomes\":[{{\"id\":\"{0}\",\"outcome\":1,\"observedAt\":\"\u520B\"}}]}}", "outcomes[0].observedAt", "is not a time in RFC 3339 form" },
+        { "{{\"outcomes\":[{{\"id\":\"{0}\",\"outcome\":5e-324}}]}}", "outcomes[0].outcome", "5e-324 is not a whole number" },
+        { "{{\"outcomes\":[{{\"id\":\"{0}\",\"outcome\":1}}],\" \":1}}", "\" \"", "not a field of RecordOutcomesRequest" },
         { "{{\"outcomes\":[{{\"id\":\"{0}\",\"outcome\":1}}]", "body", "not well-formed JSON" },
     };
 
@@ -172,6 +175,12 @@ public sealed class HostileInputTests : IAsyncLifetime
         var bad = Array.IndexOf(body, (byte)0xC3);
         body[bad] = 0xFF; // a byte that is never UTF-8
         AssertRefused(HttpStatusCode.BadRequest, await SendAsync(HttpMethod.Post, $"/v1/models/{Pump}/outcomes", body), "outcomes[0].key", "not valid Unicode text");
+    }
+
+    [Fact]
+    public async Task A_path_no_call_answers_is_404_naming_the_path_in_the_error_shape()
+    {
+        AssertRefused(HttpStatusCode.NotFound, await SendAsync(HttpMethod.Get, "/v1/models//history"), "path", "no call answers GET /v1/models//history");
     }
 
     [Fact]

@@ -155,7 +155,8 @@ public sealed class TranscodedRequestCheck(long maxBodyBytes)
             FieldType.Double or FieldType.Float => value is "NaN" or "Infinity" or "-Infinity"
                 || double.TryParse(value, NumberStyles.Float, CultureInfo.InvariantCulture, out _),
             FieldType.Enum => field.EnumType.FindValueByName(value) is not null || int.TryParse(value, NumberStyles.AllowLeadingSign, CultureInfo.InvariantCulture, out _),
-            FieldType.Message => true, // a Timestamp, Duration or wrapper given as text: the transcoder parses it
+            FieldType.Message when IsTextLike(field.MessageType) => ReadsAs(field.MessageType, value),
+            FieldType.Message => true, // a wrapper given as text: the transcoder parses it
             _ => IntegerText(field.FieldType, value),
         };
         if (!ok)
@@ -297,7 +298,12 @@ public sealed class TranscodedRequestCheck(long maxBodyBytes)
         {
             case FieldType.Message when IsTextLike(field.MessageType):
                 Expect(ref reader, JsonTokenType.String, path, Expected(field));
-                Text(ref reader, path);
+                var text = Text(ref reader, path);
+                if (!ReadsAs(field.MessageType, text))
+                {
+                    throw Errors.Invalid(path, $"'{Errors.Echo(text, 40)}' is not {Expected(field)}");
+                }
+
                 break;
             case FieldType.Message when Wrapped(field.MessageType) is { } inner:
                 CheckSingle(ref reader, inner, path);
@@ -378,7 +384,8 @@ public sealed class TranscodedRequestCheck(long maxBodyBytes)
 
         if (!IntegerText(field.FieldType, text))
         {
-            var whole = decimal.TryParse(text, NumberStyles.Float, CultureInfo.InvariantCulture, out var number) && number == decimal.Truncate(number);
+            var whole = decimal.TryParse(text, NumberStyles.Float, CultureInfo.InvariantCulture, out var number) && number == decimal.Truncate(number)
+                && double.TryParse(text, NumberStyles.Float, CultureInfo.InvariantCulture, out var asDouble) && asDouble == Math.Floor(asDouble);
             throw Errors.Invalid(path, whole || double.TryParse(text, NumberStyles.Float, CultureInfo.InvariantCulture, out var d) && double.IsInfinity(d)
                 ? $"{Errors.Echo(text, 40)} is out of range for {Expected(field)}"
                 : $"{Errors.Echo(text, 40)} is not {Expected(field)}");
@@ -388,7 +395,10 @@ public sealed class TranscodedRequestCheck(long maxBodyBytes)
     /// <summary>Integer text in range for the type: digits, an optional sign, and (as protobuf allows) an exponent that leaves it whole.</summary>
     private static bool IntegerText(FieldType type, string text)
     {
-        if (!decimal.TryParse(text, NumberStyles.Float, CultureInfo.InvariantCulture, out var value) || value != decimal.Truncate(value))
+        // The decimal keeps 28 digits and rounds what is smaller to 0 (5e-324 would read as a whole 0): the double must
+        // be whole as well, as protobuf's own reader requires.
+        if (!decimal.TryParse(text, NumberStyles.Float, CultureInfo.InvariantCulture, out var value) || value != decimal.Truncate(value)
+            || !double.TryParse(text, NumberStyles.Float, CultureInfo.InvariantCulture, out var d) || d != Math.Floor(d))
         {
             return false;
         }
@@ -410,6 +420,20 @@ public sealed class TranscodedRequestCheck(long maxBodyBytes)
 
     private static bool IsOpen(MessageDescriptor message) => message.FullName is "google.protobuf.Struct" or "google.protobuf.Value"
         or "google.protobuf.ListValue" or "google.protobuf.Any";
+
+    /// <summary>Whether protobuf's JSON reader takes the text as a Timestamp, Duration or FieldMask (the transcoder's own rule).</summary>
+    private static bool ReadsAs(MessageDescriptor message, string text)
+    {
+        try
+        {
+            Google.Protobuf.JsonParser.Default.Parse(JsonSerializer.Serialize(text), message);
+            return true;
+        }
+        catch (Exception e) when (e is Google.Protobuf.InvalidProtocolBufferException or Google.Protobuf.InvalidJsonException or FormatException)
+        {
+            return false;
+        }
+    }
 
     private static bool IsTextLike(MessageDescriptor message) => message.FullName is "google.protobuf.Timestamp" or "google.protobuf.Duration"
         or "google.protobuf.FieldMask";
