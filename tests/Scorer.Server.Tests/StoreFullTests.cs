@@ -40,15 +40,22 @@ public sealed class StoreFullTests : IAsyncLifetime
         Assert.Equal("ready\n", await _server.Http.GetStringAsync("/readyz"));
         Assert.Contains("scorer_store_full 0", await _server.Http.GetStringAsync("/metrics"), StringComparison.Ordinal);
 
-        // About 250 bytes a logged row: 6,000 rows do not fit in 1 MiB.
-        for (var batch = 0; batch < 3; batch++)
+        // About 250 bytes a logged row: a few thousand fit in 1 MiB. Rows go in 500 at a time, each lot written before the
+        // next is sent, until one does not fit: then exactly that lot waits, and it fits once the operator makes room.
+        var log = _server.Service<PredictionLog>();
+        var sent = 0;
+        while (log.FailedWrites == 0)
         {
-            var rows = Enumerable.Range(batch * 2000, 2000)
+            Assert.True(sent < 20_000, "1 MiB held 20,000 rows: the size limit is not applied");
+            var rows = Enumerable.Range(sent, 500)
                 .Select(i => $"{{\"vibration_rms\":{2 + (i % 50) * 0.1:R},\"bearing_temp_c\":55,\"hours_since_service\":{100 + i},\"site\":\"river\"}}");
-            var keys = Enumerable.Range(batch * 2000, 2000).Select(i => $"\"work-order-{i:D8}\"");
+            var keys = Enumerable.Range(sent, 500).Select(i => $"\"work-order-{i:D8}\"");
             using var content = new StringContent($"{{\"rows\":[{string.Join(",", rows)}],\"keys\":[{string.Join(",", keys)}]}}", Encoding.UTF8, "application/json");
             using var scored = await _server.Http.PostAsync($"/v1/models/{Model}/score", content);
             Assert.Equal(HttpStatusCode.OK, scored.StatusCode); // scoring goes on
+            sent += 500;
+            Assert.True(await Files.EventuallyAsync(() => Task.FromResult(log.Pending == 0 || log.FailedWrites > 0), TimeSpan.FromSeconds(60)),
+                $"the log neither wrote nor failed to write rows {sent - 500}-{sent}: pending {log.Pending}");
         }
 
         string? reasons = null;
@@ -90,8 +97,9 @@ public sealed class StoreFullTests : IAsyncLifetime
             Assert.Equal(logged, await delete.ExecuteNonQueryAsync());
         }
 
-        Assert.True(await Files.EventuallyAsync(async () => await store.CountPredictionsAsync(Model) == 6000 - logged, TimeSpan.FromSeconds(60)),
-            "the rows that waited in the prediction log were not written once there was room");
+        Assert.True(await Files.EventuallyAsync(async () => await store.CountPredictionsAsync(Model) == sent - logged, TimeSpan.FromSeconds(60)),
+            $"the rows that waited in the prediction log were not written once there was room: {logged} logged before, {await store.CountPredictionsAsync(Model)} now; "
+            + $"log written {log.Written}, failed writes {log.FailedWrites}, set aside {log.SetAside}, pending {log.Pending}, dropped {log.Dropped}");
 
         // Still said to be full for a minute after the last refusal (a small write that fits must not hide larger ones
         // that do not); then ready again.
