@@ -212,3 +212,72 @@ public sealed class RowPolicyTests
         Assert.False(r.Failed, r.Error.ToString());
     }
 }
+
+/// <summary>
+/// Finite values so large that η or x'Vx leaves double precision (IEEE 754 binary64: the largest finite value is
+/// 1.7976931348623157e308). No number computed from them means anything, so the row is an error naming the value.
+/// </summary>
+public sealed class OverflowTests
+{
+    private static readonly ScoreSettings Band = ScoreSettings.Default;
+
+    [Fact]
+    public void A_value_whose_standard_error_overflows_is_a_row_error_naming_the_feature_not_an_infinite_band()
+    {
+        var model = CompiledModel.Compile(Models.Pump());
+        // temp enters as (temp − 55)/10 with variance 0.01: x'Vx = (1.7e307)²·0.01 overflows, η = 0.3·1.7e307 does not.
+        var r = model.Score([new("vibration", 4.0), new("temp", 1.7e308), new("site", "east")], Band);
+        Assert.True(r.Failed);
+        Assert.Equal(RowErrorKind.Overflow, r.Error.Kind);
+        Assert.Equal("temp", RowMessages.Field(model, r.Error));
+        Assert.Contains("1.7E+308", RowMessages.Describe(model, r.Error), StringComparison.Ordinal);
+        Assert.True(double.IsNaN(r.Se) && double.IsNaN(r.Lower) && double.IsNaN(r.Probability));
+
+        // Without a band only η is computed, and it is finite: the row is scored (with its extrapolation warning).
+        var point = model.Score([new("vibration", 4.0), new("temp", 1.7e308), new("site", "east")], ScoreSettings.PointOnly);
+        Assert.False(point.Failed);
+        Assert.Equal(1.0, point.Probability);
+    }
+
+    [Fact]
+    public void A_design_whose_linear_predictor_overflows_is_a_row_error_even_without_a_band()
+    {
+        var model = CompiledModel.Compile(Models.Pump());
+        // 0.8·1.7e308 + 0.3·1.7e308 + 0.25·1.7e308 = 2.3e308 > 1.797e308.
+        var r = model.ScoreDesign([1, 1.7e308, 1.7e308, 0, 0, 1.7e308], ScoreSettings.PointOnly);
+        Assert.Equal(RowErrorKind.Overflow, r.Error.Kind);
+        Assert.Equal("the linear predictor or its standard error overflows double precision", RowMessages.Describe(model, r.Error));
+    }
+
+    [Fact]
+    public void The_batch_path_names_the_overflowing_row_and_scores_its_neighbours_as_one_by_one()
+    {
+        var model = CompiledModel.Compile(Models.Pump());
+        // Sixteen rows: a block of eight that all overflow, then a block mixing overflowing and ordinary rows.
+        var features = new List<double>();
+        for (var i = 0; i < 16; i++)
+        {
+            var huge = i < 8 || i % 3 == 0;
+            features.AddRange([4.0 + (i * 0.1), huge ? (i % 2 == 0 ? 1.7e308 : -1.7e308) : 50 + i, 1]);
+        }
+
+        var results = new ScoredRow[16];
+        model.ScoreBatch(features.ToArray(), results, Band);
+        for (var i = 0; i < 16; i++)
+        {
+            var one = model.ScoreFeatures(features.ToArray().AsSpan(i * 3, 3), Band);
+            Assert.Equal(one.Error.Kind, results[i].Error.Kind);
+            if (i < 8 || i % 3 == 0)
+            {
+                Assert.Equal(RowErrorKind.Overflow, results[i].Error.Kind);
+                Assert.Equal("temp", RowMessages.Field(model, results[i].Error));
+            }
+            else
+            {
+                Assert.False(results[i].Failed);
+                Assert.Equal(one.Probability, results[i].Probability, 14);
+                Assert.Equal(one.Se, results[i].Se, 14);
+            }
+        }
+    }
+}

@@ -291,6 +291,12 @@ public sealed class FuzzCampaignTests : IAsyncLifetime
                 var probability = p.GetDouble();
                 Assert.InRange(probability, 0, 1);
                 Assert.True(double.IsFinite(result.GetProperty("eta").GetDouble()));
+                foreach (var number in result.EnumerateObject().Where(f => f.Name is "se" or "lower" or "upper" or "probabilitySe"))
+                {
+                    Assert.True(number.Value.ValueKind == JsonValueKind.Number && double.IsFinite(number.Value.GetDouble()), $"{number.Name} is {number.Value.GetRawText()}");
+                }
+
+                Assert.Equal(result.TryGetProperty("se", out _), result.TryGetProperty("lower", out _)); // a standard error comes with its band
                 if (result.TryGetProperty("lower", out var lower))
                 {
                     Assert.InRange(lower.GetDouble(), 0, probability);

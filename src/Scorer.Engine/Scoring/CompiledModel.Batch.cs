@@ -74,6 +74,7 @@ public sealed partial class CompiledModel
                     }
                 }
 
+                BlameOverflows(features, results, r0, BlockRows, values, levels);
                 continue;
             }
 
@@ -118,6 +119,7 @@ public sealed partial class CompiledModel
             if (vectorLinks && count == BlockRows && !ok.Contains(false))
             {
                 FinishBlock(eta, ss, band, settings, results.Slice(r0, BlockRows), warningCounts, keepWarnings ? warnings.Slice(r0 * stride, BlockRows * stride) : default, stride);
+                BlameOverflows(features, results, r0, BlockRows, values, levels);
                 continue;
             }
 
@@ -129,6 +131,22 @@ public sealed partial class CompiledModel
                     var w = keepWarnings ? warnings.Slice(r * stride, stride) : default;
                     results[r] = FinishFrom(eta[lane], band ? ss[lane] : double.NaN, settings, w, warningCounts[lane]);
                 }
+            }
+
+            BlameOverflows(features, results, r0, count, values, levels);
+        }
+    }
+
+    /// <summary>Names the feature to blame in the block's overflow errors (rare: a cold path that binds the row again).</summary>
+    private void BlameOverflows(ReadOnlySpan<double> features, Span<ScoredRow> results, int r0, int count, Span<double> values, Span<int> levels)
+    {
+        var n = FeatureCount;
+        for (var r = r0; r < r0 + count; r++)
+        {
+            if (results[r].Error.Kind == RowErrorKind.Overflow && results[r].Error.Feature < 0)
+            {
+                BindDense(features.Slice(r * n, n), values, levels);
+                results[r].Error = BlameOverflow(values);
             }
         }
     }
@@ -382,6 +400,12 @@ public sealed partial class CompiledModel
             r.ProbabilitySe = pse[lane];
             r.Flag = double.IsNaN(threshold) ? (sbyte)-1 : r.Probability >= threshold ? (sbyte)1 : (sbyte)0;
             r.Error = default;
+            if (!double.IsFinite(r.Eta) || (band && !double.IsFinite(ss[lane])))
+            {
+                r = FailedRow(new RowError(RowErrorKind.Overflow, -1));
+                continue;
+            }
+
             var count = warningCounts[lane];
             if (band && r.Se > MaxSe * (1 + 1e-9))
             {

@@ -96,7 +96,46 @@ public sealed partial class CompiledModel
         var k = TermCount;
         Span<double> x = k <= 256 ? stackalloc double[k] : new double[k];
         error = Design(values, levels, x);
-        return error.IsError ? FailedRow(error) : Finish(x, settings, contributions, warnings, warningCount);
+        if (error.IsError)
+        {
+            return FailedRow(error);
+        }
+
+        var r = Finish(x, settings, contributions, warnings, warningCount);
+        if (r.Error.Kind == RowErrorKind.Overflow)
+        {
+            r.Error = BlameOverflow(values);
+        }
+
+        return r;
+    }
+
+    /// <summary>
+    /// The overflow error naming the used numeric feature furthest outside its training range (in range widths): with
+    /// finite inputs only such a value can make η or x'Vx overflow.
+    /// </summary>
+    internal RowError BlameOverflow(ReadOnlySpan<double> values)
+    {
+        var blamed = -1;
+        var furthest = -1.0;
+        for (var f = 0; f < values.Length; f++)
+        {
+            var v = values[f];
+            if (!Used[f] || Kinds[f] != FeatureKind.Numeric || !double.IsFinite(v))
+            {
+                continue;
+            }
+
+            var width = Max[f] - Min[f];
+            var outside = Math.Max(Min[f] - v, v - Max[f]) / (width > 0 ? width : 1);
+            if (outside > furthest)
+            {
+                furthest = outside;
+                blamed = f;
+            }
+        }
+
+        return new RowError(RowErrorKind.Overflow, blamed, blamed >= 0 ? values[blamed] : double.NaN);
     }
 
     /// <summary>Maps named values onto feature slots: values[f] (NaN = missing) and levels[f] (level index, Missing or Unknown).</summary>
@@ -372,13 +411,20 @@ public sealed partial class CompiledModel
     [MethodImpl(MethodImplOptions.AggressiveInlining)]
     private ScoredRow FinishFrom(double eta, double quadratic, in ScoreSettings settings, Span<RowWarning> warnings, int warningCount)
     {
+        var band = settings.Band && Factor is not null;
+        if (!double.IsFinite(eta) || (band && !double.IsFinite(quadratic)))
+        {
+            // Finite inputs so large that η or x'Vx leaves double precision: no number here would mean anything.
+            return FailedRow(new RowError(RowErrorKind.Overflow, -1));
+        }
+
         var link = Link;
         ScoredRow r;
         r.Eta = eta;
         r.Probability = Links.Link.Inverse(link, eta);
         r.Flag = double.IsNaN(Threshold) ? (sbyte)-1 : r.Probability >= Threshold ? (sbyte)1 : (sbyte)0;
         r.Error = default;
-        if (!double.IsNaN(quadratic))
+        if (band)
         {
             var se = Math.Sqrt(quadratic);
             var half = settings.Z * se;

@@ -33,6 +33,9 @@ public enum RowErrorKind : byte
     ExpectedNumber,
     ExpectedLevel,
     DuplicateFeature,
+
+    /// <summary>η or its standard error overflows double precision: a value far beyond any the model can mean.</summary>
+    Overflow,
 }
 
 /// <summary>Why a row could not be scored. <see cref="Feature"/> is the model's feature index.</summary>
@@ -75,7 +78,7 @@ public static class RowMessages
     {
         if (e.Feature < 0)
         {
-            return e.Kind.ToString();
+            return e.Kind == RowErrorKind.Overflow ? "the linear predictor or its standard error overflows double precision" : e.Kind.ToString();
         }
 
         var f = e.Feature;
@@ -88,6 +91,7 @@ public static class RowMessages
             RowErrorKind.ExpectedNumber => $"expects a number, got '{e.Text}'",
             RowErrorKind.ExpectedLevel => $"expects a level ({string.Join(", ", model.Levels(f))}), got {e.Text ?? F(e.Value)}",
             RowErrorKind.DuplicateFeature => "the feature is given twice in the row",
+            RowErrorKind.Overflow => $"the value {F(e.Value)} is so far out of range that the linear predictor or its standard error overflows double precision",
             _ => e.Kind.ToString(),
         };
     }

@@ -139,6 +139,7 @@ public sealed class ScoringCore(ModelRegistry registry, PredictionLog log, Shado
         RowErrorKind.ExpectedNumber => "expected_number",
         RowErrorKind.ExpectedLevel => "expected_level",
         RowErrorKind.DuplicateFeature => "duplicate_feature",
+        RowErrorKind.Overflow => "overflow",
         _ => "other",
     };
 }
