@@ -14,6 +14,7 @@ namespace Scorer.Server.Tests;
 /// loopback and checked line for line; the store down before the export (503 before any status line) and during it
 /// (the response aborted, never ended as if whole), against a PostgreSQL server of the test's own.
 /// </summary>
+[Collection(MeasuredAlone.Name)] // the million-row test samples the process's memory
 public sealed class LabelledExportTests(ITestOutputHelper output) : IDisposable
 {
     private const string Model = "pump-bearing-failure";
