@@ -60,7 +60,7 @@ public sealed class ScorerMetrics
         var cusum = factory.CreateGauge("scorer_monitor_cusum", "Risk-adjusted Bernoulli CUSUM value, by chart (up, down).", "model", "version", "chart");
         var cusumThreshold = factory.CreateGauge("scorer_monitor_cusum_threshold", "CUSUM threshold, by chart.", "model", "version", "chart");
         var cusumSignals = factory.CreateGauge("scorer_monitor_cusum_signals", "CUSUM signals since start, by chart.", "model", "version", "chart");
-        var status = factory.CreateGauge("scorer_monitor_status", "Status of the version: 0 in-tune, 1 drifting, 2 out-of-tune.", "model", "version");
+        var status = factory.CreateGauge("scorer_monitor_status", "Status of the version: 0 fine, 1 watch, 2 recalibrate, 3 refit-due.", "model", "version");
         var chartsHolder = factory.CreateGauge("scorer_monitor_charts_holder",
             "1 when this process runs the CUSUM charts (holds the store's charts lease), 0 when another process sharing the store does.");
         Registry.AddBeforeCollectCallback(() =>

@@ -42,7 +42,7 @@ public sealed partial class DemoTests(BrowserFixture browser)
                 """);
 
             // After the drift (pump failures twice as likely) the upward chart signals or the O/E leaves its tolerance.
-            await Assertions.Expect(pumps.Locator("tr[data-stage=\"live\"] .chip")).Not.ToHaveAttributeAsync("data-status", "in-tune",
+            await Assertions.Expect(pumps.Locator("tr[data-stage=\"live\"] .chip")).Not.ToHaveAttributeAsync("data-status", "fine",
                 new LocatorAssertionsToHaveAttributeOptions { Timeout = 60_000 });
             Assert.Contains("the drift begins", output.ToString(), StringComparison.Ordinal);
             await Assertions.Expect(cards.Locator("tr[data-stage=\"live\"] .chip")).ToBeVisibleAsync();

@@ -52,12 +52,7 @@ public sealed class MonitorPageTests(BrowserFixture browser) : IAsyncLifetime
                 await Assertions.Expect(row).ToHaveAttributeAsync("data-stage", version.GetProperty("stage").GetString()!);
                 var status = version.GetProperty("status").GetString()!;
                 await Assertions.Expect(row.Locator(".chip")).ToHaveAttributeAsync("data-status", status);
-                var word = status switch
-                {
-                    "in-tune" => "fine",
-                    "drifting" => "watch",
-                    _ => version.GetProperty("advice").GetString()!.StartsWith("Refit due", StringComparison.Ordinal) ? "refit due" : "recalibrate",
-                };
+                var word = status == "refit-due" ? "refit due" : status; // the page's word is the status, written as words
                 await Assertions.Expect(row.Locator(".chip")).ToHaveTextAsync(word);
                 Assert.Equal(version.GetProperty("labelled").GetInt64().ToString(CultureInfo.InvariantCulture),
                     await row.Locator("td[data-labelled]").GetAttributeAsync("data-labelled"));
@@ -123,18 +118,19 @@ public sealed class MonitorPageTests(BrowserFixture browser) : IAsyncLifetime
         await using var session = await browser.OpenAsync(_server.Url);
         var page = session.Page;
         await page.GotoAsync(new Uri(_server.Url, $"models/{PageServer.Pumps}?window=all").ToString());
-        await Assertions.Expect(page.Locator("#status-slot .chip")).ToHaveAttributeAsync("data-status", "in-tune");
+        await Assertions.Expect(page.Locator("#status-slot .chip")).ToHaveAttributeAsync("data-status", "fine");
         await page.EvaluateAsync("() => { window.__sameDocument = true; }");
 
         // Outcomes with four times the odds the model gives: far more failures than predicted.
         var scored = await _server.ScorePumpsAsync(1500, seed: 5);
         await _server.PostOutcomesAsync(scored, oddsRatio: 4, seed: 6);
 
-        await Assertions.Expect(page.Locator("#change")).ToHaveAttributeAsync("data-to", "out-of-tune");
+        await Assertions.Expect(page.Locator("#change")).ToHaveAttributeAsync("data-to", "recalibrate");
         await Assertions.Expect(page.Locator("#change")).ToContainTextAsync(new System.Text.RegularExpressions.Regex("^Status changed: fine → recalibrate"));
-        await Assertions.Expect(page.Locator("#status-slot .chip")).ToHaveAttributeAsync("data-status", "out-of-tune");
+        await Assertions.Expect(page.Locator("#status-slot .chip")).ToHaveAttributeAsync("data-status", "recalibrate");
         var report = await _server.GetJsonAsync($"v1/models/{PageServer.Pumps}/monitor?window=all");
-        Assert.Equal("out-of-tune", report.GetProperty("status").GetString());
+        Assert.Equal("recalibrate", report.GetProperty("status").GetString());
+        Assert.Equal("recalibrate", report.GetProperty("action").GetString());
         await Assertions.Expect(page.Locator("#reasons")).ToContainTextAsync(report.GetProperty("reasons")[0].GetString()!);
         Assert.True(await page.EvaluateAsync<bool>("() => window.__sameDocument === true"), "the page was reloaded instead of updated live");
         await session.ScreenshotAsync("model-status-change");

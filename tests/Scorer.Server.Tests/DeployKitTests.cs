@@ -72,10 +72,11 @@ public sealed class DeployKitTests : IDisposable
     }
 
     [Fact]
-    public async Task The_alerts_watch_refit_status_cusum_signals_large_psi_row_errors_p99_latency_and_log_drops()
+    public async Task The_alerts_watch_recalibrate_and_refit_status_cusum_signals_large_psi_row_errors_p99_latency_and_log_drops()
     {
         var expressions = (await AlertsAsync()).Values.Select(e => Regex.Replace(e, @"\s+", " ")).ToList();
-        Assert.Contains(expressions, e => e.Contains("scorer_monitor_status", StringComparison.Ordinal) && e.Contains("== 2", StringComparison.Ordinal));
+        Assert.Contains(expressions, e => e.Contains("scorer_monitor_status", StringComparison.Ordinal) && e.Contains("== 2", StringComparison.Ordinal)); // recalibrate
+        Assert.Contains(expressions, e => e.Contains("scorer_monitor_status", StringComparison.Ordinal) && e.Contains("== 3", StringComparison.Ordinal)); // refit-due
         Assert.Contains(expressions, e => e.Contains("increase(scorer_monitor_cusum_signals[", StringComparison.Ordinal));
         Assert.Contains(expressions, e => e.Contains("scorer_monitor_psi", StringComparison.Ordinal) && e.Contains("> 0.25", StringComparison.Ordinal));
         Assert.Contains(expressions, e => e.Contains("scorer_row_errors_total", StringComparison.Ordinal) && e.Contains("scorer_rows_scored_total", StringComparison.Ordinal));
@@ -93,6 +94,22 @@ public sealed class DeployKitTests : IDisposable
     }
 
     // ---- Grafana ----------------------------------------------------------------------------------------------------
+
+    [Fact]
+    public async Task Every_status_panel_of_the_dashboard_names_the_gauge_values_with_the_services_four_status_words()
+    {
+        using var json = JsonDocument.Parse(await File.ReadAllTextAsync(DeployKit.PathOf(Dashboard)));
+        var statusPanels = json.RootElement.GetProperty("panels").EnumerateArray()
+            .Where(p => p.TryGetProperty("targets", out var t) && t.EnumerateArray().Any(q => q.TryGetProperty("expr", out var e) && e.GetString()!.Contains("scorer_monitor_status", StringComparison.Ordinal)))
+            .ToList();
+        Assert.NotEmpty(statusPanels);
+        foreach (var panel in statusPanels)
+        {
+            var mapping = panel.GetProperty("fieldConfig").GetProperty("defaults").GetProperty("mappings").EnumerateArray().Single(m => m.GetProperty("type").GetString() == "value");
+            var words = mapping.GetProperty("options").EnumerateObject().ToDictionary(o => int.Parse(o.Name, CultureInfo.InvariantCulture), o => o.Value.GetProperty("text").GetString());
+            Assert.Equal(Enumerable.Range(0, Scorer.Monitor.Reporting.StatusRules.Names.Count).ToDictionary(i => i, i => (string?)Scorer.Monitor.Reporting.StatusRules.Names[i]), words);
+        }
+    }
 
     [Fact]
     public async Task The_dashboard_reads_its_data_source_from_a_variable_lays_out_its_rows_and_its_queries_are_valid_promql()

@@ -116,7 +116,7 @@ public sealed class MonitorApiTests : IAsyncLifetime
         }
 
         // Calibration holds on Pima.te (slope 0.955, O/E 0.97, both intervals include 1; AUC 0.865).
-        Assert.Equal("in-tune", report.GetProperty("status").GetString());
+        Assert.Equal("fine", report.GetProperty("status").GetString());
         Assert.Contains(report.GetProperty("reasons").EnumerateArray(), r => r.GetString()!.Contains("hold", StringComparison.Ordinal));
     }
 
@@ -292,7 +292,7 @@ public sealed class MonitorApiTests : IAsyncLifetime
         Assert.Equal(0, report.GetProperty("labelled").GetInt32());
         Assert.Equal(n, report.GetProperty("immature").GetInt32());
         Assert.True(report.GetProperty("provisional").GetBoolean());
-        Assert.Equal("in-tune", report.GetProperty("status").GetString());
+        Assert.Equal("fine", report.GetProperty("status").GetString());
         Assert.Contains(report.GetProperty("reasons").EnumerateArray(), r => r.GetString()!.StartsWith("Too few outcomes", StringComparison.Ordinal));
     }
 }

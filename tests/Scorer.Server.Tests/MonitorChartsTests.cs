@@ -139,7 +139,8 @@ public sealed class MonitorChartsTests : IDisposable
         var psi = expected.Select((e, b) => (a: b == bin ? 1.0 : 1e-4, e: Math.Max(e, 1e-4))).Sum(x => (x.a - x.e) * Math.Log(x.a / x.e));
         Assert.Equal(psi, report.GetProperty("psi").GetProperty("score").GetDouble(), 1e-12);
         Assert.True(report.GetProperty("psi").GetProperty("features").GetProperty("vibration_rms").GetDouble() > 0.25);
-        Assert.Equal("out-of-tune", report.GetProperty("status").GetString());
+        Assert.Equal("refit-due", report.GetProperty("status").GetString());
+        Assert.Equal("refit", report.GetProperty("action").GetString());
         Assert.StartsWith("Refit due", report.GetProperty("advice").GetString(), StringComparison.Ordinal);
     }
 

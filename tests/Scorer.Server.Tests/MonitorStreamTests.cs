@@ -16,8 +16,8 @@ namespace Scorer.Server.Tests;
 
 /// <summary>
 /// Status changes as they happen: Server-Sent Events, the gRPC stream, the metrics and the webhook, on MASS's Pima.te
-/// scored with the model R fit on Pima.tr. Its real outcomes keep the model in tune; the same rows with every outcome
-/// flipped (1 − y) turn its AUC to 1 − 0.865 and the status to out-of-tune.
+/// scored with the model R fit on Pima.tr. Its real outcomes keep the model fine; the same rows with every outcome
+/// flipped (1 − y) turn its AUC to 1 − 0.865 and the status to refit-due.
 /// </summary>
 public sealed class MonitorStreamTests : IAsyncLifetime
 {
@@ -90,9 +90,10 @@ public sealed class MonitorStreamTests : IAsyncLifetime
 
         var first = await NextEventAsync(reader, cancel.Token);
         Assert.Equal("snapshot", first.Kind);
-        Assert.Equal("in-tune", first.Data.GetProperty("status").GetString());
+        Assert.Equal("fine", first.Data.GetProperty("status").GetString());
+        Assert.Equal("none", first.Data.GetProperty("action").GetString());
         Assert.True(await grpc.ResponseStream.MoveNext(cancel.Token));
-        Assert.Equal("in-tune", grpc.ResponseStream.Current.Report.Status);
+        Assert.Equal("fine", grpc.ResponseStream.Current.Report.Status);
 
         await ScoreAndLabelAsync(flipped: true);
 
@@ -102,16 +103,19 @@ public sealed class MonitorStreamTests : IAsyncLifetime
             change = await NextEventAsync(reader, cancel.Token);
         }
         while (change.Kind != "status");
-        Assert.Equal("out-of-tune", change.Data.GetProperty("status").GetString());
+        Assert.Equal("refit-due", change.Data.GetProperty("status").GetString());
+        Assert.Equal("refit", change.Data.GetProperty("action").GetString());
         Assert.Contains(change.Data.GetProperty("reasons").EnumerateArray(), r => r.GetString()!.StartsWith("AUC ", StringComparison.Ordinal));
         Assert.StartsWith("Refit due", change.Data.GetProperty("advice").GetString(), StringComparison.Ordinal);
 
         var grpcStatus = await NextGrpcStatusAsync(grpc.ResponseStream, cancel.Token);
-        Assert.Equal("out-of-tune", grpcStatus.Report.Status);
+        Assert.Equal("refit-due", grpcStatus.Report.Status);
+        Assert.Equal("refit", grpcStatus.Report.Action);
 
-        Assert.True(await Files.EventuallyAsync(() => Task.FromResult(_hooks.Any(h => h.Contains("\"out-of-tune\"", StringComparison.Ordinal))), TimeSpan.FromSeconds(10)));
-        using var hook = JsonDocument.Parse(_hooks.First(h => h.Contains("\"out-of-tune\"", StringComparison.Ordinal)));
+        Assert.True(await Files.EventuallyAsync(() => Task.FromResult(_hooks.Any(h => h.Contains("\"refit-due\"", StringComparison.Ordinal))), TimeSpan.FromSeconds(10)));
+        using var hook = JsonDocument.Parse(_hooks.First(h => h.Contains("\"refit-due\"", StringComparison.Ordinal)));
         Assert.Equal("pima", hook.RootElement.GetProperty("model").GetString());
+        Assert.Equal("refit", hook.RootElement.GetProperty("action").GetString());
         Assert.NotEmpty(hook.RootElement.GetProperty("reasons").EnumerateArray());
     }
 

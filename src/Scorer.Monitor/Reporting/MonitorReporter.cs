@@ -85,8 +85,8 @@ public sealed class MonitorReporter(ModelRegistry registry, IScorerStore store, 
 
         if (changed)
         {
-            logger.LogInformation("Status of {Model} {Version} is now {Status}: {Reasons}", version.Model, version.Version, status.Name,
-                string.Join(" ", status.Reasons));
+            logger.LogInformation("Status of {Model} {Version} is now {Status} (action {Action}): {Reasons}", version.Model, version.Version, status.Name,
+                status.ActionName, string.Join(" ", status.Reasons));
             StatusChanged?.Invoke(version.Model, version.Version, status);
         }
     }

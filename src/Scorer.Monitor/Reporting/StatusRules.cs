@@ -3,23 +3,49 @@ using Scorer.Monitor.Statistics;
 
 namespace Scorer.Monitor.Reporting;
 
-/// <summary>Where a model version stands: three states of the service's own naming.</summary>
+/// <summary>
+/// Where a model version stands, in the four words used everywhere: the report's <c>status</c>, the
+/// <c>scorer_monitor_status</c> gauge (the numeric value), the alerts, the webhook, the event streams, the log and the page.
+/// </summary>
 public enum MonitorStatus
 {
-    /// <summary>"in-tune": nothing the rules look at is amiss (or too little is known to say otherwise).</summary>
-    InTune = 0,
+    /// <summary>"fine": nothing the rules look at is amiss (or too little is known to say otherwise).</summary>
+    Fine = 0,
 
-    /// <summary>"drifting": something moved (a chart signalled, a moderate shift, an interval away from 1): watch it.</summary>
-    Drifting = 1,
+    /// <summary>"watch": something moved (a chart signalled, a moderate shift, an interval away from 1), within the tolerances.</summary>
+    Watch = 1,
 
-    /// <summary>"out-of-tune": calibration or discrimination broke a rule beyond its tolerance, or the inputs moved a lot.</summary>
-    OutOfTune = 2,
+    /// <summary>"recalibrate": calibration broke a rule beyond its tolerance while the ranking held.</summary>
+    Recalibrate = 2,
+
+    /// <summary>"refit-due": discrimination fell below its floor or the inputs moved a lot: recalibrating would not do.</summary>
+    RefitDue = 3,
 }
 
-/// <summary>The status with its reasons (sentences a person reads) and what to do.</summary>
+/// <summary>What to do about a status, for machines: one value per status.</summary>
+public enum MonitorAction
+{
+    /// <summary>"none".</summary>
+    None = 0,
+
+    /// <summary>"watch": look again; nothing to change yet.</summary>
+    Watch = 1,
+
+    /// <summary>"recalibrate": request a recalibrated candidate and compare it in shadow.</summary>
+    Recalibrate = 2,
+
+    /// <summary>"refit": export the labelled rows and fit again.</summary>
+    Refit = 3,
+}
+
+/// <summary>The status with its reasons (sentences a person reads) and what to do, as a value and as a sentence.</summary>
 public sealed record StatusJudgement(MonitorStatus Status, IReadOnlyList<string> Reasons, string Advice)
 {
     public string Name => StatusRules.Name(Status);
+
+    public MonitorAction Action => StatusRules.ActionOf(Status);
+
+    public string ActionName => StatusRules.Name(Action);
 }
 
 /// <summary>
@@ -28,11 +54,25 @@ public sealed record StatusJudgement(MonitorStatus Status, IReadOnlyList<string>
 /// </summary>
 public static class StatusRules
 {
-    public static string Name(MonitorStatus status) => status switch
+    /// <summary>Every status name, by its numeric code (the gauge's value).</summary>
+    public static IReadOnlyList<string> Names { get; } = ["fine", "watch", "recalibrate", "refit-due"];
+
+    public static string Name(MonitorStatus status) => Names[(int)status];
+
+    public static string Name(MonitorAction action) => action switch
     {
-        MonitorStatus.InTune => "in-tune",
-        MonitorStatus.Drifting => "drifting",
-        _ => "out-of-tune",
+        MonitorAction.None => "none",
+        MonitorAction.Watch => "watch",
+        MonitorAction.Recalibrate => "recalibrate",
+        _ => "refit",
+    };
+
+    public static MonitorAction ActionOf(MonitorStatus status) => status switch
+    {
+        MonitorStatus.Fine => MonitorAction.None,
+        MonitorStatus.Watch => MonitorAction.Watch,
+        MonitorStatus.Recalibrate => MonitorAction.Recalibrate,
+        _ => MonitorAction.Refit,
     };
 
     /// <summary>Judges a version from its judged window's calibration report, drift and charts.</summary>
@@ -141,25 +181,25 @@ public static class StatusRules
         string advice;
         if (discriminationFell || inputsMoved)
         {
-            status = MonitorStatus.OutOfTune;
+            status = MonitorStatus.RefitDue;
             advice = "Refit due: " + (discriminationFell ? "discrimination fell" : "the inputs moved away from the training data")
                 + "; recalibrating would not restore the ranking. Export the labelled rows and fit again.";
         }
         else if (calibrationBroken)
         {
-            status = MonitorStatus.OutOfTune;
+            status = MonitorStatus.Recalibrate;
             advice = report.Auc is { } auc
                 ? $"Recalibration may suffice: discrimination holds (AUC {F(auc.Estimate)}) but calibration does not. Request a recalibrated candidate and compare it in shadow."
                 : "Recalibration may suffice: calibration does not hold. Request a recalibrated candidate and compare it in shadow.";
         }
         else if (watch)
         {
-            status = MonitorStatus.Drifting;
+            status = MonitorStatus.Watch;
             advice = "Watch: something moved, not yet beyond the rules' tolerances.";
         }
         else
         {
-            status = MonitorStatus.InTune;
+            status = MonitorStatus.Fine;
             advice = "No action.";
             if (judgeable)
             {

@@ -10,6 +10,7 @@ public sealed record StatusChangeNotice(
     [property: JsonPropertyName("model")] string Model,
     [property: JsonPropertyName("version")] string Version,
     [property: JsonPropertyName("status")] string Status,
+    [property: JsonPropertyName("action")] string Action,
     [property: JsonPropertyName("reasons")] IReadOnlyList<string> Reasons,
     [property: JsonPropertyName("advice")] string Advice,
     [property: JsonPropertyName("at")] DateTimeOffset At);
@@ -40,7 +41,7 @@ public sealed class StatusWebhook : IAsyncDisposable
         if (_target is not null)
         {
             reporter.StatusChanged += (model, version, judgement) =>
-                _queue.Writer.TryWrite(new StatusChangeNotice(model, version, judgement.Name, judgement.Reasons, judgement.Advice, time.GetUtcNow()));
+                _queue.Writer.TryWrite(new StatusChangeNotice(model, version, judgement.Name, judgement.ActionName, judgement.Reasons, judgement.Advice, time.GetUtcNow()));
         }
     }
 

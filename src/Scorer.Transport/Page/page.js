@@ -133,21 +133,19 @@
 
   // ---------------------------------------------------------------- words, numbers, times
 
-  // The service's status names, in the page's words, each with a shape and a tint.
-  function statusWords(status, advice) {
-    if (status === 'in-tune') return { word: 'fine', cls: 'fine' };
-    if (status === 'drifting') return { word: 'watch', cls: 'watch' };
-    if (status === 'out-of-tune') {
-      return (advice || '').startsWith('Refit due') ? { word: 'refit due', cls: 'refit' } : { word: 'recalibrate', cls: 'recal' };
-    }
-    return { word: 'no report yet', cls: 'none' };
-  }
+  // The service's four status names (docs/monitoring.md), each with a word, a shape and a tint.
+  const STATUS_WORDS = {
+    fine: { word: 'fine', cls: 'fine' },
+    watch: { word: 'watch', cls: 'watch' },
+    recalibrate: { word: 'recalibrate', cls: 'recal' },
+    'refit-due': { word: 'refit due', cls: 'refit' },
+  };
+  const statusWords = (status) => STATUS_WORDS[status] || { word: 'no report yet', cls: 'none' };
 
-  function chip(status, advice, big) {
-    const w = statusWords(status, advice);
+  function chip(status, big) {
+    const w = statusWords(status);
     const span = h('span', { class: `chip ${w.cls}${big ? ' big' : ''}`, 'data-status': status || '' },
       h('span', { class: 'mark', 'aria-hidden': 'true' }), w.word);
-    if (status) span.title = `service status: ${status}`;
     return span;
   }
 
@@ -536,7 +534,7 @@
     const then = c.reasons.join('\n') !== (v.reasons || []).join('\n') && c.reasons.length > 0
       ? h('details', { 'data-key': `details|${key}` }, h('summary', { 'data-key': `summary|${key}` }, 'reasons at the change'),
         h('ul', {}, c.reasons.map((r) => h('li', {}, r)))) : null;
-    return [statusWords(c.to, c.advice).word, c.from ? ` (was ${statusWords(c.from).word})` : ' (first report since start)', h('br'), when(c.at), then];
+    return [statusWords(c.to).word, c.from ? ` (was ${statusWords(c.from).word})` : ' (first report since start)', h('br'), when(c.at), then];
   }
 
   function modelCard(m) {
@@ -548,7 +546,7 @@
       body.push(h('tr', { 'data-version': v.version, 'data-stage': v.stage },
         h('th', { scope: 'row' }, h('span', { class: 'version-name' }, v.version)),
         h('td', {}, h('span', { class: `stage ${v.stage}` }, v.stage)),
-        h('td', {}, chip(v.status, v.advice), h('span', { class: 'service-name' }, v.status || '')),
+        h('td', {}, chip(v.status)),
         h('td', { class: 'num' }, count(v.scoredLastHour), h('br'), h('span', { class: 'note' }, `${count(v.scored24h)} in 24 h`)),
         h('td', { class: 'num', 'data-labelled': String(v.labelled ?? '') }, count(v.labelled), h('br'), h('span', { class: 'note' }, `${count(v.immature)} waiting`)),
         h('td', { class: 'num', 'data-events': String(v.events ?? '') }, count(v.events)),
@@ -604,8 +602,8 @@
 
     function announce(previous, report) {
       const box = $('change');
-      const from = statusWords(previous.status, previous.advice).word;
-      const to = statusWords(report.status, report.advice).word;
+      const from = statusWords(previous.status).word;
+      const to = statusWords(report.status).word;
       box.hidden = false;
       box.dataset.to = report.status;
       box.replaceChildren(h('strong', {}, `Status changed: ${from} → ${to}`), ` at ${clock(new Date())}. `, (report.reasons || []).join(' '));
@@ -669,7 +667,7 @@
 
     function renderReport() {
       const r = state.report;
-      $('status-slot').replaceChildren(chip(r.status, r.advice, true), h('span', { class: 'service-name' }, `${r.status} · ${r.version} (${r.stage})`));
+      $('status-slot').replaceChildren(chip(r.status, true), h('span', { class: 'service-name' }, `${r.version} (${r.stage})`));
       const figure = (label, value, small) => h('div', {}, h('dt', {}, label), h('dd', {}, value, small ? h('small', {}, small) : null));
       const level = `${Math.round((r.level || 0.95) * 100)}%`;
       $('figures').replaceChildren(

@@ -17,7 +17,7 @@ using Scorer.Transport.V1;
 namespace Scorer.Transport.Rest;
 
 /// <summary>A version's last change of status as this process saw it: when, from what (null for its first judgement since start), to what, and why.</summary>
-public sealed record StatusChange(DateTimeOffset At, string? From, string To, IReadOnlyList<string> Reasons, string Advice);
+public sealed record StatusChange(DateTimeOffset At, string? From, string To, string Action, IReadOnlyList<string> Reasons, string Advice);
 
 /// <summary>
 /// The JSON the monitor page reads beside the monitor API (docs/page.md), role <c>score</c> like every read:
@@ -93,7 +93,7 @@ public sealed class PageApi
         lock (_lock)
         {
             var from = _changes.TryGetValue((model, version), out var last) ? last.To : null;
-            _changes[(model, version)] = new StatusChange(_time.GetUtcNow(), from, judgement.Name, judgement.Reasons, judgement.Advice);
+            _changes[(model, version)] = new StatusChange(_time.GetUtcNow(), from, judgement.Name, judgement.ActionName, judgement.Reasons, judgement.Advice);
         }
 
         Updated?.Invoke(true);
@@ -175,6 +175,7 @@ public sealed class PageApi
                         ?? await _reporter.ReportAsync(version, options.JudgedWindow, cancellationToken).ConfigureAwait(false);
                     w.WriteString("window", report.Window);
                     w.WriteString("status", report.Status.Name);
+                    w.WriteString("action", report.Status.ActionName);
                     Strings(w, "reasons", report.Status.Reasons);
                     w.WriteString("advice", report.Status.Advice);
                     w.WriteNumber("labelled", report.Calibration.Labelled);
@@ -191,6 +192,7 @@ public sealed class PageApi
                     w.WriteString("at", change.At);
                     w.WriteString("from", change.From);
                     w.WriteString("to", change.To);
+                    w.WriteString("action", change.Action);
                     Strings(w, "reasons", change.Reasons);
                     w.WriteString("advice", change.Advice);
                     w.WriteEndObject();

@@ -176,6 +176,7 @@ public sealed class MonitorService(ModelRegistry registry, MonitorReporter repor
             Immature = s.Immature,
             Provisional = s.Provisional,
             Status = s.Status.Name,
+            Action = s.Status.ActionName,
             Reasons = { s.Status.Reasons },
             Advice = s.Status.Advice,
             Level = s.Level,

@@ -1,0 +1,186 @@
+using Scorer.Monitor.Reporting;
+using Scorer.Monitor.Statistics;
+
+namespace Scorer.Monitor.Tests.Reporting;
+
+/// <summary>
+/// Every rule of the status table (docs/monitoring.md, "The status") on its own and at its boundary: a statistic just
+/// inside a threshold leaves the status alone, one just beyond it sets it. The thresholds are the documented defaults
+/// (the PSI bands 0.1 and 0.25 are common practice). The statistics are given directly, so each test isolates one rule.
+/// </summary>
+public sealed class StatusRulesTests
+{
+    private const string Model = "pump-bearing-failure";
+    private static readonly MonitorOptions Defaults = new();
+    private static readonly DateTimeOffset WindowStart = new(2026, 11, 1, 0, 0, 0, TimeSpan.Zero);
+
+    /// <summary>A window with enough outcomes, every statistic in order: AUC well above the floor, slope and O/E at 1.</summary>
+    private static CalibrationReport Report(int events = 200, int labelled = 2000, Interval? oe = null, FittedValue? slope = null, AucEstimate? auc = null) =>
+        new(labelled, events, events, oe ?? new Interval(1, 0.9, 1.1), new FittedValue(0, 0.05, -0.1, 0.1), slope ?? new FittedValue(1, 0.05, 0.9, 1.1), 0,
+            null, null, 0.08, new MurphyDecomposition(0.01, 0.02, 0.09, 0), 0.3, 0.01, [], auc ?? new AucEstimate(0.8, 0.02, 0.76, 0.84));
+
+    private static DriftView Drift(double? score = 0.01, long rows = 5000, double feature = 0.01) =>
+        new(score, new Dictionary<string, double> { ["vibration_rms"] = feature }, rows);
+
+    private static ChartsView Charts(bool ewmaOut = false, params DateTimeOffset[] upSignals) =>
+        new(new CusumView(2, 0.5, 4.2, 100_000, 300, 2000, [.. upSignals.Select((t, i) => new ChartSignal(i + 1, t, 4.3, Guid.Empty))]),
+            new CusumView(0.5, 0.1, 4.1, 100_000, 300, 2000, []), new EwmaView(ewmaOut ? 0.05 : 0.001, 0.02, 0.01, ewmaOut, 2000), 2000, WindowStart.AddDays(29), null);
+
+    private static StatusJudgement Judge(CalibrationReport report, DriftView? drift = null, ChartsView? charts = null, MonitorOptions? options = null) =>
+        StatusRules.Judge(Model, "30d", report, drift ?? Drift(), charts ?? Charts(), WindowStart, options ?? Defaults);
+
+    [Fact]
+    public void Statistics_in_order_are_fine_with_no_action_and_say_what_holds()
+    {
+        var j = Judge(Report());
+        Assert.Equal(MonitorStatus.Fine, j.Status);
+        Assert.Equal("fine", j.Name);
+        Assert.Equal("none", j.ActionName);
+        Assert.Equal("No action.", j.Advice);
+        Assert.Contains(j.Reasons, r => r.StartsWith("Calibration and discrimination hold over 30d (2000 labelled predictions, 200 events)", StringComparison.Ordinal));
+    }
+
+    [Fact]
+    public void The_four_statuses_have_codes_0_to_3_and_one_action_each()
+    {
+        Assert.Equal(["fine", "watch", "recalibrate", "refit-due"], StatusRules.Names);
+        Assert.Equal(
+            [MonitorAction.None, MonitorAction.Watch, MonitorAction.Recalibrate, MonitorAction.Refit],
+            Enum.GetValues<MonitorStatus>().Select(StatusRules.ActionOf));
+        Assert.Equal(["none", "watch", "recalibrate", "refit"], Enum.GetValues<MonitorAction>().Select(StatusRules.Name));
+        Assert.Equal([0, 1, 2, 3], Enum.GetValues<MonitorStatus>().Select(s => (int)s));
+    }
+
+    [Fact]
+    public void Below_MinEvents_events_or_non_events_nothing_is_judged_and_the_reason_says_how_many_are_needed()
+    {
+        // Even a fallen AUC and a broken slope are not judged on 49 events.
+        var j = Judge(Report(events: 49, auc: new AucEstimate(0.3, 0.05, 0.2, 0.4), slope: new FittedValue(0.3, 0.05, 0.2, 0.4)));
+        Assert.Equal(MonitorStatus.Fine, j.Status);
+        Assert.Contains(j.Reasons, r => r.Contains("49 events and 1951 non-events; at least 50 of each", StringComparison.Ordinal));
+
+        // 49 non-events: the same.
+        Assert.Equal(MonitorStatus.Fine, Judge(Report(events: 1951, labelled: 2000, auc: new AucEstimate(0.3, 0.05, 0.2, 0.4))).Status);
+
+        // 50 of each: judged.
+        Assert.Equal(MonitorStatus.RefitDue, Judge(Report(events: 50, labelled: 100, auc: new AucEstimate(0.3, 0.05, 0.2, 0.4))).Status);
+    }
+
+    [Fact]
+    public void An_AUC_interval_wholly_below_the_floor_is_refit_due_and_one_that_reaches_it_is_not()
+    {
+        var j = Judge(Report(auc: new AucEstimate(0.55, 0.02, 0.5, 0.5999)));
+        Assert.Equal(MonitorStatus.RefitDue, j.Status);
+        Assert.Equal(MonitorAction.Refit, j.Action);
+        Assert.StartsWith("Refit due: discrimination fell", j.Advice, StringComparison.Ordinal);
+        Assert.Contains(j.Reasons, r => r.StartsWith("AUC 0.55 (95% interval 0.5–0.6) lies below the floor 0.6", StringComparison.Ordinal));
+
+        Assert.Equal(MonitorStatus.Fine, Judge(Report(auc: new AucEstimate(0.55, 0.02, 0.5, 0.6))).Status);
+    }
+
+    [Fact]
+    public void A_model_of_its_own_floor_is_judged_against_that_floor()
+    {
+        var options = Defaults with { AucFloors = new Dictionary<string, double>(StringComparer.Ordinal) { [Model] = 0.8 } };
+        Assert.Equal(MonitorStatus.RefitDue, Judge(Report(auc: new AucEstimate(0.75, 0.02, 0.7, 0.79)), options: options).Status);
+        Assert.Equal(MonitorStatus.Fine, Judge(Report(auc: new AucEstimate(0.75, 0.02, 0.7, 0.79))).Status);
+    }
+
+    [Theory]
+    [InlineData(0.3, 0.5, 0.79, "predictions are too extreme.")]
+    [InlineData(1.6, 1.21, 1.9, "predictions are too timid.")]
+    public void A_slope_interval_wholly_outside_the_tolerance_is_recalibrate_naming_the_direction(double estimate, double lower, double upper, string direction)
+    {
+        var j = Judge(Report(slope: new FittedValue(estimate, 0.1, lower, upper)));
+        Assert.Equal(MonitorStatus.Recalibrate, j.Status);
+        Assert.Equal("recalibrate", j.ActionName);
+        Assert.StartsWith("Recalibration may suffice: discrimination holds (AUC 0.8)", j.Advice, StringComparison.Ordinal);
+        Assert.Contains(j.Reasons, r => r.StartsWith("Calibration slope", StringComparison.Ordinal) && r.EndsWith(direction, StringComparison.Ordinal));
+    }
+
+    [Fact]
+    public void A_slope_interval_that_touches_the_tolerance_or_only_excludes_1_is_watch()
+    {
+        // Upper end exactly 0.8 = 1 − 0.2: not wholly outside; it excludes 1.
+        var j = Judge(Report(slope: new FittedValue(0.7, 0.05, 0.6, 0.8)));
+        Assert.Equal(MonitorStatus.Watch, j.Status);
+        Assert.Contains(j.Reasons, r => r.Contains("excludes 1, within the tolerance ±0.2", StringComparison.Ordinal));
+        Assert.Equal(MonitorStatus.Watch, Judge(Report(slope: new FittedValue(1.05, 0.02, 1.01, 1.09))).Status);
+        Assert.Equal(MonitorStatus.Fine, Judge(Report(slope: new FittedValue(1.05, 0.02, 1.0, 1.09))).Status); // reaches 1
+    }
+
+    [Fact]
+    public void An_observed_expected_interval_wholly_outside_the_tolerance_is_recalibrate_and_within_it_watch()
+    {
+        var more = Judge(Report(oe: new Interval(1.4, 1.25, 1.55)));
+        Assert.Equal(MonitorStatus.Recalibrate, more.Status);
+        Assert.Contains(more.Reasons, r => r.EndsWith("events are more frequent than predicted.", StringComparison.Ordinal));
+        var fewer = Judge(Report(oe: new Interval(0.6, 0.5, 0.79)));
+        Assert.Equal(MonitorStatus.Recalibrate, fewer.Status);
+        Assert.Contains(fewer.Reasons, r => r.EndsWith("events are rarer than predicted.", StringComparison.Ordinal));
+
+        Assert.Equal(MonitorStatus.Watch, Judge(Report(oe: new Interval(1.1, 1.01, 1.2))).Status); // lower end 1.2 would be the tolerance
+        Assert.Equal(MonitorStatus.Watch, Judge(Report(oe: new Interval(1.3, 1.2, 1.4))).Status); // touches 1.2: not wholly outside
+    }
+
+    [Fact]
+    public void A_CUSUM_signal_inside_the_window_is_watch_and_one_before_it_is_not()
+    {
+        var j = Judge(Report(), charts: Charts(false, WindowStart.AddDays(3), WindowStart.AddDays(4)));
+        Assert.Equal(MonitorStatus.Watch, j.Status);
+        Assert.Contains(j.Reasons, r => r.StartsWith("The upward CUSUM (odds ratio 2) signalled 2 times over 30d", StringComparison.Ordinal));
+
+        Assert.Equal(MonitorStatus.Fine, Judge(Report(), charts: Charts(false, WindowStart.AddSeconds(-1))).Status);
+        Assert.Equal(MonitorStatus.Watch, Judge(Report(), charts: Charts(false, WindowStart)).Status); // the window's first instant counts
+    }
+
+    [Fact]
+    public void An_EWMA_beyond_its_limit_is_watch()
+    {
+        var j = Judge(Report(), charts: Charts(ewmaOut: true));
+        Assert.Equal(MonitorStatus.Watch, j.Status);
+        Assert.Contains(j.Reasons, r => r.StartsWith("The EWMA of observed minus expected is 0.05, beyond its control limit ±0.02", StringComparison.Ordinal));
+    }
+
+    [Fact]
+    public void PSI_above_the_watch_band_is_watch_above_the_large_band_refit_due_and_exactly_at_a_band_not_beyond_it()
+    {
+        Assert.Equal(MonitorStatus.Fine, Judge(Report(), Drift(score: 0.1)).Status);
+        Assert.Equal(MonitorStatus.Watch, Judge(Report(), Drift(score: 0.1000001)).Status);
+        Assert.Equal(MonitorStatus.Watch, Judge(Report(), Drift(score: 0.25)).Status);
+        var large = Judge(Report(), Drift(feature: 0.2500001));
+        Assert.Equal(MonitorStatus.RefitDue, large.Status);
+        Assert.StartsWith("Refit due: the inputs moved away from the training data", large.Advice, StringComparison.Ordinal);
+        Assert.Contains(large.Reasons, r => r.StartsWith("PSI of feature vibration_rms is 0.25 over 30d, above 0.25: a large shift", StringComparison.Ordinal));
+        Assert.Contains(Judge(Report(), Drift(score: 0.3)).Reasons, r => r.StartsWith("PSI of the linear predictor is 0.3", StringComparison.Ordinal));
+    }
+
+    [Fact]
+    public void PSI_is_not_judged_on_fewer_than_MinPsiRows_rows()
+    {
+        Assert.Equal(MonitorStatus.Fine, Judge(Report(), Drift(score: 0.9, rows: 499)).Status);
+        Assert.Equal(MonitorStatus.RefitDue, Judge(Report(), Drift(score: 0.9, rows: 500)).Status);
+    }
+
+    [Fact]
+    public void Refit_due_wins_over_recalibrate_which_wins_over_watch_and_every_reason_is_kept()
+    {
+        var broken = new FittedValue(0.5, 0.05, 0.4, 0.6);
+        var all = Judge(Report(slope: broken, auc: new AucEstimate(0.55, 0.02, 0.5, 0.58)), Drift(score: 0.15), Charts(true));
+        Assert.Equal(MonitorStatus.RefitDue, all.Status);
+        Assert.Equal(4, all.Reasons.Count); // AUC, slope, EWMA, PSI
+
+        var recalibrate = Judge(Report(slope: broken), Drift(score: 0.15), Charts(true));
+        Assert.Equal(MonitorStatus.Recalibrate, recalibrate.Status);
+        Assert.Equal(3, recalibrate.Reasons.Count);
+    }
+
+    [Fact]
+    public void Without_an_AUC_the_recalibration_advice_does_not_quote_one()
+    {
+        var report = Report(slope: new FittedValue(0.5, 0.05, 0.4, 0.6)) with { Auc = null };
+        var j = Judge(report);
+        Assert.Equal(MonitorStatus.Recalibrate, j.Status);
+        Assert.Equal("Recalibration may suffice: calibration does not hold. Request a recalibrated candidate and compare it in shadow.", j.Advice);
+    }
+}
