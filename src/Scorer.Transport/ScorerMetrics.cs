@@ -30,9 +30,9 @@ public sealed class ScorerMetrics
         var reloads = factory.CreateCounter("scorer_registry_snapshots_total", "Registry snapshots published (loads, reloads, stage changes).");
         var queue = factory.CreateGauge("scorer_prediction_log_queue_rows", "Rows waiting for the store.");
         var capacity = factory.CreateGauge("scorer_prediction_log_capacity_rows", "Rows the prediction log queue holds at most.");
-        var written = factory.CreateGauge("scorer_prediction_log_written_rows", "Rows written to the store since start.");
-        var dropped = factory.CreateGauge("scorer_prediction_log_dropped_rows", "Rows dropped because the queue was full, since start.");
-        var failed = factory.CreateGauge("scorer_prediction_log_failed_writes", "Batch writes that failed and were retried, since start.");
+        var written = factory.CreateCounter("scorer_prediction_log_written_rows_total", "Rows written to the store, since start.");
+        var dropped = factory.CreateCounter("scorer_prediction_log_dropped_rows_total", "Rows dropped because the queue was full, since start.");
+        var failed = factory.CreateCounter("scorer_prediction_log_failed_writes_total", "Batch writes that failed and were retried, since start.");
         var batch = factory.CreateGauge("scorer_prediction_log_batch_seconds", "Duration of the last batch write.");
         var setAside = factory.CreateCounter("scorer_prediction_log_set_aside_rows_total",
             "Rows the store refused for what they hold, set aside in Scorer:Log:SetAsideFolder instead of written, since start.");
@@ -40,7 +40,7 @@ public sealed class ScorerMetrics
             "How long rows have waited with no successful write (0 when the queue is empty); beyond Scorer:Log:StallAfter the log is not draining.");
         var streams = factory.CreateGauge("scorer_event_streams_open", "Event streams open (monitor and overview events); at most Scorer:Limits:MaxEventSubscribers.");
         var streamsRefused = factory.CreateCounter("scorer_event_streams_refused_total", "Event streams refused because Scorer:Limits:MaxEventSubscribers were open, since start.");
-        var shadowDropped = factory.CreateGauge("scorer_shadow_dropped_batches", "Shadow scoring work dropped because it fell behind, since start.");
+        var shadowDropped = factory.CreateCounter("scorer_shadow_dropped_batches_total", "Shadow scoring work dropped because it fell behind, since start.");
         var storeFull = factory.CreateGauge("scorer_store_full", "1 while the store refuses writes for lack of space (SQLite: a full disk, or Scorer:Store:MaxSizeMegabytes reached), else 0.");
         var storeFullWrites = factory.CreateCounter("scorer_store_full_writes_total", "Writes the store refused for lack of space, since start.");
         registry.Changed += _ => reloads.Inc();
@@ -59,7 +59,8 @@ public sealed class ScorerMetrics
             "model", "version", "window", "series");
         var cusum = factory.CreateGauge("scorer_monitor_cusum", "Risk-adjusted Bernoulli CUSUM value, by chart (up, down).", "model", "version", "chart");
         var cusumThreshold = factory.CreateGauge("scorer_monitor_cusum_threshold", "CUSUM threshold, by chart.", "model", "version", "chart");
-        var cusumSignals = factory.CreateGauge("scorer_monitor_cusum_signals", "CUSUM signals since start, by chart.", "model", "version", "chart");
+        var cusumSignals = factory.CreateCounter("scorer_monitor_cusum_signals_total",
+            "CUSUM signals of the chart, by chart, since the chart started (its state, and so this count, outlives restarts).", "model", "version", "chart");
         var status = factory.CreateGauge("scorer_monitor_status", "Status of the version: 0 fine, 1 watch, 2 recalibrate, 3 refit-due.", "model", "version");
         var chartsHolder = factory.CreateGauge("scorer_monitor_charts_holder",
             "1 when this process runs the CUSUM charts (holds the store's charts lease), 0 when another process sharing the store does.");
@@ -96,7 +97,7 @@ public sealed class ScorerMetrics
                     {
                         cusum.WithLabels(s.Version.Model, s.Version.Version, chart).Set(view.Value);
                         cusumThreshold.WithLabels(s.Version.Model, s.Version.Version, chart).Set(view.Threshold);
-                        cusumSignals.WithLabels(s.Version.Model, s.Version.Version, chart).Set(view.Signals.Count);
+                        cusumSignals.WithLabels(s.Version.Model, s.Version.Version, chart).IncTo(view.Signals.Count);
                     }
                 }
             }
@@ -121,13 +122,13 @@ public sealed class ScorerMetrics
             fileReads.IncTo(registry.FileReads);
             queue.Set(log.Depth);
             capacity.Set(log.Capacity);
-            written.Set(log.Written);
-            dropped.Set(log.Dropped);
-            failed.Set(log.FailedWrites);
+            written.IncTo(log.Written);
+            dropped.IncTo(log.Dropped);
+            failed.IncTo(log.FailedWrites);
             batch.Set(log.LastBatchLatency.TotalSeconds);
             setAside.IncTo(log.SetAside);
             waiting.Set(log.Waiting.TotalSeconds);
-            shadowDropped.Set(shadows.Dropped);
+            shadowDropped.IncTo(shadows.Dropped);
             streams.Set(subscribers.Open);
             streamsRefused.IncTo(subscribers.Refused);
             if (store is IStoreSpaceSignal space)

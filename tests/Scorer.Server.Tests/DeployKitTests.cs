@@ -77,11 +77,11 @@ public sealed class DeployKitTests : IDisposable
         var expressions = (await AlertsAsync()).Values.Select(e => Regex.Replace(e, @"\s+", " ")).ToList();
         Assert.Contains(expressions, e => e.Contains("scorer_monitor_status", StringComparison.Ordinal) && e.Contains("== 2", StringComparison.Ordinal)); // recalibrate
         Assert.Contains(expressions, e => e.Contains("scorer_monitor_status", StringComparison.Ordinal) && e.Contains("== 3", StringComparison.Ordinal)); // refit-due
-        Assert.Contains(expressions, e => e.Contains("increase(scorer_monitor_cusum_signals[", StringComparison.Ordinal));
+        Assert.Contains(expressions, e => e.Contains("increase(scorer_monitor_cusum_signals_total[", StringComparison.Ordinal));
         Assert.Contains(expressions, e => e.Contains("scorer_monitor_psi", StringComparison.Ordinal) && e.Contains("> 0.25", StringComparison.Ordinal));
         Assert.Contains(expressions, e => e.Contains("scorer_row_errors_total", StringComparison.Ordinal) && e.Contains("scorer_rows_scored_total", StringComparison.Ordinal));
         Assert.Contains(expressions, e => e.Contains("histogram_quantile(0.99", StringComparison.Ordinal) && e.Contains("scorer_call_duration_seconds_bucket", StringComparison.Ordinal));
-        Assert.Contains(expressions, e => e.Contains("increase(scorer_prediction_log_dropped_rows[", StringComparison.Ordinal));
+        Assert.Contains(expressions, e => e.Contains("increase(scorer_prediction_log_dropped_rows_total[", StringComparison.Ordinal));
     }
 
     private static async Task<Dictionary<string, string>> AlertsAsync()
