@@ -14,7 +14,7 @@ echo "data: $rows rows, $(du -h "$dir/data.csv" | cut -f1)"
 numeric=$(seq -s, 0 13 | sed 's/\([0-9]\+\)/x\1/g')
 start=$(date +%s.%N)
 dotnet src/Scorer.Cli/bin/Release/net10.0/scorer.dll fit --data "$dir/data.csv" --outcome y --numeric "$numeric" \
-  --categorical grade --transform x0=log,x1=log --interaction x2:x3 --model bench --version 1 --output "$dir/model.json" --quiet \
+  --categorical grade --transform x0=log,x1=log --interaction x2:x3 --model bench --new-version 1 --output "$dir/model.json" --quiet \
   > "$dir/scorer.txt"; head -1 "$dir/scorer.txt"; tail -3 "$dir/scorer.txt"
 end=$(date +%s.%N)
 echo "scorer fit, end to end (process start to exit): $(echo "$end - $start" | bc) s"

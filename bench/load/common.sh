@@ -10,7 +10,7 @@ wait_for() { for _ in $(seq 100); do curl -sf "$1" >/dev/null 2>&1 && return 0; 
 run_server() { # log-enabled (true|false) [direct-rest (true|false), default true]
   rm -rf "$dir/models" "$dir/data"
   mkdir -p "$dir/models" && cp examples/pump-bearings/model.json "$dir/models/"
-  Scorer__Log__Enabled=$1 Scorer__DirectRestScoring=${2:-true} Scorer__LogLevel=Warning taskset -c 0 dotnet src/Scorer.Server/bin/Release/net10.0/Scorer.Server.dll \
+  Scorer__PredictionLog__Enabled=$1 Scorer__DirectRestScoring=${2:-true} Scorer__LogLevel=Warning taskset -c 0 dotnet src/Scorer.Server/bin/Release/net10.0/Scorer.Server.dll \
     --models "$dir/models" --store "$dir/data/scorer.db" --http 127.0.0.1:18080 --grpc 127.0.0.1:18081 > "$dir/server.log" 2>&1 &
   pids+=($!)
   wait_for http://127.0.0.1:18080/readyz

@@ -1,4 +1,6 @@
 using System.CommandLine;
+using System.CommandLine.Invocation;
+using System.Reflection;
 using Scorer.Cli.Commands;
 
 namespace Scorer.Cli;
@@ -18,7 +20,22 @@ public static class Program
         root.Subcommands.Add(Calibration(stdout, stderr));
         root.Subcommands.Add(Recalibrate(stdout, stderr));
         root.Subcommands.Add(DemoCommand.Create(stdout, stderr));
+        root.Options.OfType<VersionOption>().Single().Action = new PrintVersion(stdout);
         return root.Parse(args).Invoke(new InvocationConfiguration { Output = stdout, Error = stderr });
+    }
+
+    /// <summary>The tool's version (the repository's <c>Version</c>), without the build metadata.</summary>
+    public static string ToolVersion =>
+        typeof(Program).Assembly.GetCustomAttribute<AssemblyInformationalVersionAttribute>()?.InformationalVersion.Split('+')[0] ?? "unknown";
+
+    /// <summary><c>scorer --version</c>: this tool's version, whatever process hosts it.</summary>
+    private sealed class PrintVersion(TextWriter stdout) : SynchronousCommandLineAction
+    {
+        public override int Invoke(ParseResult parseResult)
+        {
+            stdout.WriteLine(ToolVersion);
+            return 0;
+        }
     }
 
     private static Command Check(TextWriter stdout, TextWriter stderr)
@@ -64,7 +81,7 @@ public static class Program
         var weights = new Option<string?>("--weights") { Description = "Column of prior weights." };
         var offset = new Option<string?>("--offset") { Description = "Column added to the linear predictor with coefficient 1." };
         var model = new Option<string?>("--model") { Description = "Model name (default with --like: the live model's)." };
-        var version = new Option<string>("--version") { Description = "Version of the new model file.", Required = true };
+        var version = new Option<string>("--new-version") { Description = "Version of the new model file.", Required = true };
         var output = new Option<string?>("--output", "-o") { Description = "Where to write the model file." };
         var spec = new Option<string?>("--spec") { Description = "A model file without coefficients giving the design (features and terms)." };
         var like = new Option<string?>("--like") { Description = "An existing model file whose design (features and terms) the refit reproduces." };
@@ -143,7 +160,7 @@ public static class Program
         var input = new Option<string?>("--input", "-i") { Description = "CSV of matured outcomes with the deployed linear predictor ('-' for standard input). Required." };
         var eta = new Option<string?>("--eta") { Description = "The column of the linear predictor the deployed version gave. Required." };
         var outcome = new Option<string?>("--outcome") { Description = "The column of outcomes: 0/1 or false/true. Required." };
-        var version = new Option<string?>("--version") { Description = "Version of the recalibrated model. Required." };
+        var version = new Option<string?>("--new-version") { Description = "Version of the recalibrated model. Required." };
         var kind = new Option<string?>("--kind") { Description = "auto (default: the closed test decides), in-the-large or intercept-and-slope." };
         var output = new Option<string?>("--output", "-o") { Description = "Where to write the recalibrated model file. Required." };
         var alpha = new Option<string?>("--alpha") { Description = "Significance level of the closed test (default 0.05)." };

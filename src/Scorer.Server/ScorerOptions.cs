@@ -50,7 +50,7 @@ public sealed class ScorerOptions
 
     public ScoringLimits Limits { get; set; } = new();
 
-    public PredictionLogOptions Log { get; set; } = new();
+    public PredictionLogOptions PredictionLog { get; set; } = new();
 
     /// <summary>The calibration monitor: windows, the status rules' thresholds, the charts (docs/monitoring.md).</summary>
     public Scorer.Monitor.Reporting.MonitorOptions Monitor { get; set; } = new();
@@ -92,9 +92,9 @@ public sealed class ScorerOptions
             problems.Add($"Scorer:MaxRequestBodyBytes is {MaxRequestBodyBytes}; give at least 1024");
         }
 
-        if (Log.Capacity < 1 || Log.MaxBatch < 1)
+        if (PredictionLog.Capacity < 1 || PredictionLog.MaxBatch < 1)
         {
-            problems.Add("Scorer:Log:Capacity and Scorer:Log:MaxBatch must be at least 1");
+            problems.Add("Scorer:PredictionLog:Capacity and Scorer:PredictionLog:MaxBatch must be at least 1");
         }
 
         for (var i = 0; i < Keys.Count; i++)
@@ -109,9 +109,9 @@ public sealed class ScorerOptions
                 problems.Add($"Scorer:Keys:{i} ({k.Name}): the key is shorter than 16 characters");
             }
 
-            foreach (var role in k.Roles.Where(r => r is not ("score" or "feedback" or "admin")))
+            foreach (var role in k.Roles.Where(r => r is not ("score" or "outcomes" or "admin")))
             {
-                problems.Add($"Scorer:Keys:{i} ({k.Name}): unknown role '{role}' (roles: score, feedback, admin)");
+                problems.Add($"Scorer:Keys:{i} ({k.Name}): unknown role '{role}' (roles: score, outcomes, admin)");
             }
         }
 

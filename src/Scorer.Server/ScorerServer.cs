@@ -97,7 +97,7 @@ public static class ScorerServer
         builder.Services.AddSingleton<ModelRegistry>();
         builder.Services.AddSingleton(sp => new RegistryWatcher(sp.GetRequiredService<ModelRegistry>(), sp.GetRequiredService<RegistryOptions>(),
             sp.GetRequiredService<TimeProvider>(), sp.GetRequiredService<ILogger<RegistryWatcher>>()) { RescanInterval = options.RescanInterval });
-        builder.Services.AddSingleton(sp => new PredictionLog(sp.GetRequiredService<IScorerStore>(), options.Log, sp.GetRequiredService<ILogger<PredictionLog>>(),
+        builder.Services.AddSingleton(sp => new PredictionLog(sp.GetRequiredService<IScorerStore>(), options.PredictionLog, sp.GetRequiredService<ILogger<PredictionLog>>(),
             sp.GetRequiredService<TimeProvider>()));
         builder.Services.AddSingleton<ShadowScorer>();
         builder.Services.AddSingleton<ScoringCore>();

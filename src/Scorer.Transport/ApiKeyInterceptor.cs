@@ -5,7 +5,7 @@ using Grpc.Core.Interceptors;
 
 namespace Scorer.Transport;
 
-/// <summary>An API key and the roles it carries (<c>score</c>, <c>feedback</c>, <c>admin</c>).</summary>
+/// <summary>An API key and the roles it carries (<c>score</c>, <c>outcomes</c>, <c>admin</c>).</summary>
 public sealed record ApiKey
 {
     /// <summary>Who the key belongs to: recorded as the actor of stage changes.</summary>
@@ -29,8 +29,8 @@ public sealed class ApiKeyInterceptor(IReadOnlyList<ApiKey> keys) : Interceptor
     {
         ["/scorer.v1.Models/SetStage"] = "admin",
         ["/scorer.v1.Models/Rollback"] = "admin",
-        ["/scorer.v1.Outcomes/RecordOutcomes"] = "feedback",
-        ["/scorer.v1.Outcomes/RecordOutcomesStream"] = "feedback",
+        ["/scorer.v1.Outcomes/RecordOutcomes"] = "outcomes",
+        ["/scorer.v1.Outcomes/RecordOutcomesStream"] = "outcomes",
         ["/scorer.v1.Outcomes/ExportLabelled"] = "admin",
         ["/scorer.v1.Monitor/Recalibrate"] = "admin",
     };

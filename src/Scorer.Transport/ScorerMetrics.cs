@@ -35,9 +35,9 @@ public sealed class ScorerMetrics
         var failed = factory.CreateCounter("scorer_prediction_log_failed_writes_total", "Batch writes that failed and were retried, since start.");
         var batch = factory.CreateGauge("scorer_prediction_log_batch_seconds", "Duration of the last batch write.");
         var setAside = factory.CreateCounter("scorer_prediction_log_set_aside_rows_total",
-            "Rows the store refused for what they hold, set aside in Scorer:Log:SetAsideFolder instead of written, since start.");
+            "Rows the store refused for what they hold, set aside in Scorer:PredictionLog:SetAsideFolder instead of written, since start.");
         var waiting = factory.CreateGauge("scorer_prediction_log_waiting_seconds",
-            "How long rows have waited with no successful write (0 when the queue is empty); beyond Scorer:Log:StallAfter the log is not draining.");
+            "How long rows have waited with no successful write (0 when the queue is empty); beyond Scorer:PredictionLog:StallAfter the log is not draining.");
         var streams = factory.CreateGauge("scorer_event_streams_open", "Event streams open (monitor and overview events); at most Scorer:Limits:MaxEventSubscribers.");
         var streamsRefused = factory.CreateCounter("scorer_event_streams_refused_total", "Event streams refused because Scorer:Limits:MaxEventSubscribers were open, since start.");
         var shadowDropped = factory.CreateCounter("scorer_shadow_dropped_batches_total", "Shadow scoring work dropped because it fell behind, since start.");

@@ -33,7 +33,7 @@ public sealed class CheckCommandTests : IDisposable
     }
 
     [Fact]
-    public void Json_output_lists_each_problem_with_field_and_reason()
+    public void Json_output_lists_each_problem_with_its_path_and_reason()
     {
         var text = File.ReadAllText(CliRunner.Reference("infert-logit.model.json")).Replace("\"version\": \"r-logit\"", "\"version\": \"\"", StringComparison.Ordinal);
         var (exit, stdout, _) = _cli.Run("check", "--json", _cli.Write("v.json", text));
@@ -41,7 +41,7 @@ public sealed class CheckCommandTests : IDisposable
         using var doc = JsonDocument.Parse(stdout);
         Assert.False(doc.RootElement.GetProperty("valid").GetBoolean());
         var problem = doc.RootElement.GetProperty("problems").EnumerateArray().First(p => p.GetProperty("severity").GetString() == "error");
-        Assert.Equal("$.version", problem.GetProperty("field").GetString());
+        Assert.Equal("$.version", problem.GetProperty("path").GetString());
         Assert.False(string.IsNullOrEmpty(problem.GetProperty("reason").GetString()));
     }
 

@@ -19,7 +19,7 @@ public sealed class FitCommandTests : IDisposable
         var output = Path.Combine(_cli.Folder, "fit.json");
         var (exit, stdout, stderr) = _cli.Run("fit", "--data", CliRunner.Reference("birthwt.train.csv"), "--outcome", "low",
             "--numeric", "age,lwt,smoke,ht,ui,ptl", "--categorical", "race", "--reference", "race=white", "--transform", "lwt=log",
-            "--interaction", "lwt:race", "--model", "birthwt", "--version", "2", "--output", output, "--quiet");
+            "--interaction", "lwt:race", "--model", "birthwt", "--new-version", "2", "--output", output, "--quiet");
         Assert.True(exit == 0, stderr);
         Assert.Contains("birthwt 2: logit link, 189 rows, 59 events", stdout, StringComparison.Ordinal);
         Assert.Contains("log(lwt):race=other", stdout, StringComparison.Ordinal);
@@ -38,7 +38,7 @@ public sealed class FitCommandTests : IDisposable
     {
         var output = Path.Combine(_cli.Folder, "refit.json");
         var (exit, _, stderr) = _cli.Run("fit", "--data", Example("training.csv"), "--outcome", "failed_within_30d",
-            "--like", Example("model.json"), "--version", "2026.12.1", "--output", output, "--quiet");
+            "--like", Example("model.json"), "--new-version", "2026.12.1", "--output", output, "--quiet");
         Assert.True(exit == 0, stderr);
         var live = ModelFileReader.ReadValidFile(Example("model.json"));
         var refit = ModelFileReader.ReadValidFile(output);
@@ -61,7 +61,7 @@ public sealed class FitCommandTests : IDisposable
     {
         var (exit, stdout, stderr) = _cli.Run("fit", "--data", Example("training.csv"), "--outcome", "failed_within_30d",
             "--numeric", "vibration_rms,hours_since_service", "--transform", "vibration_rms=log", "--link", "cloglog",
-            "--model", "pump", "--version", "c1", "--json", "--quiet");
+            "--model", "pump", "--new-version", "c1", "--json", "--quiet");
         Assert.True(exit == 0, stderr);
         using var json = JsonDocument.Parse(stdout);
         var fit = json.RootElement.GetProperty("fit");
@@ -75,12 +75,12 @@ public sealed class FitCommandTests : IDisposable
     public void A_fit_that_cannot_be_made_exits_1_naming_the_problem()
     {
         var (exit, _, stderr) = _cli.Run("fit", "--data", CliRunner.Reference("infert.train.csv"), "--outcome", "case",
-            "--numeric", "spontaneous,induced,total", "--model", "m", "--version", "1", "--quiet");
+            "--numeric", "spontaneous,induced,total", "--model", "m", "--new-version", "1", "--quiet");
         Assert.Equal(1, exit);
         Assert.Contains("total: is aliased", stderr, StringComparison.Ordinal);
 
         var (exit2, _, stderr2) = _cli.Run("fit", "--data", CliRunner.Reference("infert.train.csv"), "--outcome", "education",
-            "--numeric", "age", "--model", "m", "--version", "1", "--quiet");
+            "--numeric", "age", "--model", "m", "--new-version", "1", "--quiet");
         Assert.Equal(1, exit2);
         Assert.Contains("education: is not binary", stderr2, StringComparison.Ordinal);
     }
@@ -105,7 +105,7 @@ public sealed class FitCommandTests : IDisposable
             """);
         var output = Path.Combine(_cli.Folder, "fromspec.json");
         var (exit, _, stderr) = _cli.Run("fit", "--data", Example("training.csv"), "--outcome", "failed_within_30d", "--spec", spec,
-            "--model", "pump-spec", "--version", "1", "--output", output, "--quiet");
+            "--model", "pump-spec", "--new-version", "1", "--output", output, "--quiet");
         Assert.True(exit == 0, stderr);
         var doc = ModelFileReader.ReadValidFile(output);
         Assert.Equal(LinkKind.Probit, doc.Link);

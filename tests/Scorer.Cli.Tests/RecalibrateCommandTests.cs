@@ -34,7 +34,7 @@ public sealed class RecalibrateCommandTests : IDisposable
     public void Intercept_and_slope_writes_a_valid_model_with_coefficients_b_beta_plus_a_from_R()
     {
         var output = Path.Combine(_cli.Folder, "new.json");
-        var (exit, stdout, stderr) = Recalibrate(PimaModel, Rows("pima-logit"), output, "--version", "r-logit.2", "--kind", "intercept-and-slope");
+        var (exit, stdout, stderr) = Recalibrate(PimaModel, Rows("pima-logit"), output, "--new-version", "r-logit.2", "--kind", "intercept-and-slope");
         Assert.True(exit == 0, stderr);
         Assert.Contains($"wrote {output}: pima r-logit.2, intercept-and-slope (--kind intercept-and-slope)", stdout, StringComparison.Ordinal);
         Assert.Equal(0, _cli.Run("check", output).Exit);
@@ -61,7 +61,7 @@ public sealed class RecalibrateCommandTests : IDisposable
     public void In_the_large_moves_the_intercept_by_R_glm_offset_estimate()
     {
         var output = Path.Combine(_cli.Folder, "large.json");
-        var (exit, _, stderr) = Recalibrate(PimaModel, Rows("pima-logit"), output, "--version", "r-logit.large", "--kind", "in-the-large");
+        var (exit, _, stderr) = Recalibrate(PimaModel, Rows("pima-logit"), output, "--new-version", "r-logit.large", "--kind", "in-the-large");
         Assert.True(exit == 0, stderr);
         var old = ModelFileReader.ReadValidFile(PimaModel);
         var recalibrated = ModelFileReader.ReadValidFile(output);
@@ -76,7 +76,7 @@ public sealed class RecalibrateCommandTests : IDisposable
     {
         // R's LR test of glm(y ~ eta) against the deployed predictions on Pima.te: 0.349 on 2 df, p = 0.84.
         var output = Path.Combine(_cli.Folder, "auto.json");
-        var (exit, stdout, stderr) = Recalibrate(PimaModel, Rows("pima-logit"), output, "--version", "r-logit.2");
+        var (exit, stdout, stderr) = Recalibrate(PimaModel, Rows("pima-logit"), output, "--new-version", "r-logit.2");
         Assert.True(exit == 0, stderr);
         Assert.Contains("the closed test recommends keeping pima r-logit as it is; nothing written", stdout, StringComparison.Ordinal);
         Assert.Contains("intercept and slope vs keep", stdout, StringComparison.Ordinal);
@@ -98,7 +98,7 @@ public sealed class RecalibrateCommandTests : IDisposable
         var model = Path.Combine(_cli.Folder, "mis.json");
         ModelFileWriter.WriteFile(miscalibrated, model);
         var output = Path.Combine(_cli.Folder, "fixed.json");
-        var (exit, stdout, stderr) = Recalibrate(model, Rows("pima-miscalibrated"), output, "--version", "r-logit.fixed");
+        var (exit, stdout, stderr) = Recalibrate(model, Rows("pima-miscalibrated"), output, "--new-version", "r-logit.fixed");
         Assert.True(exit == 0, stderr);
         Assert.Contains("recommendation: intercept-and-slope", stdout, StringComparison.Ordinal);
         Assert.Contains("(the closed test's recommendation)", stdout, StringComparison.Ordinal);
@@ -131,14 +131,14 @@ public sealed class RecalibrateCommandTests : IDisposable
         var text = string.Join("\n", lines.Select((l, i) => i == 0 ? l : string.Join(",", l.Split(',').Select((c, k) => k == 2 ? "-1" : c))));
         var input = _cli.Write("constant.csv", text + "\n");
         var output = Path.Combine(_cli.Folder, "constant.json");
-        var (exit, stdout, stderr) = Recalibrate(PimaModel, input, output, "--version", "r-logit.c", "--kind", "in-the-large");
+        var (exit, stdout, stderr) = Recalibrate(PimaModel, input, output, "--new-version", "r-logit.c", "--kind", "in-the-large");
         Assert.True(exit == 0, stderr);
         Assert.Contains("no closed test: every eta is equal", stdout, StringComparison.Ordinal);
         var old = ModelFileReader.ReadValidFile(PimaModel);
         var a = Math.Log(109.0 / 223.0) + 1.0;
         Near(old.Terms[0].Coefficient + a, ModelFileReader.ReadValidFile(output).Terms[0].Coefficient, 1e-12, "intercept");
 
-        var (exitAuto, _, stderrAuto) = Recalibrate(PimaModel, input, output + ".auto", "--version", "r-logit.c");
+        var (exitAuto, _, stderrAuto) = Recalibrate(PimaModel, input, output + ".auto", "--new-version", "r-logit.c");
         Assert.Equal(1, exitAuto);
         Assert.Contains("every eta is equal: the slope cannot be estimated", stderrAuto, StringComparison.Ordinal);
     }
@@ -147,7 +147,7 @@ public sealed class RecalibrateCommandTests : IDisposable
     public void An_unknown_column_is_a_usage_error_naming_it_and_listing_the_header()
     {
         var (exit, _, stderr) = _cli.Run("recalibrate", PimaModel, "--input", Rows("pima-logit"), "--eta", "linear_predictor", "--outcome", "y",
-            "--version", "r-logit.2", "--output", Path.Combine(_cli.Folder, "x.json"));
+            "--new-version", "r-logit.2", "--output", Path.Combine(_cli.Folder, "x.json"));
         Assert.Equal(2, exit);
         Assert.Contains("--eta:", stderr, StringComparison.Ordinal);
         Assert.Contains("has no column 'linear_predictor'; its columns are p, y, eta", stderr, StringComparison.Ordinal);
@@ -157,9 +157,9 @@ public sealed class RecalibrateCommandTests : IDisposable
     public void The_old_version_as_the_new_one_is_a_usage_error()
     {
         var output = Path.Combine(_cli.Folder, "same.json");
-        var (exit, _, stderr) = Recalibrate(PimaModel, Rows("pima-logit"), output, "--version", "r-logit", "--kind", "in-the-large");
+        var (exit, _, stderr) = Recalibrate(PimaModel, Rows("pima-logit"), output, "--new-version", "r-logit", "--kind", "in-the-large");
         Assert.Equal(2, exit);
-        Assert.Contains("--version: 'r-logit' is the version of", stderr, StringComparison.Ordinal);
+        Assert.Contains("--new-version: 'r-logit' is the version of", stderr, StringComparison.Ordinal);
         Assert.Contains("needs a version of its own", stderr, StringComparison.Ordinal);
         Assert.False(File.Exists(output));
     }
@@ -175,7 +175,7 @@ public sealed class RecalibrateCommandTests : IDisposable
         };
         var model = Path.Combine(_cli.Folder, "no-intercept.json");
         ModelFileWriter.WriteFile(noIntercept, model);
-        var (exit, _, stderr) = Recalibrate(model, Rows("pima-logit"), Path.Combine(_cli.Folder, "x.json"), "--version", "r-logit.2", "--kind", "in-the-large");
+        var (exit, _, stderr) = Recalibrate(model, Rows("pima-logit"), Path.Combine(_cli.Folder, "x.json"), "--new-version", "r-logit.2", "--kind", "in-the-large");
         Assert.Equal(1, exit);
         Assert.Contains("has no intercept term (a term with no factors)", stderr, StringComparison.Ordinal);
     }
@@ -184,7 +184,7 @@ public sealed class RecalibrateCommandTests : IDisposable
     public void An_invalid_model_file_is_a_data_error_listing_its_problems()
     {
         var text = File.ReadAllText(PimaModel).Replace("\"link\": \"logit\"", "\"link\": \"logistic\"", StringComparison.Ordinal);
-        var (exit, _, stderr) = Recalibrate(_cli.Write("bad.json", text), Rows("pima-logit"), Path.Combine(_cli.Folder, "x.json"), "--version", "2");
+        var (exit, _, stderr) = Recalibrate(_cli.Write("bad.json", text), Rows("pima-logit"), Path.Combine(_cli.Folder, "x.json"), "--new-version", "2");
         Assert.Equal(1, exit);
         Assert.Contains("is not a valid model file", stderr, StringComparison.Ordinal);
         Assert.Contains("$.link", stderr, StringComparison.Ordinal);
@@ -193,13 +193,13 @@ public sealed class RecalibrateCommandTests : IDisposable
     [Theory]
     [InlineData("--kind", "slope-only", "--kind: 'slope-only' is not auto, in-the-large or intercept-and-slope")]
     [InlineData("--alpha", "5", "--alpha: the significance level must lie strictly between 0 and 1, got 5")]
-    [InlineData("--version", "two words", "--version: 'two words' is not a version")]
+    [InlineData("--new-version", "two words", "--new-version: 'two words' is not a version")]
     public void A_bad_option_is_a_usage_error_naming_it(string option, string value, string message)
     {
         string[] args = ["recalibrate", PimaModel, "--input", Rows("pima-logit"), "--eta", "eta", "--outcome", "y", "--output", Path.Combine(_cli.Folder, "x.json")];
-        if (option != "--version")
+        if (option != "--new-version")
         {
-            args = [.. args, "--version", "r-logit.2"];
+            args = [.. args, "--new-version", "r-logit.2"];
         }
 
         var (exit, _, stderr) = _cli.Run([.. args, option, value]);
@@ -213,7 +213,7 @@ public sealed class RecalibrateCommandTests : IDisposable
         var (exit, _, stderr) = _cli.Run("recalibrate", PimaModel, "--input", Rows("pima-logit"), "--eta", "eta");
         Assert.Equal(2, exit);
         Assert.Contains("--outcome is required", stderr, StringComparison.Ordinal);
-        Assert.Contains("--version is required", stderr, StringComparison.Ordinal);
+        Assert.Contains("--new-version is required", stderr, StringComparison.Ordinal);
         Assert.Contains("--output is required", stderr, StringComparison.Ordinal);
     }
 

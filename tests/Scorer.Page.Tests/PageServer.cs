@@ -63,7 +63,7 @@ internal sealed class PageServer : IAsyncDisposable
             {
                 ["Scorer:RescanInterval"] = "00:00:00.250",
                 ["Scorer:SeedDemoModels"] = "false",
-                ["Scorer:Log:MaxDelay"] = "00:00:00.005",
+                ["Scorer:PredictionLog:MaxDelay"] = "00:00:00.005",
                 ["Scorer:LogLevel"] = "Warning",
                 ["Scorer:Monitor:ReportInterval"] = "00:00:00.200",
                 ["Scorer:Monitor:PollInterval"] = "00:00:00.050",

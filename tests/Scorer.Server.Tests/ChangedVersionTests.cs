@@ -57,7 +57,7 @@ public sealed class ChangedVersionTests : IDisposable
     {
         var problem = error.GetProperty("problems").EnumerateArray().Single();
         var reason = problem.GetProperty("reason").GetString()!;
-        Assert.Equal("$.version", problem.GetProperty("field").GetString());
+        Assert.Equal("$.version", problem.GetProperty("path").GetString());
         Assert.Contains(file, reason, StringComparison.Ordinal);
         Assert.Contains($"'{Model}'", reason, StringComparison.Ordinal);
         Assert.Contains($"'{Version}'", reason, StringComparison.Ordinal);

@@ -337,7 +337,7 @@ public sealed class DeployKitTests : IDisposable
             : int.Parse(Assert.Single(preStop.GetProperty("exec").GetProperty("command").EnumerateArray().Skip(1)).GetString()!, CultureInfo.InvariantCulture);
         Assert.Equal("sleep", preStop.TryGetProperty("exec", out var exec) ? exec.GetProperty("command")[0].GetString() : "sleep");
         Assert.True(sleep >= 5, "the preStop sleep gives the endpoints controller and proxies time to stop sending calls");
-        var drain = settings.TryGetProperty("Scorer__Log__DrainTimeout", out var configured)
+        var drain = settings.TryGetProperty("Scorer__PredictionLog__DrainTimeout", out var configured)
             ? TimeSpan.Parse(configured.GetString()!, CultureInfo.InvariantCulture)
             : new PredictionLogOptions().DrainTimeout;
         var hostShutdown = server.Service<IOptions<HostOptions>>().Value.ShutdownTimeout;
@@ -458,11 +458,11 @@ public sealed class DeployKitTests : IDisposable
         Assert.Empty(options.Validate());
         Assert.Equal(keyNames.Count, options.Keys.Count);
         Assert.All(options.Keys, k => Assert.Single(k.Roles));
-        Assert.Equal(new[] { "admin", "feedback", "score" }, options.Keys.SelectMany(k => k.Roles).Order(StringComparer.Ordinal));
+        Assert.Equal(new[] { "admin", "outcomes", "score" }, options.Keys.SelectMany(k => k.Roles).Order(StringComparer.Ordinal));
         Assert.Equal("/models", options.ModelsPath);
         Assert.False(options.SeedDemoModels);
         Assert.Equal("json", options.LogFormat);
-        Assert.Equal(TimeSpan.FromSeconds(20), options.Log.DrainTimeout);
+        Assert.Equal(TimeSpan.FromSeconds(20), options.PredictionLog.DrainTimeout);
     }
 
     [Fact]

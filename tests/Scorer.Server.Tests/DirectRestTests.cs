@@ -145,6 +145,13 @@ public sealed partial class DirectRestTests : IAsyncLifetime
         Assert.Equal("age", results[2].GetProperty("error").GetProperty("field").GetString());
         Assert.Contains("twice", results[2].GetProperty("error").GetProperty("reason").GetString(), StringComparison.Ordinal);
         Assert.Equal("rows[3]", results[3].GetProperty("error").GetProperty("field").GetString());
+
+        // Each error carries its stable code, and the metric counts it under the same code.
+        var codes = new[] { 0, 2, 3 }.Select(i => results[i].GetProperty("error").GetProperty("code").GetString()).ToList();
+        Assert.Equal(["bad_value", "duplicate_feature", "bad_value"], codes);
+        var metrics = await _direct.Http.GetStringAsync("/metrics");
+        Assert.Contains("scorer_row_errors_total{model=\"birthwt\",kind=\"bad_value\"} 2", metrics, StringComparison.Ordinal);
+        Assert.Contains("scorer_row_errors_total{model=\"birthwt\",kind=\"duplicate_feature\"} 1", metrics, StringComparison.Ordinal);
     }
 
     [Fact]
@@ -168,13 +175,13 @@ public sealed partial class DirectRestTests : IAsyncLifetime
             ["Scorer:Keys:0:Key"] = "score-key-0123456789",
             ["Scorer:Keys:0:Roles:0"] = "score",
             ["Scorer:Keys:1:Name"] = "labeller",
-            ["Scorer:Keys:1:Key"] = "feedback-key-0123456789",
-            ["Scorer:Keys:1:Roles:0"] = "feedback",
+            ["Scorer:Keys:1:Key"] = "outcomes-key-0123456789",
+            ["Scorer:Keys:1:Roles:0"] = "outcomes",
         });
         const string Body = "{\"rows\":[{\"age\":25,\"lwt\":130,\"race\":\"white\",\"smoke\":0,\"ht\":0,\"ui\":0,\"ptl\":0}]}";
         Assert.Equal(HttpStatusCode.Unauthorized, (await PostAsync(server, "/v1/models/birthwt/score", Body)).Status);
         Assert.Equal(HttpStatusCode.Unauthorized, (await PostAsync(server, "/v1/models/birthwt/score", Body, "wrong-key")).Status);
-        Assert.Equal(HttpStatusCode.Forbidden, (await PostAsync(server, "/v1/models/birthwt/score", Body, "feedback-key-0123456789")).Status);
+        Assert.Equal(HttpStatusCode.Forbidden, (await PostAsync(server, "/v1/models/birthwt/score", Body, "outcomes-key-0123456789")).Status);
         Assert.Equal(HttpStatusCode.OK, (await PostAsync(server, "/v1/models/birthwt/score", Body, "score-key-0123456789")).Status);
     }
 }

@@ -65,7 +65,7 @@ public sealed class ModelFolderTests : IDisposable
         var error = await LoadErrorAsync(server, "latin1.json");
         Assert.NotNull(error);
         var problem = error.Value.GetProperty("problems").EnumerateArray().Single();
-        Assert.Equal("$", problem.GetProperty("field").GetString());
+        Assert.Equal("$", problem.GetProperty("path").GetString());
         var reason = problem.GetProperty("reason").GetString()!;
         Assert.Contains("not valid UTF-8", reason, StringComparison.Ordinal);
         Assert.Contains("0xE9", reason, StringComparison.Ordinal);
@@ -90,7 +90,7 @@ public sealed class ModelFolderTests : IDisposable
         Assert.NotNull(error);
         Assert.Equal("too_many_terms", error.Value.GetProperty("kind").GetString());
         var problem = error.Value.GetProperty("problems").EnumerateArray().Single();
-        Assert.Equal("$.terms", problem.GetProperty("field").GetString());
+        Assert.Equal("$.terms", problem.GetProperty("path").GetString());
         Assert.Equal("8 terms is over the limit of 7 terms", problem.GetProperty("reason").GetString());
         Assert.Contains("raise Scorer:ModelFiles:MaxTerms", problem.GetProperty("hint").GetString(), StringComparison.Ordinal);
 

@@ -312,8 +312,8 @@ public sealed class OutcomesGrpcTests : IAsyncLifetime
             ["Scorer:Keys:0:Key"] = "score-key-0123456789",
             ["Scorer:Keys:0:Roles:0"] = "score",
             ["Scorer:Keys:1:Name"] = "labelling-system",
-            ["Scorer:Keys:1:Key"] = "feedback-key-0123456789",
-            ["Scorer:Keys:1:Roles:0"] = "feedback",
+            ["Scorer:Keys:1:Key"] = "outcomes-key-0123456789",
+            ["Scorer:Keys:1:Roles:0"] = "outcomes",
         });
     }
 
@@ -340,7 +340,7 @@ public sealed class OutcomesGrpcTests : IAsyncLifetime
         Assert.True(await Files.EventuallyAsync(async () => await store.CountPredictionsAsync("pima") == 4, TimeSpan.FromSeconds(10)));
 
         var outcomes = new Scorer.Transport.V1.Outcomes.OutcomesClient(_server.Channel);
-        using var call = outcomes.RecordOutcomesStream(Bearer("feedback-key-0123456789"));
+        using var call = outcomes.RecordOutcomesStream(Bearer("outcomes-key-0123456789"));
         foreach (var pair in scored.Results.Chunk(2))
         {
             var message = new Scorer.Transport.V1.RecordOutcomesRequest { Model = "pima" };
@@ -355,13 +355,13 @@ public sealed class OutcomesGrpcTests : IAsyncLifetime
     }
 
     [Fact]
-    public async Task Outcomes_need_the_feedback_role_and_reports_the_score_role()
+    public async Task Outcomes_need_the_outcomes_role_and_reports_the_score_role()
     {
         var outcomes = new Scorer.Transport.V1.Outcomes.OutcomesClient(_server.Channel);
         var message = new Scorer.Transport.V1.RecordOutcomesRequest { Model = "pima", Outcomes = { new Scorer.Transport.V1.OutcomeEntry { Key = "k", Outcome = 1 } } };
         var refused = await Assert.ThrowsAsync<Grpc.Core.RpcException>(async () => await outcomes.RecordOutcomesAsync(message, Bearer("score-key-0123456789")));
         Assert.Equal(Grpc.Core.StatusCode.PermissionDenied, refused.StatusCode);
-        Assert.Equal(["k"], (await outcomes.RecordOutcomesAsync(message, Bearer("feedback-key-0123456789"))).Unknown);
+        Assert.Equal(["k"], (await outcomes.RecordOutcomesAsync(message, Bearer("outcomes-key-0123456789"))).Unknown);
 
         var monitor = new Scorer.Transport.V1.Monitor.MonitorClient(_server.Channel);
         var unauthenticated = await Assert.ThrowsAsync<Grpc.Core.RpcException>(async () =>

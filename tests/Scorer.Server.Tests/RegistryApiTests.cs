@@ -77,7 +77,7 @@ public sealed class RegistryApiTests : IDisposable
         using var list = await GetAsync(server, "/v1/models");
         var error = list.RootElement.GetProperty("loadErrors")[0];
         Assert.Equal("broken.json", error.GetProperty("file").GetString());
-        Assert.Contains(error.GetProperty("problems").EnumerateArray(), p => p.GetProperty("field").GetString() == "$.link");
+        Assert.Contains(error.GetProperty("problems").EnumerateArray(), p => p.GetProperty("path").GetString() == "$.link");
         var (status, json) = await PostAsync(server, "/v1/models/pump-bearing-failure/score", PumpRow);
         Assert.Equal(HttpStatusCode.OK, status);
         Assert.Equal("2026.11.1", json.RootElement.GetProperty("version").GetString());

@@ -304,7 +304,7 @@ public sealed class ReplicaTests(ITestOutputHelper output) : IDisposable
             start.Environment["Scorer__RescanInterval"] = "00:10:00";
             start.Environment["Scorer__Monitor__PollInterval"] = "00:00:00.100";
             start.Environment["Scorer__Monitor__ReportInterval"] = "00:00:00.250";
-            start.Environment["Scorer__Log__MaxDelay"] = "00:00:00.005";
+            start.Environment["Scorer__PredictionLog__MaxDelay"] = "00:00:00.005";
             start.Environment["Scorer__LogFormat"] = "text";
             start.Environment["Scorer__LogLevel"] = "Information";
             var process = Process.Start(start)!;

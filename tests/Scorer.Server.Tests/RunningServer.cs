@@ -38,7 +38,7 @@ internal sealed class RunningServer : IAsyncDisposable
             {
                 ["Scorer:RescanInterval"] = "00:00:00.250",
                 ["Scorer:SeedDemoModels"] = "false",
-                ["Scorer:Log:MaxDelay"] = "00:00:00.005",
+                ["Scorer:PredictionLog:MaxDelay"] = "00:00:00.005",
                 ["Scorer:LogLevel"] = "Warning",
             });
             if (settings is not null)

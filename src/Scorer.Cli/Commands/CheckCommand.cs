@@ -72,7 +72,7 @@ internal static class CheckCommand
             {
                 w.WriteStartObject();
                 w.WriteString("severity", p.Severity == ProblemSeverity.Error ? "error" : "warning");
-                w.WriteString("field", p.Path);
+                w.WriteString("path", p.Path);
                 w.WriteString("reason", p.Reason);
                 if (p.Hint is not null)
                 {

@@ -5,7 +5,7 @@ using Scorer.Monitor.Recalibration;
 namespace Scorer.Cli.Commands;
 
 /// <summary>
-/// <c>scorer recalibrate MODEL.json --input scored.csv --eta COL --outcome COL --version NEW [--kind auto|in-the-large|intercept-and-slope] --output NEW.json</c>:
+/// <c>scorer recalibrate MODEL.json --input scored.csv --eta COL --outcome COL --new-version NEW [--kind auto|in-the-large|intercept-and-slope] --output NEW.json</c>:
 /// fits the recalibration on matured outcomes against the linear predictor the deployed version gave
 /// (<see cref="Recalibrator"/>), prints both fits and the closed test, and writes the recalibrated model file. With
 /// <c>--kind auto</c> (the default) the closed test decides; when it recommends keeping the model nothing is written.
@@ -51,7 +51,7 @@ internal static class RecalibrateCommand
         CommandLine.Required(o.Input, "--input", "the CSV of matured outcomes with the deployed linear predictor", usage);
         CommandLine.Required(o.Eta, "--eta", "the column of the linear predictor the deployed version gave", usage);
         CommandLine.Required(o.Outcome, "--outcome", "the column of outcomes (0/1 or false/true)", usage);
-        CommandLine.Required(o.Version, "--version", "the version of the recalibrated model", usage);
+        CommandLine.Required(o.Version, "--new-version", "the version of the recalibrated model", usage);
         CommandLine.Required(o.Output, "--output", "where to write the recalibrated model file", usage);
         var alpha = CommandLine.Fraction(o.Alpha, "--alpha", "significance level", 0.05, usage);
         RecalibrationKind? kind = o.Kind switch
@@ -66,11 +66,11 @@ internal static class RecalibrateCommand
         var model = ReadModel(o.Model!);
         if (string.Equals(o.Version, model.Version, StringComparison.Ordinal))
         {
-            usage.Add($"--version: '{o.Version}' is the version of {o.Model} itself; the recalibrated model needs a version of its own");
+            usage.Add($"--new-version: '{o.Version}' is the version of {o.Model} itself; the recalibrated model needs a version of its own");
         }
         else if (o.Version!.Length > 64 || !IsVersion(o.Version))
         {
-            usage.Add($"--version: '{o.Version}' is not a version: 1 to 64 characters, a letter or digit first, then letters, digits, '.', '_', '+' or '-'");
+            usage.Add($"--new-version: '{o.Version}' is not a version: 1 to 64 characters, a letter or digit first, then letters, digits, '.', '_', '+' or '-'");
         }
 
         if (Path.GetFullPath(o.Output!) == Path.GetFullPath(o.Model!))

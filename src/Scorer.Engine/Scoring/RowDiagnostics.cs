@@ -72,6 +72,29 @@ public static class RowMessages
         _ => kind.ToString(),
     };
 
+    /// <summary>
+    /// A short code for an error, stable for machines: the row error's <c>code</c> in every answer and the <c>kind</c>
+    /// label of <c>scorer_row_errors_total</c>.
+    /// </summary>
+    public static string Code(RowErrorKind kind) => kind switch
+    {
+        RowErrorKind.MissingValue => "missing_value",
+        RowErrorKind.UnknownLevel => "unknown_level",
+        RowErrorKind.NotFinite => "not_finite",
+        RowErrorKind.OutsideTransformDomain => "outside_transform_domain",
+        RowErrorKind.ExpectedNumber => "expected_number",
+        RowErrorKind.ExpectedLevel => "expected_level",
+        RowErrorKind.DuplicateFeature => "duplicate_feature",
+        RowErrorKind.Overflow => "overflow",
+        _ => "other",
+    };
+
+    /// <summary>The code of a row the transport could not read into values (not an object, too many fields, a value of the wrong JSON type).</summary>
+    public const string BadValueCode = "bad_value";
+
+    /// <summary>The code of a row whose business key the service refuses (too long).</summary>
+    public const string BadKeyCode = "bad_key";
+
     public static string Field(CompiledModel model, in RowError e) => e.Feature >= 0 ? model.FeatureNames[e.Feature] : "";
 
     public static string Describe(CompiledModel model, in RowError e)

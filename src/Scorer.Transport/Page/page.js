@@ -512,7 +512,7 @@
       slot.dataset.renders = String(Number(slot.dataset.renders || 0) + 1);
       if (data.loadErrors.length > 0) {
         slot.append(h('section', { class: 'card' }, h('h2', {}, 'Files that did not load'),
-          h('ul', {}, data.loadErrors.map((e) => h('li', {}, h('span', { class: 'version-name' }, e.file), ': ', e.problems.join('; '))))));
+          h('ul', {}, data.loadErrors.map((e) => h('li', {}, h('span', { class: 'version-name' }, e.file), ': ', e.problems.map((p) => `${p.path}: ${p.reason}`).join('; '))))));
       }
       document.body.dataset.state = 'ready';
     };

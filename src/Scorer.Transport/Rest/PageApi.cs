@@ -210,8 +210,25 @@ public sealed class PageApi
         foreach (var failure in snapshot.Failures)
         {
             w.WriteStartObject();
+            // The shape of GET /v1/models' loadErrors (the LoadError message as JSON).
             w.WriteString("file", Path.GetFileName(failure.File));
-            Strings(w, "problems", [.. failure.Problems.Select(p => p.ToString())]);
+            w.WriteStartArray("problems");
+            foreach (var p in failure.Problems)
+            {
+                w.WriteStartObject();
+                w.WriteString("path", p.Path);
+                w.WriteString("reason", p.Reason);
+                if (!string.IsNullOrEmpty(p.Hint))
+                {
+                    w.WriteString("hint", p.Hint);
+                }
+
+                w.WriteEndObject();
+            }
+
+            w.WriteEndArray();
+            w.WriteString("at", Services.ModelsService.Time(failure.At));
+            w.WriteString("kind", LoadFailure.KindName(failure.Kind));
             w.WriteEndObject();
         }
 

@@ -158,7 +158,8 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
                 w.WriteString("id"u8, id);
                 if (key is { Length: > 0 } && key.Length > limits.MaxStringLength)
                 {
-                    WriteRowError(w, $"keys[{i}]", $"longer than {limits.MaxStringLength} characters", key);
+                    core.CountRowError(version, RowMessages.BadKeyCode);
+                    WriteRowError(w, RowMessages.BadKeyCode, $"keys[{i}]", $"longer than {limits.MaxStringLength} characters", key);
                     continue;
                 }
 
@@ -167,8 +168,8 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
                 var bound = Bind(rowJson, i, model, values, out var count, out var bindField, out var bindReason);
                 if (!bound)
                 {
-                    core.CountBadValue(version);
-                    WriteRowError(w, bindField!, bindReason!, key);
+                    core.CountRowError(version, RowMessages.BadValueCode);
+                    WriteRowError(w, RowMessages.BadValueCode, bindField!, bindReason!, key);
                     continue;
                 }
 
@@ -176,8 +177,8 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
                 var r = model.Score(row, settings, contributions, warnings);
                 if (r.Failed)
                 {
-                    core.CountRowError(version, r.Error.Kind);
-                    WriteRowError(w, RowMessages.Field(model, r.Error), RowMessages.Describe(model, r.Error), key);
+                    core.CountRowError(version, RowMessages.Code(r.Error.Kind));
+                    WriteRowError(w, RowMessages.Code(r.Error.Kind), RowMessages.Field(model, r.Error), RowMessages.Describe(model, r.Error), key);
                     continue;
                 }
 
@@ -422,13 +423,14 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
         w.WriteEndObject();
     }
 
-    private static void WriteRowError(Utf8JsonWriter w, string field, string reason, string? key)
+    private static void WriteRowError(Utf8JsonWriter w, string code, string field, string reason, string? key)
     {
         w.WriteStartArray("contributions"u8);
         w.WriteEndArray();
         w.WriteStartArray("warnings"u8);
         w.WriteEndArray();
         w.WriteStartObject("error"u8);
+        w.WriteString("code"u8, code);
         w.WriteString("field"u8, field);
         w.WriteString("reason"u8, reason);
         w.WriteEndObject();

@@ -40,7 +40,7 @@ public sealed class ModelsService(ModelRegistry registry, IScorerStore store) : 
         foreach (var failure in snapshot.Failures)
         {
             var error = new LoadError { File = Path.GetFileName(failure.File), At = Time(failure.At), Kind = LoadFailure.KindName(failure.Kind) };
-            error.Problems.AddRange(failure.Problems.Select(p => new Problem { Field = p.Path, Reason = p.Reason, Hint = p.Hint ?? "" }));
+            error.Problems.AddRange(failure.Problems.Select(p => new Problem { Path = p.Path, Reason = p.Reason, Hint = p.Hint ?? "" }));
             response.LoadErrors.Add(error);
         }
 
@@ -129,5 +129,5 @@ public sealed class ModelsService(ModelRegistry registry, IScorerStore store) : 
         At = Time(c.At),
     };
 
-    private static string Time(DateTimeOffset t) => t.UtcDateTime.ToString("yyyy-MM-dd'T'HH:mm:ss.fff'Z'", CultureInfo.InvariantCulture);
+    internal static string Time(DateTimeOffset t) => t.UtcDateTime.ToString("yyyy-MM-dd'T'HH:mm:ss.fff'Z'", CultureInfo.InvariantCulture);
 }

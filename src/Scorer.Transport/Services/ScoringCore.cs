@@ -110,9 +110,8 @@ public sealed class ScoringCore(ModelRegistry registry, PredictionLog log, Shado
 
     private sealed record VersionCounters(Prometheus.Counter.Child Scored, Prometheus.Counter.Child Warned);
 
-    public void CountRowError(LoadedVersion version, RowErrorKind kind) => metrics.RowErrors.WithLabels(version.Model, ErrorKind(kind)).Inc();
-
-    public void CountBadValue(LoadedVersion version) => metrics.RowErrors.WithLabels(version.Model, "bad_value").Inc();
+    /// <summary>Counts a row that could not be scored under its code (<see cref="RowMessages.Code(RowErrorKind)"/>, bad_value, bad_key).</summary>
+    public void CountRowError(LoadedVersion version, string code) => metrics.RowErrors.WithLabels(version.Model, code).Inc();
 
     /// <summary>Hands the rows a live version scored to its shadow versions (nothing happens without shadows).</summary>
     public void Shadow(LoadedVersion version, ModelEntry entry, NamedValue[]?[] rows, Guid[] liveIds, string?[] keys, DateTimeOffset scoredAt)
@@ -130,16 +129,4 @@ public sealed class ScoringCore(ModelRegistry registry, PredictionLog log, Shado
         }
     }
 
-    private static string ErrorKind(RowErrorKind kind) => kind switch
-    {
-        RowErrorKind.MissingValue => "missing_value",
-        RowErrorKind.UnknownLevel => "unknown_level",
-        RowErrorKind.NotFinite => "not_finite",
-        RowErrorKind.OutsideTransformDomain => "outside_transform_domain",
-        RowErrorKind.ExpectedNumber => "expected_number",
-        RowErrorKind.ExpectedLevel => "expected_level",
-        RowErrorKind.DuplicateFeature => "duplicate_feature",
-        RowErrorKind.Overflow => "overflow",
-        _ => "other",
-    };
 }

@@ -76,7 +76,8 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
             response.Results.Add(result);
             if (key is { Length: > 0 } && key.Length > limits.MaxStringLength)
             {
-                result.Error = RowErrorValue($"keys[{i}]", $"longer than {limits.MaxStringLength} characters");
+                result.Error = RowErrorValue(RowMessages.BadKeyCode, $"keys[{i}]", $"longer than {limits.MaxStringLength} characters");
+                core.CountRowError(version, RowMessages.BadKeyCode);
                 continue;
             }
 
@@ -84,15 +85,15 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
             if (!TryBind(row, i, out var values, out var bindError))
             {
                 result.Error = bindError!;
-                core.CountBadValue(version);
+                core.CountRowError(version, RowMessages.BadValueCode);
                 continue;
             }
 
             var r = model.Score(values, settings, contributions, warnings);
             if (r.Failed)
             {
-                result.Error = RowErrorValue(RowMessages.Field(model, r.Error), RowMessages.Describe(model, r.Error));
-                core.CountRowError(version, r.Error.Kind);
+                result.Error = RowErrorValue(RowMessages.Code(r.Error.Kind), RowMessages.Field(model, r.Error), RowMessages.Describe(model, r.Error));
+                core.CountRowError(version, RowMessages.Code(r.Error.Kind));
                 continue;
             }
 
@@ -205,8 +206,8 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
                 response.WarningCount.Add(s.WarningCount);
                 if (s.Failed)
                 {
-                    response.Errors.Add(new DenseRowError { Row = r, Field = RowMessages.Field(model, s.Error), Reason = RowMessages.Describe(model, s.Error) });
-                    core.CountRowError(version, s.Error.Kind);
+                    response.Errors.Add(new DenseRowError { Row = r, Code = RowMessages.Code(s.Error.Kind), Field = RowMessages.Field(model, s.Error), Reason = RowMessages.Describe(model, s.Error) });
+                    core.CountRowError(version, RowMessages.Code(s.Error.Kind));
                     continue;
                 }
 
@@ -239,13 +240,13 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
         error = null;
         if (row is null)
         {
-            error = RowErrorValue($"rows[{index}]", "the row is not a JSON object");
+            error = RowErrorValue(RowMessages.BadValueCode, $"rows[{index}]", "the row is not a JSON object");
             return false;
         }
 
         if (row.Fields.Count > limits.MaxFeaturesPerRow)
         {
-            error = RowErrorValue($"rows[{index}]", $"{row.Fields.Count} fields; at most {limits.MaxFeaturesPerRow}");
+            error = RowErrorValue(RowMessages.BadValueCode, $"rows[{index}]", $"{row.Fields.Count} fields; at most {limits.MaxFeaturesPerRow}");
             return false;
         }
 
@@ -262,7 +263,7 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
                 case Value.KindOneofCase.StringValue:
                     if (value.StringValue.Length > limits.MaxStringLength)
                     {
-                        error = RowErrorValue(name, $"longer than {limits.MaxStringLength} characters");
+                        error = RowErrorValue(RowMessages.BadValueCode, name, $"longer than {limits.MaxStringLength} characters");
                         return false;
                     }
 
@@ -276,7 +277,7 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
                     v = FeatureValue.Missing;
                     break;
                 default:
-                    error = RowErrorValue(name, "expects a number or a string, got " + (value.KindCase == Value.KindOneofCase.ListValue ? "a list" : "an object"));
+                    error = RowErrorValue(RowMessages.BadValueCode, name, "expects a number or a string, got " + (value.KindCase == Value.KindOneofCase.ListValue ? "a list" : "an object"));
                     return false;
             }
 
@@ -286,10 +287,10 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
         return true;
     }
 
-    /// <summary>A row's error as the JSON object {"field", "reason"}.</summary>
-    internal static Value RowErrorValue(string field, string reason) => Value.ForStruct(new Struct
+    /// <summary>A row's error as the JSON object {"code", "field", "reason"}.</summary>
+    internal static Value RowErrorValue(string code, string field, string reason) => Value.ForStruct(new Struct
     {
-        Fields = { ["field"] = Value.ForString(field), ["reason"] = Value.ForString(reason) },
+        Fields = { ["code"] = Value.ForString(code), ["field"] = Value.ForString(field), ["reason"] = Value.ForString(reason) },
     });
 
     private static void Fill(RowResult result, in ScoredRow r, CompiledModel model, double[] contributions, Engine.Scoring.RowWarning[] warnings, int top)
