@@ -38,8 +38,15 @@ public sealed class MetricsTests : IAsyncLifetime
                    new StringContent(body.Replace(",{\"vibration_rms\":3.2,\"bearing_temp_c\":61,\"hours_since_service\":2500,\"site\":\"harbour\"}", "", StringComparison.Ordinal), Encoding.UTF8, "application/json"))).Content.ReadAsStringAsync()))
         {
             var id = scored.RootElement.GetProperty("results")[0].GetProperty("id").GetString();
+
+            // The outcome joins a logged prediction: wait until the log has written it, or the outcome is unknown.
+            var log = _server.Service<Scorer.Store.PredictionLog>();
+            Assert.True(await Files.EventuallyAsync(() => Task.FromResult(log.Pending == 0), TimeSpan.FromSeconds(60)), $"the log still holds {log.Pending} rows");
             using var outcome = new StringContent($"{{\"outcomes\":[{{\"id\":\"{id}\",\"outcome\":1}}]}}", Encoding.UTF8, "application/json");
-            Assert.Equal(HttpStatusCode.OK, (await _server.Http.PostAsync("/v1/models/pump-bearing-failure/outcomes", outcome)).StatusCode);
+            using var recorded = await _server.Http.PostAsync("/v1/models/pump-bearing-failure/outcomes", outcome);
+            Assert.Equal(HttpStatusCode.OK, recorded.StatusCode);
+            using var receipt = JsonDocument.Parse(await recorded.Content.ReadAsStringAsync());
+            Assert.Equal(1, receipt.RootElement.GetProperty("accepted").GetInt32());
         }
 
         var text = "";
