@@ -8,6 +8,12 @@ public sealed record ModelDocument
 {
     public const string FormatV1 = "scorer.model/1";
 
+    /// <summary>
+    /// The name of the linear predictor's distribution: <c>baseline.linear_predictor</c> in the file, the drift series
+    /// and PSI of η in reports and metrics. No feature may take it.
+    /// </summary>
+    public const string LinearPredictorSeries = "linear_predictor";
+
     public required string Format { get; init; }
     public required string Model { get; init; }
     public required string Version { get; init; }

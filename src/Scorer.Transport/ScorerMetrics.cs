@@ -55,7 +55,7 @@ public sealed class ScorerMetrics
         var logLoss = Window("scorer_monitor_log_loss", "Log loss.");
         var ece = Window("scorer_monitor_ece", "Expected calibration error over the ten equal-width bins.");
         var auc = Window("scorer_monitor_auc", "ROC AUC.");
-        var psi = factory.CreateGauge("scorer_monitor_psi", "Population stability index against the baseline, by series (score or a feature).",
+        var psi = factory.CreateGauge("scorer_monitor_psi", "Population stability index against the baseline, by series (linear_predictor or a feature).",
             "model", "version", "window", "series");
         var cusum = factory.CreateGauge("scorer_monitor_cusum", "Risk-adjusted Bernoulli CUSUM value, by chart (up, down).", "model", "version", "chart");
         var cusumThreshold = factory.CreateGauge("scorer_monitor_cusum_threshold", "CUSUM threshold, by chart.", "model", "version", "chart");
@@ -82,7 +82,7 @@ public sealed class ScorerMetrics
                 SetOrNaN(auc.WithLabels(l), c.Auc?.Estimate);
                 if (s.Drift.Score is { } score)
                 {
-                    psi.WithLabels(s.Version.Model, s.Version.Version, s.Window, "score").Set(score);
+                    psi.WithLabels(s.Version.Model, s.Version.Version, s.Window, Scorer.Monitor.Reporting.DriftTracker.ScoreSeries).Set(score);
                 }
 
                 foreach (var (feature, value) in s.Drift.Features)

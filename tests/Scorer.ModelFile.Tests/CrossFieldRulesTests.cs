@@ -18,6 +18,16 @@ public sealed class CrossFieldRulesTests
     }
 
     [Fact]
+    public void A_feature_named_linear_predictor_is_refused_because_the_name_belongs_to_the_drift_series_of_eta()
+    {
+        var result = ModelFiles.ReadChanged(root => root["features"]!.AsArray().Add(ModelFiles.Json(
+            """{ "name": "linear_predictor", "type": "numeric", "min": 0, "max": 1 }""")));
+
+        var error = Problems.SingleErrorAt(result, "$.features[2].name");
+        Problems.Contains("'linear_predictor' is reserved", error);
+    }
+
+    [Fact]
     public void Duplicate_term_name_is_rejected_with_its_path_and_the_first_one()
     {
         var error = Problems.SingleErrorAt(ModelFiles.ReadChanged(root => root["terms"]![3]!["name"] = "site_east"), "$.terms[3].name");

@@ -137,7 +137,7 @@ public sealed class MonitorChartsTests : IDisposable
         var expected = baseline["proportions"]!.AsArray().Select(e => (double)e!).ToList();
         var bin = edges.Count(e => eta > e);
         var psi = expected.Select((e, b) => (a: b == bin ? 1.0 : 1e-4, e: Math.Max(e, 1e-4))).Sum(x => (x.a - x.e) * Math.Log(x.a / x.e));
-        Assert.Equal(psi, report.GetProperty("psi").GetProperty("score").GetDouble(), 1e-12);
+        Assert.Equal(psi, report.GetProperty("psi").GetProperty("linearPredictor").GetDouble(), 1e-12);
         Assert.True(report.GetProperty("psi").GetProperty("features").GetProperty("vibration_rms").GetDouble() > 0.25);
         Assert.Equal("refit-due", report.GetProperty("status").GetString());
         Assert.Equal("refit", report.GetProperty("action").GetString());

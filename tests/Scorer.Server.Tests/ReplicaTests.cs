@@ -266,7 +266,7 @@ public sealed class ReplicaTests(ITestOutputHelper output) : IDisposable
         }
 
         Assert.Equal(x.GetProperty("hosmerLemeshow").GetProperty("statistic").GetDouble(), y.GetProperty("hosmerLemeshow").GetProperty("statistic").GetDouble(), 1e-9);
-        Assert.Equal(x.GetProperty("psi").GetProperty("score").GetDouble(), y.GetProperty("psi").GetProperty("score").GetDouble(), 1e-12);
+        Assert.Equal(x.GetProperty("psi").GetProperty("linearPredictor").GetDouble(), y.GetProperty("psi").GetProperty("linearPredictor").GetDouble(), 1e-12);
     }
 
     /// <summary>The built server, run as a process of its own, with its output kept for the test log.</summary>

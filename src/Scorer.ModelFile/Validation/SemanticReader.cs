@@ -120,6 +120,12 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
                 continue;
             }
 
+            if (name == ModelDocument.LinearPredictorSeries)
+            {
+                Error(path + ".name", $"'{name}' is reserved: it names the linear predictor's distribution in the baseline and in drift reports",
+                    "rename the feature");
+            }
+
             var kind = Str(f, "type") == "categorical" ? FeatureKind.Categorical : FeatureKind.Numeric;
             var missing = Str(f, "missing") == "mean" ? MissingPolicy.Mean : MissingPolicy.Reject;
             var unknown = Str(f, "unknown") == "reference" ? UnknownLevelPolicy.Reference : UnknownLevelPolicy.Reject;

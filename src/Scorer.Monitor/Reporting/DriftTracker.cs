@@ -22,8 +22,8 @@ public sealed record DriftView(double? Score, IReadOnlyDictionary<string, double
 /// </summary>
 public sealed class DriftTracker(IScorerStore store, TimeProvider time)
 {
-    /// <summary>The series of the linear predictor.</summary>
-    public const string ScoreSeries = "score";
+    /// <summary>The series of the linear predictor (a name the model file keeps from features).</summary>
+    public const string ScoreSeries = ModelFile.ModelDocument.LinearPredictorSeries;
 
     /// <summary>Bin of a categorical value the baseline does not list.</summary>
     public const int UnseenBin = -1;

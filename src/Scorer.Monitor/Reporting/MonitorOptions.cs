@@ -31,7 +31,7 @@ public sealed record MonitorOptions
     public double ObservedExpectedTolerance { get; init; } = 0.2;
 
     /// <summary>PSI above this is a moderate shift (watch). Default 0.1 (common practice).</summary>
-    public double PsiWatch { get; init; } = 0.1;
+    public double PsiModerate { get; init; } = 0.1;
 
     /// <summary>PSI above this is a large shift (refit due). Default 0.25 (common practice).</summary>
     public double PsiLarge { get; init; } = 0.25;
@@ -137,9 +137,9 @@ public sealed record MonitorOptions
             problems.Add("Scorer:Monitor:EwmaLambda must be between 0 and 1.");
         }
 
-        if (PsiWatch <= 0 || PsiLarge <= PsiWatch)
+        if (PsiModerate <= 0 || PsiLarge <= PsiModerate)
         {
-            problems.Add("Scorer:Monitor:PsiWatch must be positive and below Scorer:Monitor:PsiLarge.");
+            problems.Add("Scorer:Monitor:PsiModerate must be positive and below Scorer:Monitor:PsiLarge.");
         }
 
         if (MinEvents < 1 || CusumMinSample < 10 || CusumSample < CusumMinSample)

@@ -169,10 +169,10 @@ public static class StatusRules
                     inputsMoved = true;
                     reasons.Add($"PSI of {name} is {F(psi)} over {window}, above {F(options.PsiLarge)}: a large shift from the training baseline (common practice).");
                 }
-                else if (psi > options.PsiWatch)
+                else if (psi > options.PsiModerate)
                 {
                     watch = true;
-                    reasons.Add($"PSI of {name} is {F(psi)} over {window}, above {F(options.PsiWatch)}: a moderate shift from the training baseline (common practice).");
+                    reasons.Add($"PSI of {name} is {F(psi)} over {window}, above {F(options.PsiModerate)}: a moderate shift from the training baseline (common practice).");
                 }
             }
         }

@@ -331,13 +331,13 @@
   function psiChart(container, report, overview) {
     const psi = report.psi || {};
     const series = [];
-    if (psi.score !== undefined && psi.score !== null) series.push(['linear predictor', Number(psi.score)]);
+    if (psi.linearPredictor !== undefined && psi.linearPredictor !== null) series.push(['linear predictor', Number(psi.linearPredictor)]);
     for (const [name, value] of Object.entries(psi.features || {}).sort()) series.push([name, Number(value)]);
     if (series.length === 0) {
       empty(container, 'No scored rows with a baseline in this window yet.');
       return;
     }
-    const watch = overview ? overview.psiWatch : 0.1;
+    const watch = overview ? overview.psiModerate : 0.1;
     const large = overview ? overview.psiLarge : 0.25;
     const max = Math.max(large * 1.3, ...series.map((r) => r[1] * 1.15));
     const rowH = 30;
@@ -453,7 +453,7 @@
     const words = { promote: 'promote', 'keep-live': 'keep live', undecided: 'undecided' };
     const pair = (d, digits) => (d ? `${num(d.live, digits)} → ${num(d.shadow, digits)}` : '–');
     tableSlot.replaceChildren(h('table', {},
-      h('thead', {}, h('tr', {}, ['Shadow', 'Paired', 'Log loss', 'Brier', 'AUC', 'Verdict'].map((c, i) => h('th', { scope: 'col', class: i === 1 ? 'num' : null }, c)))),
+      h('thead', {}, h('tr', {}, ['Shadow', 'Paired', 'Log loss', 'Brier', 'AUC', 'Recommendation'].map((c, i) => h('th', { scope: 'col', class: i === 1 ? 'num' : null }, c)))),
       h('tbody', {}, shadows.map((sh) => [
         h('tr', { 'data-shadow': sh.version },
           h('th', { scope: 'row', class: 'version-name' }, sh.version), h('td', { class: 'num' }, count(sh.paired)),
@@ -548,7 +548,7 @@
         h('td', {}, h('span', { class: `stage ${v.stage}` }, v.stage)),
         h('td', {}, chip(v.status)),
         h('td', { class: 'num' }, count(v.scoredLastHour), h('br'), h('span', { class: 'note' }, `${count(v.scored24h)} in 24 h`)),
-        h('td', { class: 'num', 'data-labelled': String(v.labelled ?? '') }, count(v.labelled), h('br'), h('span', { class: 'note' }, `${count(v.immature)} waiting`)),
+        h('td', { class: 'num', 'data-labelled': String(v.labelled ?? '') }, count(v.labelled), h('br'), h('span', { class: 'note' }, `${count(v.immature)} immature`)),
         h('td', { class: 'num', 'data-events': String(v.events ?? '') }, count(v.events)),
         h('td', {}, v.lastChange ? lastChange({ ...v, model: m.model }) : '–')));
       const reasons = v.reasons || [];
@@ -671,7 +671,7 @@
       const figure = (label, value, small) => h('div', {}, h('dt', {}, label), h('dd', {}, value, small ? h('small', {}, small) : null));
       const level = `${Math.round((r.level || 0.95) * 100)}%`;
       $('figures').replaceChildren(
-        figure('Labelled', count(r.labelled), `${count(r.immature)} still waiting${r.provisional ? ' · provisional' : ''}`),
+        figure('Labelled', count(r.labelled), `${count(r.immature)} immature${r.provisional ? ' · provisional' : ''}`),
         figure('Events', count(r.events), `expected ${num(r.expected, 1)}`),
         figure('Observed / expected', r.observedExpected ? num(r.observedExpected.estimate) : '–', r.observedExpected ? `${level}: ${interval(r.observedExpected)}` : 'not estimable'),
         figure('Calibration slope', r.calibrationSlope ? num(r.calibrationSlope.estimate) : '–', r.calibrationSlope ? `${level}: ${interval(r.calibrationSlope)}` : 'not estimable'),

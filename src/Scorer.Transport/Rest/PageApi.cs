@@ -143,7 +143,7 @@ public sealed class PageApi
 
         w.WriteEndArray();
         w.WriteNumber("level", options.Level);
-        w.WriteNumber("psiWatch", options.PsiWatch);
+        w.WriteNumber("psiModerate", options.PsiModerate);
         w.WriteNumber("psiLarge", options.PsiLarge);
         w.WriteStartArray("models");
         foreach (var entry in snapshot.Models.Values)

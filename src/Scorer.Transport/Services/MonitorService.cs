@@ -253,7 +253,7 @@ public sealed class MonitorService(ModelRegistry registry, MonitorReporter repor
         report.Psi = new V1.Psi { Rows = s.Drift.Rows };
         if (s.Drift.Score is { } psi)
         {
-            report.Psi.Score = psi;
+            report.Psi.LinearPredictor = psi;
         }
 
         foreach (var (name, value) in s.Drift.Features)
