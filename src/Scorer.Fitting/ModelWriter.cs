@@ -46,6 +46,7 @@ internal static class ModelWriter
         var withOffset = model.TermCount > k;
         var maxSe = 0.0;
         var row = new double[model.TermCount];
+        var sums = new double[model.TermCount];
         for (var i = 0; i < n; i++)
         {
             x.AsSpan(i * k, k).CopyTo(row);
@@ -55,7 +56,15 @@ internal static class ModelWriter
             }
 
             maxSe = Math.Max(maxSe, model.ScoreDesign(row, Engine.Scoring.ScoreSettings.Default).Se);
+            for (var j = 0; j < row.Length; j++)
+            {
+                sums[j] += row[j];
+            }
         }
+
+        // The unweighted mean of each term's value over the training rows (the column means of the design, as R's
+        // predict(type = "terms") centres), so that contributions say how far a row moves η from a typical one.
+        var termMeans = model.VaryingTerms.ToImmutableDictionary(j => model.TermNames[j], j => sums[j] / n, StringComparer.Ordinal);
 
         var numeric = ImmutableDictionary.CreateBuilder<string, BinnedBaseline>(StringComparer.Ordinal);
         foreach (var f in model.Document.Features.Where(f => f.Kind == FeatureKind.Numeric && data.Numeric.ContainsKey(f.Name)))
@@ -86,6 +95,7 @@ internal static class ModelWriter
             MaxSe = maxSe,
             Numeric = numeric.ToImmutable(),
             Levels = levels.ToImmutable(),
+            TermMeans = termMeans,
         };
     }
 

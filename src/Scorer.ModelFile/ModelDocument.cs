@@ -145,4 +145,11 @@ public sealed record BaselineSpec
     public ImmutableDictionary<string, BinnedBaseline> Numeric { get; init; } = ImmutableDictionary<string, BinnedBaseline>.Empty;
     public ImmutableDictionary<string, ImmutableDictionary<string, double>> Levels { get; init; } =
         ImmutableDictionary<string, ImmutableDictionary<string, double>>.Empty;
+
+    /// <summary>
+    /// The mean over the training rows of each term's value (a column of the design; terms without factors, the
+    /// intercept, are left out), by term name; empty when the file gives none. Contributions are then reported
+    /// relative to a typical row: β_j (x_j − x̄_j).
+    /// </summary>
+    public ImmutableDictionary<string, double> TermMeans { get; init; } = ImmutableDictionary<string, double>.Empty;
 }

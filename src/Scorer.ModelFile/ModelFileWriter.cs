@@ -1,3 +1,4 @@
+using System.Collections.Immutable;
 using System.Text.Json;
 
 namespace Scorer.ModelFile;
@@ -102,7 +103,7 @@ public static class ModelFileWriter
 
         if (doc.Baseline is { } b)
         {
-            WriteBaseline(w, b);
+            WriteBaseline(w, b, doc.Terms);
         }
 
         if (doc.Fit is { } fit)
@@ -232,7 +233,7 @@ public static class ModelFileWriter
         w.WriteEndObject();
     }
 
-    private static void WriteBaseline(Utf8JsonWriter w, BaselineSpec b)
+    private static void WriteBaseline(Utf8JsonWriter w, BaselineSpec b, ImmutableArray<TermSpec> terms)
     {
         w.WriteStartObject("baseline");
         w.WriteNumber("n", b.N);
@@ -246,6 +247,17 @@ public static class ModelFileWriter
         if (b.MaxSe is { } maxSe)
         {
             w.WriteNumber("max_se", maxSe);
+        }
+
+        if (b.TermMeans.Count > 0)
+        {
+            w.WriteStartObject("term_means");
+            foreach (var term in terms.Where(t => b.TermMeans.ContainsKey(t.Name)))
+            {
+                w.WriteNumber(term.Name, b.TermMeans[term.Name]);
+            }
+
+            w.WriteEndObject();
         }
 
         if (b.Numeric.Count > 0 || b.Levels.Count > 0)

@@ -49,6 +49,34 @@ public sealed class ReferenceScoringTests
 
     [Theory]
     [MemberData(nameof(Cases))]
+    public void Contributions_from_the_training_means_sum_per_term_to_R_predict_type_terms(string dataset, string link)
+    {
+        // R's predict(type = "terms") gives each model term's part of eta centred at the training column means; a term
+        // of R spans the coefficients terms-assign.csv gives it (a factor's dummies, an interaction with a factor).
+        var model = CompiledModel.Compile(ReferenceData.Model($"{dataset}-{link}"));
+        Assert.True(model.ContributionsFromMeans);
+        var rows = ReferenceData.Csv($"{dataset}.rows.csv");
+        var expected = ReferenceData.Csv($"{dataset}-{link}.terms.csv");
+        var assign = ReferenceData.Csv($"{dataset}-{link}.terms-assign.csv").Select(a => int.Parse(a["term"], System.Globalization.CultureInfo.InvariantCulture)).ToArray();
+        Assert.Equal(model.TermCount, assign.Length);
+        var contributions = new double[model.TermCount];
+        for (var i = 0; i < rows.Count; i++)
+        {
+            var r = model.Score(ReferenceData.Row(model, rows[i]), ScoreSettings.Default, contributions);
+            Assert.False(r.Failed, $"row {i + 1}: {r.Error}");
+            for (var t = 1; t <= expected[i].Count; t++)
+            {
+                var ours = model.VaryingTerms.Where(j => assign[j] == t).Sum(j => contributions[j]);
+                var theirs = ReferenceData.D(expected[i][$"term{t}"]);
+                Assert.True(Math.Abs(ours - theirs) <= 1e-9 * Math.Max(1, Math.Abs(r.Eta)), $"row {i + 1} term {t}: {ours:R} against R's {theirs:R}");
+            }
+        }
+
+        Assert.DoesNotContain(model.InterceptIndex, model.VaryingTerms);
+    }
+
+    [Theory]
+    [MemberData(nameof(Cases))]
     public void Dense_feature_path_gives_the_same_numbers_as_the_named_path(string dataset, string link)
     {
         var model = CompiledModel.Compile(ReferenceData.Model($"{dataset}-{link}"));

@@ -281,3 +281,25 @@ public sealed class OverflowTests
         }
     }
 }
+
+/// <summary>Which contributions a result lists and in which order: one rule for every transport.</summary>
+public sealed class ContributionOrderTests
+{
+    [Fact]
+    public void The_intercept_is_never_listed_all_keeps_term_order_and_top_n_ranks_by_size_with_ties_in_term_order()
+    {
+        var model = CompiledModel.Compile(Models.Pump());
+        // Terms: (intercept), log(vibration), temp, site=east, site=river, log(vibration):site=river.
+        double[] c = [-3, 0.5, -0.9, 0, 0.9, 0.2];
+        var order = new int[model.TermCount];
+
+        Assert.Equal(5, model.OrderContributions(c, 0, order));
+        Assert.Equal([1, 2, 3, 4, 5], order[..5]);
+
+        Assert.Equal(3, model.OrderContributions(c, 3, order));
+        Assert.Equal([2, 4, 1], order[..3]); // |−0.9| and |0.9| tie: term order; the intercept's −3 is not a contribution
+
+        Assert.Equal(5, model.OrderContributions(c, 50, order));
+        Assert.Equal(0, model.OrderContributions(c, -1, order));
+    }
+}

@@ -23,6 +23,31 @@ public sealed class BaselineRulesTests
         Assert.Equal(0.3, baseline.Levels["site"]["east"]);
     }
 
+    private static ModelFileLoadResult WithTermMeans(string means) =>
+        ModelFiles.ReadChanged(root => root["baseline"]!["term_means"] = ModelFiles.Json(means));
+
+    [Fact]
+    public void Term_means_are_read_and_written_back_in_term_order()
+    {
+        var result = WithTermMeans("""{ "site_river": 0.2, "log(vibration_rms)": 0.85, "site_east": 0.35 }""");
+        Problems.None(result);
+        var means = result.Document!.Baseline!.TermMeans;
+        Assert.Equal(0.85, means["log(vibration_rms)"]);
+        var written = ModelFileWriter.WriteToString(result.Document, indented: false);
+        Assert.Contains("\"term_means\":{\"log(vibration_rms)\":0.85,\"site_east\":0.35,\"site_river\":0.2}", written, StringComparison.Ordinal);
+        Assert.Equal(means, ModelFileReader.Read(System.Text.Encoding.UTF8.GetBytes(written)).Document!.Baseline!.TermMeans);
+    }
+
+    [Fact]
+    public void Term_means_for_some_terms_only_for_the_intercept_or_for_no_term_are_refused_naming_each()
+    {
+        Problems.Contains("no mean for 'site_east', 'site_river'", Problems.SingleErrorAt(WithTermMeans("""{ "log(vibration_rms)": 0.85 }"""), "$.baseline.term_means"));
+        var withIntercept = WithTermMeans("""{ "(Intercept)": 1, "log(vibration_rms)": 0.85, "site_east": 0.35, "site_river": 0.2 }""");
+        Problems.Contains("has no factors", Problems.SingleErrorAt(withIntercept, "$.baseline.term_means['(Intercept)']"));
+        var unknown = WithTermMeans("""{ "log(vibration_rms)": 0.85, "site_east": 0.35, "site_river": 0.2, "site_west": 0.1 }""");
+        Problems.Contains("is not a term of the model", Problems.SingleErrorAt(unknown, "$.baseline.term_means.site_west"));
+    }
+
     [Fact]
     public void Edges_that_decrease_are_rejected_with_the_path_of_the_edge()
     {

@@ -64,6 +64,13 @@ write_case <- function(name, formula, data, link, features, terms, newdata, outc
     sprintf('    {"name": %s, "coefficient": %s, "factors": %s}', str(tn), num(coefficient), arr(sapply(factors, factor_json)))
   }, names(terms), terms, b)
   cov_lines <- apply(v, 1, function(r) paste0("    ", arr(num(r))))
+  # The baseline gives the training mean of each term's value (the model matrix's column means), so that the engine
+  # reports contributions from a typical row, as predict(type = "terms") does.
+  mm <- model.matrix(fit)
+  means <- colMeans(mm)
+  varying <- names(b) != "(Intercept)"
+  baseline <- sprintf('{"n": %d, "events": %d, "term_means": {%s}}', nrow(mm), as.integer(sum(fit$y)),
+    paste(sprintf("%s: %s", sapply(names(terms)[varying], str), num(means[varying])), collapse = ", "))
   json <- paste0('{\n',
     '  "format": "scorer.model/1",\n',
     '  "model": ', str(name), ',\n',
@@ -73,7 +80,8 @@ write_case <- function(name, formula, data, link, features, terms, newdata, outc
     '  "outcome": ', outcome, ',\n',
     '  "features": [\n    ', paste(sapply(features, feature_json), collapse = ",\n    "), '\n  ],\n',
     '  "terms": [\n', paste(term_lines, collapse = ",\n"), '\n  ],\n',
-    '  "covariance": [\n', paste(cov_lines, collapse = ",\n"), '\n  ]\n',
+    '  "covariance": [\n', paste(cov_lines, collapse = ",\n"), '\n  ],\n',
+    '  "baseline": ', baseline, '\n',
     '}\n')
   stem <- file.path(out, paste0(name, "-", link))
   writeLines(json, paste0(stem, ".model.json"), sep = "")
@@ -86,6 +94,15 @@ write_case <- function(name, formula, data, link, features, terms, newdata, outc
     lower95 = num(inverse_link(link, eta - z95 * se)), upper95 = num(inverse_link(link, eta + z95 * se)),
     lower90 = num(inverse_link(link, eta - z90 * se)), upper90 = num(inverse_link(link, eta + z90 * se)))
   write.csv(expected, paste0(stem, ".expected.csv"), row.names = FALSE, quote = FALSE)
+
+  # predict(type = "terms"): each model term's part of eta, centred at the training means of its columns. A term of
+  # R (a factor, say) can span several coefficients: terms-assign.csv gives each coefficient's term (0: the intercept).
+  pt <- predict(fit, newdata = newdata, type = "terms")
+  terms_out <- as.data.frame(lapply(seq_len(ncol(pt)), function(j) num(unname(pt[, j]))))
+  names(terms_out) <- paste0("term", seq_len(ncol(pt)))
+  write.csv(terms_out, paste0(stem, ".terms.csv"), row.names = FALSE, quote = FALSE)
+  write.csv(data.frame(coefficient = seq_along(b), term = attr(mm, "assign")), paste0(stem, ".terms-assign.csv"),
+    row.names = FALSE, quote = FALSE)
   cat(sprintf("%-28s n=%d terms=%d deviance=%.6f\n", basename(stem), nrow(data), length(b), deviance(fit)))
 }
 

@@ -79,9 +79,10 @@ internal static class ScoreCommand
 
         if (o.Contributions)
         {
-            foreach (var t in model.TermNames)
+            // The terms that vary between rows, as the service lists them (CompiledModel.OrderContributions).
+            foreach (var t in model.VaryingTerms)
             {
-                output.Field("contribution:" + t);
+                output.Field("contribution:" + model.TermNames[t]);
             }
         }
 
@@ -126,7 +127,7 @@ internal static class ScoreCommand
                 output.Field($"{RowMessages.Field(model, r.Error)}: {RowMessages.Describe(model, r.Error)}");
                 if (o.Contributions)
                 {
-                    for (var t = 0; t < model.TermCount; t++)
+                    foreach (var t in model.VaryingTerms)
                     {
                         output.Field(null);
                     }
@@ -154,9 +155,9 @@ internal static class ScoreCommand
                 output.Field(null);
                 if (o.Contributions)
                 {
-                    foreach (var c in contributions)
+                    foreach (var t in model.VaryingTerms)
                     {
-                        output.Number(c);
+                        output.Number(contributions[t]);
                     }
                 }
             }

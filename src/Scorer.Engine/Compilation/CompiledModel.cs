@@ -46,6 +46,9 @@ public sealed partial class CompiledModel
 
     internal readonly double[] Beta;
 
+    // The value each term's contribution is measured from: its training mean (baseline.term_means), or 0.
+    internal readonly double[] ContributionOrigin;
+
     // Covariance factor F with V = F·Fᵀ, by rows: row i holds F[i, 0 .. len_i) packed from FactorRowStart[i]
     // (len_i = i + 1 for the Cholesky factor, k otherwise). Fᵀx accumulates row by row: u[0..len_i) += F[i, ·]·x_i,
     // and x'Vx = |u|².
@@ -146,6 +149,11 @@ public sealed partial class CompiledModel
             (FactorT, FactorTStart, FactorTFirst) = Transpose(Factor, FactorRowStart, FactorIsTriangular);
         }
 
+        var means = document.Baseline?.TermMeans ?? System.Collections.Immutable.ImmutableDictionary<string, double>.Empty;
+        ContributionsFromMeans = means.Count > 0;
+        ContributionOrigin = document.Terms.Select(t => means.TryGetValue(t.Name, out var m) ? m : 0.0).ToArray();
+        VaryingTerms = [.. Enumerable.Range(0, document.Terms.Length).Where(j => !document.Terms[j].IsIntercept)];
+
         MaxSe = document.Baseline?.MaxSe ?? double.PositiveInfinity;
         Threshold = document.Threshold ?? double.NaN;
     }
@@ -171,6 +179,18 @@ public sealed partial class CompiledModel
 
     /// <summary>The coefficients as scored (the intercept prior-corrected).</summary>
     public ReadOnlySpan<double> Coefficients => Beta;
+
+    /// <summary>
+    /// The terms whose value varies between rows (every term but the intercept), in term order: the only ones
+    /// contributions list and rank.
+    /// </summary>
+    public ImmutableArray<int> VaryingTerms { get; }
+
+    /// <summary>
+    /// True when the model file gives the training mean of every term (baseline.term_means): a contribution is then
+    /// β_j (x_j − x̄_j), how far this row's term moves η from a typical row's; otherwise β_j x_j.
+    /// </summary>
+    public bool ContributionsFromMeans { get; }
 
     /// <summary>Largest training se(η), or +∞ when the baseline does not give it.</summary>
     public double MaxSe { get; }

@@ -12,7 +12,7 @@ public sealed partial class CompiledModel
     /// <summary>Scores a row given as named values; names not in the model are ignored.</summary>
     /// <param name="row">The row's values with their names, in any order.</param>
     /// <param name="settings">Band or point only.</param>
-    /// <param name="contributions">Receives coefficient × term value per term (length <see cref="TermCount"/>), or empty.</param>
+    /// <param name="contributions">Receives β_j (x_j − x̄_j) per term, x̄_j the training mean when the file gives it, else 0 (length <see cref="TermCount"/>), or empty.</param>
     /// <param name="warnings">Receives the row's warnings (length <see cref="MaxWarningsPerRow"/>), or empty.</param>
     public ScoredRow Score(ReadOnlySpan<NamedValue> row, in ScoreSettings settings, Span<double> contributions = default, Span<RowWarning> warnings = default)
     {
@@ -397,9 +397,10 @@ public sealed partial class CompiledModel
 
         if (contributions.Length >= beta.Length)
         {
+            var origin = ContributionOrigin;
             for (var j = 0; j < beta.Length; j++)
             {
-                contributions[j] = beta[j] * x[j];
+                contributions[j] = beta[j] * (x[j] - origin[j]);
             }
         }
 
@@ -444,6 +445,40 @@ public sealed partial class CompiledModel
 
         r.WarningCount = warningCount;
         return r;
+    }
+
+    /// <summary>
+    /// Which contributions a result lists, in which order (the one rule every transport follows): the terms that vary
+    /// between rows only (never the intercept); <paramref name="top"/> 0 lists them all in term order, N &gt; 0 the N
+    /// largest by absolute value (ties in term order). Writes term indices into <paramref name="order"/> (length at
+    /// least <see cref="TermCount"/>) and returns how many.
+    /// </summary>
+    public int OrderContributions(ReadOnlySpan<double> contributions, int top, Span<int> order)
+    {
+        var varying = VaryingTerms.AsSpan();
+        varying.CopyTo(order);
+        var count = varying.Length;
+        if (top <= 0)
+        {
+            return top < 0 ? 0 : count;
+        }
+
+        // Insertion sort by |value| descending; stable, so ties keep term order. Terms are few (at most MaxTerms).
+        for (var i = 1; i < count; i++)
+        {
+            var j = order[i];
+            var a = Math.Abs(contributions[j]);
+            var p = i - 1;
+            while (p >= 0 && Math.Abs(contributions[order[p]]) < a)
+            {
+                order[p + 1] = order[p];
+                p--;
+            }
+
+            order[p + 1] = j;
+        }
+
+        return Math.Min(top, count);
     }
 
     /// <summary>x'Vx as |Fᵀx|², F the covariance factor, accumulated row by row (rows where x_i = 0 cost nothing).</summary>

@@ -33,7 +33,7 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
         var terms = ReadTerms(root, features);
         var covariance = ReadCovariance(root, terms.Length);
         var sampling = ReadSampling(root, terms, link);
-        var baseline = ReadBaseline(root, features);
+        var baseline = ReadBaseline(root, features, terms);
         CheckUnusedFeatures(features, terms);
 
         double? threshold = root.TryGetProperty("threshold", out var t) && t.ValueKind == JsonValueKind.Number ? t.GetDouble() : null;
@@ -494,7 +494,7 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
         return training is { } tr && population is { } po ? new SamplingSpec(tr, po) : null;
     }
 
-    private BaselineSpec? ReadBaseline(JsonElement root, ImmutableArray<FeatureSpec> features)
+    private BaselineSpec? ReadBaseline(JsonElement root, ImmutableArray<FeatureSpec> features, ImmutableArray<TermSpec> terms)
     {
         if (!root.TryGetProperty("baseline", out var b) || b.ValueKind != JsonValueKind.Object)
         {
@@ -571,7 +571,59 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
             MaxSe = maxSe,
             Numeric = numeric.ToImmutable(),
             Levels = levels.ToImmutable(),
+            TermMeans = b.TryGetProperty("term_means", out var tm) ? ReadTermMeans(tm, terms, ConstantTerms(root)) : ImmutableDictionary<string, double>.Empty,
         };
+    }
+
+    /// <summary>baseline.term_means: a finite mean for every term with factors, and for nothing else.</summary>
+    /// <summary>The names of the terms the file gives without factors (the intercept), as written, whatever else is wrong with them.</summary>
+    private static HashSet<string> ConstantTerms(JsonElement root) =>
+        root.TryGetProperty("terms", out var ts) && ts.ValueKind == JsonValueKind.Array
+            ? [.. ts.EnumerateArray()
+                .Where(t => t.ValueKind == JsonValueKind.Object && t.TryGetProperty("name", out var n) && n.ValueKind == JsonValueKind.String
+                    && (!t.TryGetProperty("factors", out var f) || (f.ValueKind == JsonValueKind.Array && f.GetArrayLength() == 0)))
+                .Select(t => t.GetProperty("name").GetString()!)]
+            : [];
+
+    private ImmutableDictionary<string, double> ReadTermMeans(JsonElement e, ImmutableArray<TermSpec> terms, HashSet<string> constant)
+    {
+        const string path = "$.baseline.term_means";
+        var means = ImmutableDictionary.CreateBuilder<string, double>(StringComparer.Ordinal);
+        if (e.ValueKind != JsonValueKind.Object)
+        {
+            Error(path, "expected an object: the training mean of each term's value, by term name");
+            return means.ToImmutable();
+        }
+
+        var byName = terms.ToDictionary(t => t.Name, StringComparer.Ordinal);
+        foreach (var p in e.EnumerateObject())
+        {
+            var at = JsonPath.Property(path, p.Name);
+            if (!byName.TryGetValue(p.Name, out var term))
+            {
+                Error(at, $"'{p.Name}' is not a term of the model");
+            }
+            else if (constant.Contains(p.Name))
+            {
+                Error(at, $"'{p.Name}' has no factors: its value is 1 in every row, so it has no mean to report against", "leave it out");
+            }
+            else if (p.Value.ValueKind != JsonValueKind.Number || !double.IsFinite(p.Value.GetDouble()))
+            {
+                Error(at, "expected a finite number: the mean of the term's value over the training rows");
+            }
+            else
+            {
+                means[p.Name] = p.Value.GetDouble();
+            }
+        }
+
+        var missing = terms.Where(t => !constant.Contains(t.Name) && !e.TryGetProperty(t.Name, out _)).Select(t => t.Name).ToList();
+        if (means.Count > 0 && missing.Count > 0)
+        {
+            Error(path, $"no mean for {string.Join(", ", missing.Take(5).Select(m => $"'{m}'"))}{(missing.Count > 5 ? $" and {missing.Count - 5} more" : "")}: give one for every term with factors, or none");
+        }
+
+        return means.ToImmutable();
     }
 
     private BinnedBaseline? ReadBins(JsonElement e, string path)

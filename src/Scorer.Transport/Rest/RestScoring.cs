@@ -381,20 +381,11 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
         w.WriteStartArray("contributions"u8);
         if (top >= 0)
         {
-            if (top == 0)
+            Span<int> order = model.TermCount <= 256 ? stackalloc int[model.TermCount] : new int[model.TermCount];
+            var listed = model.OrderContributions(contributions, top, order);
+            foreach (var j in order[..listed])
             {
-                for (var j = 0; j < model.TermCount; j++)
-                {
-                    WriteContribution(w, model.TermNames[j], contributions[j]);
-                }
-            }
-            else
-            {
-                // Stable by size, as the gRPC path orders them.
-                foreach (var j in Enumerable.Range(0, model.TermCount).OrderByDescending(j => Math.Abs(contributions[j])).Take(top))
-                {
-                    WriteContribution(w, model.TermNames[j], contributions[j]);
-                }
+                WriteContribution(w, model.TermNames[j], contributions[j]);
             }
         }
 

@@ -311,13 +311,9 @@ public sealed class ScoringService(ScoringCore core) : Scoring.ScoringBase
 
         if (top >= 0)
         {
-            var order = Enumerable.Range(0, model.TermCount);
-            if (top > 0)
-            {
-                order = order.OrderByDescending(j => Math.Abs(contributions[j])).Take(top);
-            }
-
-            foreach (var j in order)
+            Span<int> order = model.TermCount <= 256 ? stackalloc int[model.TermCount] : new int[model.TermCount];
+            var listed = model.OrderContributions(contributions, top, order);
+            foreach (var j in order[..listed])
             {
                 result.Contributions.Add(new Contribution { Term = model.TermNames[j], Value = contributions[j] });
             }
