@@ -75,7 +75,12 @@ public sealed class ReplicaTests(ITestOutputHelper output) : IDisposable
             }
 
             await PostOutcomesAsync(b.Http, outcomes.Take(FirstOutcomes));
-            await WaitForChartsAsync(c.Http, FirstOutcomes);
+            foreach (var replica in replicas)
+            {
+                // Each replica shows the charts from the state the holder saved, at its own next report: wait for all.
+                await WaitForChartsAsync(replica.Http, FirstOutcomes);
+            }
+
             var reports = await Task.WhenAll(replicas.Select(r => ReportAsync(r.Http)));
             AssertSameReport(reports[0], reports[1], "replica 1 and replica 2");
             AssertSameReport(reports[0], reports[2], "replica 1 and replica 3");
