@@ -108,7 +108,7 @@ public static class ScorerServer
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.MonitorReporter>();
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.DriftTracker>();
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.MonitorLoop>();
-        builder.Services.AddSingleton<Scorer.Monitor.Reporting.StatusWebhook>();
+        Scorer.Monitor.Reporting.StatusWebhook.AddStatusWebhook(builder.Services);
         builder.Services.AddSingleton<MonitorWatch>();
         builder.Services.AddSingleton<Scorer.Transport.Rest.MonitorEvents>();
         builder.Services.AddSingleton<Scorer.Transport.Rest.LabelledExport>();

@@ -50,23 +50,32 @@ public sealed record ShadowComparisonView(string Version, int Paired, PairedLoss
         var logLoss = PairedLoss.LogLoss(live, shadow, y, level);
         var brier = PairedLoss.Brier(live, shadow, y, level);
         var auc = Discrimination.Compare(shadow, live, y, level);
+        var (verdict, reason) = Decide(pairs.Count, logLoss, auc, level);
+        return new ShadowComparisonView(version, pairs.Count, logLoss, brier, auc, verdict, reason);
+    }
+
+    /// <summary>
+    /// The rule, from the paired statistics: keep the live version when the shadow's log loss is shown higher (the
+    /// difference live − shadow has its interval wholly below 0) or its AUC shown lower (shadow − live wholly below 0);
+    /// otherwise promote when its log loss is shown lower (the interval wholly above 0); otherwise undecided. An interval
+    /// that touches 0 shows nothing; one that cannot be computed (NaN) shows nothing either.
+    /// </summary>
+    public static (ShadowVerdict Verdict, string Reason) Decide(int paired, PairedLossComparison logLoss, PairedAucComparison auc, double level)
+    {
         var pct = (level * 100).ToString("0.#", CultureInfo.InvariantCulture) + "%";
         string F(double x) => x.ToString("0.####", CultureInfo.InvariantCulture);
         var lossText = $"log loss live {F(logLoss.MeanA)} vs shadow {F(logLoss.MeanB)} (difference {F(logLoss.Difference)}, {pct} interval {F(logLoss.Lower)} to {F(logLoss.Upper)})";
         var aucText = $"AUC shadow {F(auc.AucA)} vs live {F(auc.AucB)} (difference {F(auc.Difference)}, {pct} interval {F(auc.Lower)} to {F(auc.Upper)})";
         if (logLoss.Upper < 0 || auc.Upper < 0)
         {
-            return new ShadowComparisonView(version, pairs.Count, logLoss, brier, auc, ShadowVerdict.KeepLive,
-                $"Keep the live version: the shadow does worse on {pairs.Count} paired outcomes: {lossText}; {aucText}.");
+            return (ShadowVerdict.KeepLive, $"Keep the live version: the shadow does worse on {paired} paired outcomes: {lossText}; {aucText}.");
         }
 
         if (logLoss.Lower > 0)
         {
-            return new ShadowComparisonView(version, pairs.Count, logLoss, brier, auc, ShadowVerdict.Promote,
-                $"Promote: the shadow has the lower log loss on {pairs.Count} paired outcomes, and its AUC is not worse: {lossText}; {aucText}.");
+            return (ShadowVerdict.Promote, $"Promote: the shadow has the lower log loss on {paired} paired outcomes, and its AUC is not worse: {lossText}; {aucText}.");
         }
 
-        return new ShadowComparisonView(version, pairs.Count, logLoss, brier, auc, ShadowVerdict.Undecided,
-            $"Undecided: no difference shown yet on {pairs.Count} paired outcomes: {lossText}; {aucText}.");
+        return (ShadowVerdict.Undecided, $"Undecided: no difference shown yet on {paired} paired outcomes: {lossText}; {aucText}.");
     }
 }

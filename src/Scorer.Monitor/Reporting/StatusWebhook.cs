@@ -1,7 +1,10 @@
 using System.Net.Http.Json;
 using System.Text.Json.Serialization;
 using System.Threading.Channels;
+using Microsoft.Extensions.DependencyInjection;
+using Microsoft.Extensions.Http.Resilience;
 using Microsoft.Extensions.Logging;
+using Polly;
 
 namespace Scorer.Monitor.Reporting;
 
@@ -16,39 +19,95 @@ public sealed record StatusChangeNotice(
     [property: JsonPropertyName("at")] DateTimeOffset At);
 
 /// <summary>
-/// Posts each status change to <see cref="MonitorOptions.Webhook"/>, one at a time in order, retrying a failed post
-/// with backoff (1, 2, 4, 8, 16 s) before giving up on it with an error in the log. Bounded: beyond 1,000 waiting
-/// notices the oldest are dropped (and logged).
+/// Posts each status change to <see cref="MonitorOptions.Webhook"/>, one at a time in order, through the named
+/// <see cref="HttpClient"/> <see cref="ClientName"/>, whose resilience pipeline (<see cref="AddStatusWebhook"/>) gives each
+/// attempt 10 s and retries a failed one after 1, 2, 4, 8 and 16 s, on the service's <see cref="TimeProvider"/>; a notice
+/// still not delivered then is given up with an error in the log. Bounded: beyond 1,000 waiting notices the oldest are
+/// dropped.
 /// </summary>
 public sealed class StatusWebhook : IAsyncDisposable
 {
-    private static readonly TimeSpan[] Backoff = [TimeSpan.FromSeconds(1), TimeSpan.FromSeconds(2), TimeSpan.FromSeconds(4), TimeSpan.FromSeconds(8), TimeSpan.FromSeconds(16)];
+    /// <summary>The name of the webhook's HttpClient.</summary>
+    public const string ClientName = "scorer-status-webhook";
+
+    /// <summary>Retries after the first attempt, 1 s apart doubling (1, 2, 4, 8, 16 s).</summary>
+    public const int Retries = 5;
 
     private readonly Channel<StatusChangeNotice> _queue = Channel.CreateBounded<StatusChangeNotice>(
         new BoundedChannelOptions(1_000) { FullMode = BoundedChannelFullMode.DropOldest, SingleReader = true });
 
-    private readonly HttpClient _http = new() { Timeout = TimeSpan.FromSeconds(10) };
+    private readonly IHttpClientFactory _clients;
     private readonly CancellationTokenSource _stop = new();
     private readonly Uri? _target;
     private readonly ILogger<StatusWebhook> _logger;
     private readonly Task _loop;
 
-    public StatusWebhook(MonitorOptions options, MonitorReporter reporter, TimeProvider time, ILogger<StatusWebhook> logger)
+    private readonly TimeProvider _time;
+
+    public StatusWebhook(MonitorOptions options, TimeProvider time, IHttpClientFactory clients, ILogger<StatusWebhook> logger)
     {
         _target = options.Webhook;
+        _time = time;
+        _clients = clients;
         _logger = logger;
         _loop = _target is null ? Task.CompletedTask : Task.Run(LoopAsync);
+    }
+
+    /// <summary>Queues a status change for the webhook (nothing happens without <see cref="MonitorOptions.Webhook"/>).</summary>
+    public void Notify(string model, string version, StatusJudgement judgement)
+    {
         if (_target is not null)
         {
-            reporter.StatusChanged += (model, version, judgement) =>
-                _queue.Writer.TryWrite(new StatusChangeNotice(model, version, judgement.Name, judgement.ActionName, judgement.Reasons, judgement.Advice, time.GetUtcNow()));
+            _queue.Writer.TryWrite(new StatusChangeNotice(model, version, judgement.Name, judgement.ActionName, judgement.Reasons, judgement.Advice, _time.GetUtcNow()));
         }
     }
 
     /// <summary>Notices posted successfully since start.</summary>
-    public long Delivered { get; private set; }
+    public long Delivered => Interlocked.Read(ref _delivered);
 
+    private long _delivered;
     private int _disposed;
+
+    /// <summary>
+    /// Registers the webhook and its HttpClient: each attempt timed out after 10 s, a failed one (a connection error,
+    /// a timeout, a 408, 429 or 5xx answer) retried <see cref="Retries"/> times with exponential backoff from 1 s, without
+    /// jitter, on the <see cref="TimeProvider"/> registered in the container.
+    /// </summary>
+    public static IServiceCollection AddStatusWebhook(IServiceCollection services)
+    {
+        services.AddHttpClient(ClientName, c => c.Timeout = Timeout.InfiniteTimeSpan) // the pipeline times each attempt
+            .AddResilienceHandler("status-webhook", (pipeline, context) =>
+            {
+                pipeline.TimeProvider = context.ServiceProvider.GetService<TimeProvider>() ?? TimeProvider.System;
+                var logger = context.ServiceProvider.GetRequiredService<ILogger<StatusWebhook>>();
+                pipeline.AddRetry(new HttpRetryStrategyOptions
+                {
+                    MaxRetryAttempts = Retries,
+                    BackoffType = DelayBackoffType.Exponential,
+                    Delay = TimeSpan.FromSeconds(1),
+                    UseJitter = false,
+                    ShouldRetryAfterHeader = false,
+                    OnRetry = args =>
+                    {
+                        logger.LogWarning("Posting a status change to the webhook failed ({Error}); attempt {Attempt} of {Attempts} in {Delay}",
+                            args.Outcome.Exception?.Message ?? $"HTTP {(int?)args.Outcome.Result?.StatusCode}", args.AttemptNumber + 2, Retries + 1, args.RetryDelay);
+                        return ValueTask.CompletedTask;
+                    },
+                });
+                pipeline.AddTimeout(TimeSpan.FromSeconds(10));
+            });
+        services.AddSingleton(sp =>
+        {
+            var webhook = ActivatorUtilities.CreateInstance<StatusWebhook>(sp);
+            if (sp.GetService<MonitorReporter>() is { } reporter)
+            {
+                reporter.StatusChanged += webhook.Notify;
+            }
+
+            return webhook;
+        });
+        return services;
+    }
 
     public async ValueTask DisposeAsync()
     {
@@ -67,36 +126,24 @@ public sealed class StatusWebhook : IAsyncDisposable
         {
         }
 
-        _http.Dispose();
         _stop.Dispose();
     }
 
     private async Task LoopAsync()
     {
+        var http = _clients.CreateClient(ClientName);
         await foreach (var notice in _queue.Reader.ReadAllAsync(_stop.Token).ConfigureAwait(false))
         {
-            for (var attempt = 0; ; attempt++)
+            try
             {
-                try
-                {
-                    using var response = await _http.PostAsJsonAsync(_target, notice, _stop.Token).ConfigureAwait(false);
-                    response.EnsureSuccessStatusCode();
-                    Delivered++;
-                    break;
-                }
-                catch (Exception ex) when (ex is HttpRequestException or TaskCanceledException && !_stop.IsCancellationRequested)
-                {
-                    if (attempt >= Backoff.Length)
-                    {
-                        _logger.LogError(ex, "Giving up posting the status change of {Model} {Version} to {Webhook} after {Attempts} attempts",
-                            notice.Model, notice.Version, _target, attempt + 1);
-                        break;
-                    }
-
-                    _logger.LogWarning("Posting the status change of {Model} {Version} to {Webhook} failed ({Error}); retrying in {Delay}",
-                        notice.Model, notice.Version, _target, ex.Message, Backoff[attempt]);
-                    await Task.Delay(Backoff[attempt], _stop.Token).ConfigureAwait(false);
-                }
+                using var response = await http.PostAsJsonAsync(_target, notice, _stop.Token).ConfigureAwait(false);
+                response.EnsureSuccessStatusCode();
+                Interlocked.Increment(ref _delivered);
+            }
+            catch (Exception ex) when (ex is HttpRequestException or TaskCanceledException or Polly.Timeout.TimeoutRejectedException && !_stop.IsCancellationRequested)
+            {
+                _logger.LogError(ex, "Giving up posting the status change of {Model} {Version} to {Webhook} after {Attempts} attempts",
+                    notice.Model, notice.Version, _target, Retries + 1);
             }
         }
     }

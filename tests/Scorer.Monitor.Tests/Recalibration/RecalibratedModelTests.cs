@@ -180,6 +180,7 @@ public sealed class RecalibratedModelTests(ITestOutputHelper output)
         {
             Terms = old.Terms.Add(new TermSpec("offset(age/10)", 1.0, [new FactorSpec { Feature = "age", Scale = 10 }])),
             Covariance = [.. v.Select(row => row.Add(0.0)), ImmutableArray.CreateRange(Enumerable.Repeat(0.0, k + 1))],
+            Baseline = old.Baseline! with { TermMeans = ImmutableDictionary<string, double>.Empty }, // no training mean for the added term
         };
         var oldModel = CompiledModel.Compile(withOffset);
         var rows = PimaRows(oldModel);
