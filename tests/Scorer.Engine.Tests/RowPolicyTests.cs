@@ -300,6 +300,7 @@ public sealed class ContributionOrderTests
         Assert.Equal([2, 4, 1], order[..3]); // |−0.9| and |0.9| tie: term order; the intercept's −3 is not a contribution
 
         Assert.Equal(5, model.OrderContributions(c, 50, order));
+        Assert.Equal([2, 4, 1, 5, 3], order[..5]); // all, by size: 0.9, 0.9 (term order), 0.5, 0.2, 0
         Assert.Equal(0, model.OrderContributions(c, -1, order));
     }
 }

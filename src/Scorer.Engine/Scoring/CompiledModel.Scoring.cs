@@ -463,22 +463,27 @@ public sealed partial class CompiledModel
             return top < 0 ? 0 : count;
         }
 
-        // Insertion sort by |value| descending; stable, so ties keep term order. Terms are few (at most MaxTerms).
-        for (var i = 1; i < count; i++)
+        // Selection of the largest N, O(terms × N) without allocation: at each place the largest |value| left, the
+        // lowest term index among equal ones, so ties keep term order.
+        var listed = Math.Min(top, count);
+        for (var t = 0; t < listed; t++)
         {
-            var j = order[i];
-            var a = Math.Abs(contributions[j]);
-            var p = i - 1;
-            while (p >= 0 && Math.Abs(contributions[order[p]]) < a)
+            var best = t;
+            var bestSize = Math.Abs(contributions[order[t]]);
+            for (var i = t + 1; i < count; i++)
             {
-                order[p + 1] = order[p];
-                p--;
+                var size = Math.Abs(contributions[order[i]]);
+                if (size > bestSize || (size == bestSize && order[i] < order[best]))
+                {
+                    best = i;
+                    bestSize = size;
+                }
             }
 
-            order[p + 1] = j;
+            (order[t], order[best]) = (order[best], order[t]);
         }
 
-        return Math.Min(top, count);
+        return listed;
     }
 
     /// <summary>x'Vx as |Fᵀx|², F the covariance factor, accumulated row by row (rows where x_i = 0 cost nothing).</summary>
