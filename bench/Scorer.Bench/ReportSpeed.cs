@@ -1,7 +1,7 @@
 using System.Diagnostics;
 using System.Globalization;
 using Scorer.Monitor.Reporting;
-using Scorer.Monitor.Statistics;
+using Scorer.Statistics;
 using Scorer.Store;
 using Scorer.Store.Sqlite;
 

@@ -1,7 +1,7 @@
 using System.Net;
 using System.Net.Http.Headers;
 using System.Text.Json;
-using Scorer.Monitor.Statistics;
+using Scorer.Statistics;
 using Scorer.Store;
 
 namespace Scorer.Page.Tests;

@@ -8,7 +8,7 @@ using Microsoft.AspNetCore.Hosting.Server.Features;
 using Microsoft.Extensions.Configuration;
 using Microsoft.Extensions.DependencyInjection;
 using Scorer.ModelFile;
-using Scorer.Monitor.Recalibration;
+using Scorer.Statistics.Recalibration;
 using Scorer.Server;
 using Scorer.Store;
 

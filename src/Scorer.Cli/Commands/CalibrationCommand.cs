@@ -1,6 +1,6 @@
 using System.Globalization;
 using System.Text.Json;
-using Scorer.Monitor.Statistics;
+using Scorer.Statistics;
 using Scorer.Tabular;
 
 namespace Scorer.Cli.Commands;

@@ -1,6 +1,6 @@
 using System.Globalization;
 using Scorer.ModelFile;
-using Scorer.Monitor.Recalibration;
+using Scorer.Statistics.Recalibration;
 
 namespace Scorer.Cli.Commands;
 

@@ -3,7 +3,7 @@ using System.Runtime.CompilerServices;
 using Scorer.Engine;
 using Scorer.Engine.Scoring;
 using Scorer.ModelFile;
-using Scorer.Monitor.Statistics;
+using Scorer.Statistics;
 using Scorer.Registry;
 using Scorer.Store;
 

@@ -1,7 +1,7 @@
 using System.Collections.Concurrent;
 using Microsoft.Extensions.Logging;
 using Scorer.ModelFile;
-using Scorer.Monitor.Statistics;
+using Scorer.Statistics;
 using Scorer.Registry;
 using Scorer.Store;
 

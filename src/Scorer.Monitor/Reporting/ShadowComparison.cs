@@ -1,5 +1,5 @@
 using System.Globalization;
-using Scorer.Monitor.Statistics;
+using Scorer.Statistics;
 
 namespace Scorer.Monitor.Reporting;
 

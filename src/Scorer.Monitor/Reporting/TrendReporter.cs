@@ -1,5 +1,5 @@
-using Scorer.Monitor.Sequential;
-using Scorer.Monitor.Statistics;
+using Scorer.Statistics.Sequential;
+using Scorer.Statistics;
 using Scorer.Registry;
 using Scorer.Store;
 

@@ -8,7 +8,7 @@ using Microsoft.AspNetCore.Builder;
 using Microsoft.AspNetCore.Http;
 using Microsoft.AspNetCore.Routing;
 using Scorer.Monitor.Reporting;
-using Scorer.Monitor.Statistics;
+using Scorer.Statistics;
 using Scorer.Registry;
 using Scorer.Store;
 using Scorer.Transport.Services;

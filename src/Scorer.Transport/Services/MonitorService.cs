@@ -1,8 +1,8 @@
 using Google.Protobuf.WellKnownTypes;
 using Grpc.Core;
-using Scorer.Monitor.Recalibration;
+using Scorer.Statistics.Recalibration;
 using Scorer.Monitor.Reporting;
-using Scorer.Monitor.Statistics;
+using Scorer.Statistics;
 using Scorer.Registry;
 using Scorer.Transport.V1;
 

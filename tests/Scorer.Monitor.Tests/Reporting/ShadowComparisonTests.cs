@@ -1,5 +1,5 @@
 using Scorer.Monitor.Reporting;
-using Scorer.Monitor.Statistics;
+using Scorer.Statistics;
 using Scorer.Store;
 
 namespace Scorer.Monitor.Tests.Reporting;

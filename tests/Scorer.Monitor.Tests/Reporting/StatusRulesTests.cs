@@ -1,5 +1,5 @@
 using Scorer.Monitor.Reporting;
-using Scorer.Monitor.Statistics;
+using Scorer.Statistics;
 
 namespace Scorer.Monitor.Tests.Reporting;
 
