@@ -56,7 +56,7 @@ public sealed class ScorerOptions
     public Scorer.Monitor.Reporting.MonitorOptions Monitor { get; set; } = new();
 
     /// <summary>How outcomes are taken in: the conflict policy and the reports per request.</summary>
-    public Scorer.Transport.Services.OutcomeSettings Outcomes { get; set; } = new();
+    public Scorer.Application.Outcomes.OutcomeSettings Outcomes { get; set; } = new();
 
     /// <summary>Every problem of the settings at once, each naming the setting.</summary>
     public IReadOnlyList<string> Validate()

@@ -100,7 +100,12 @@ public static class ScorerServer
         builder.Services.AddSingleton(sp => new PredictionLog(sp.GetRequiredService<IScorerStore>(), options.PredictionLog, sp.GetRequiredService<ILogger<PredictionLog>>(),
             sp.GetRequiredService<TimeProvider>()));
         builder.Services.AddSingleton<ShadowScorer>();
-        builder.Services.AddSingleton<ScoringCore>();
+        // The application layer (src/Scorer.Application): every transport goes through these.
+        builder.Services.AddSingleton<Scorer.Application.Models.ModelCatalog>();
+        builder.Services.AddSingleton<Scorer.Application.Scoring.ScoringPipeline>();
+        builder.Services.AddSingleton<Scorer.Application.Models.StageChanges>();
+        builder.Services.AddSingleton<Scorer.Application.Outcomes.OutcomeIntake>();
+        builder.Services.AddSingleton<Scorer.Application.Monitoring.Recalibration>();
         builder.Services.AddSingleton(options.Monitor);
         builder.Services.AddSingleton(options.Outcomes);
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.ChartRunner>();
@@ -277,7 +282,7 @@ public static class ScorerServer
             options.Http, options.Grpc, options.Store.Describe(), Path.GetFullPath(options.ModelsPath));
         foreach (var version in snapshot.Models.Values.SelectMany(m => m.Versions))
         {
-            logger.LogInformation("Loaded {Model} {Version} ({Stage})", version.Model, version.Version, ModelsService.StageName(version.Stage));
+            logger.LogInformation("Loaded {Model} {Version} ({Stage})", version.Model, version.Version, Scorer.Application.Models.ModelCatalog.StageName(version.Stage));
         }
 
         foreach (var failure in snapshot.Failures)

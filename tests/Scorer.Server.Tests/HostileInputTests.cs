@@ -456,7 +456,7 @@ public sealed class HostileInputTests : IAsyncLifetime
         }
 
         // Closed streams give their places back.
-        var subscribers = _server.Service<Scorer.Transport.EventSubscribers>();
+        var subscribers = _server.Service<Scorer.Application.EventSubscribers>();
         Assert.True(await Files.EventuallyAsync(() => Task.FromResult(subscribers.Open == 0), TimeSpan.FromSeconds(30)), $"{subscribers.Open} streams still open");
         using var again = await _server.Http.GetAsync($"/v1/models/{Pump}/monitor/events", HttpCompletionOption.ResponseHeadersRead);
         Assert.Equal(HttpStatusCode.OK, again.StatusCode);

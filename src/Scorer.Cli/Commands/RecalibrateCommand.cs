@@ -54,23 +54,26 @@ internal static class RecalibrateCommand
         CommandLine.Required(o.Version, "--new-version", "the version of the recalibrated model", usage);
         CommandLine.Required(o.Output, "--output", "where to write the recalibrated model file", usage);
         var alpha = CommandLine.Fraction(o.Alpha, "--alpha", "significance level", 0.05, usage);
-        RecalibrationKind? kind = o.Kind switch
+        RecalibrationKind? kind = null;
+        try
         {
-            null or "auto" => null,
-            "in-the-large" => RecalibrationKind.InTheLarge,
-            "intercept-and-slope" => RecalibrationKind.InterceptAndSlope,
-            _ => Bad(usage, $"--kind: '{o.Kind}' is not auto, in-the-large or intercept-and-slope"),
-        };
+            kind = RecalibrationWorkflow.ParseKind(o.Kind);
+        }
+        catch (RecalibrationRefused ex)
+        {
+            usage.Add($"--kind: {ex.Reason}");
+        }
+
         CommandLine.ThrowIfAny(usage);
 
         var model = ReadModel(o.Model!);
-        if (string.Equals(o.Version, model.Version, StringComparison.Ordinal))
+        try
         {
-            usage.Add($"--new-version: '{o.Version}' is the version of {o.Model} itself; the recalibrated model needs a version of its own");
+            RecalibrationWorkflow.CheckNewVersion(model, o.Version!);
         }
-        else if (o.Version!.Length > 64 || !IsVersion(o.Version))
+        catch (RecalibrationRefused ex)
         {
-            usage.Add($"--new-version: '{o.Version}' is not a version: 1 to 64 characters, a letter or digit first, then letters, digits, '.', '_', '+' or '-'");
+            usage.Add($"--new-version: {ex.Reason}");
         }
 
         if (Path.GetFullPath(o.Output!) == Path.GetFullPath(o.Model!))
@@ -79,66 +82,38 @@ internal static class RecalibrateCommand
         }
 
         CommandLine.ThrowIfAny(usage);
-        if (!model.Terms.Any(t => t.IsIntercept))
-        {
-            throw new CommandException(CommandException.DataError,
-                $"{o.Model} ({model.Model} {model.Version}) has no intercept term (a term with no factors): recalibration adds a to the " +
-                "intercept, which this model does not have; refit it with an intercept");
-        }
-
         var data = LabelledCsv.Read(o.Input!, o.Eta!, "--eta", LabelledCsv.ValueKind.LinearPredictor, o.Outcome!, o.DropMissing);
         if (data.Dropped > 0)
         {
             stderr.WriteLine($"{Name}: {data.Dropped} row(s) with a missing eta or outcome left out (--drop-missing)");
         }
 
-        RecalibrationFit fit;
+        RecalibrationOutcome outcome;
         try
         {
-            var choice = Recalibrator.Choose(data.Values, data.Outcomes, model.Link, alpha);
-            Print(model, o, choice, stdout);
-            var chosen = kind ?? choice.Recommended;
-            if (chosen is null)
-            {
-                stdout.WriteLine($"--kind auto: the closed test recommends keeping {model.Model} {model.Version} as it is; nothing written");
-                return 0;
-            }
-
-            fit = chosen == RecalibrationKind.InTheLarge ? choice.InTheLarge : choice.InterceptAndSlope;
+            outcome = RecalibrationWorkflow.Run(model, data.Values, data.Outcomes, kind, o.Version!, alpha);
         }
-        catch (Exception ex) when (ex is ArgumentException or InvalidOperationException)
+        catch (RecalibrationRefused ex)
         {
-            if (kind != RecalibrationKind.InTheLarge)
-            {
-                throw new CommandException(CommandException.DataError, $"the recalibration cannot be fitted on {o.Input}: {ex.Message}");
-            }
+            throw new CommandException(CommandException.DataError, $"{(ex.Field == "data" ? o.Input : o.Model)}: {ex.Reason}");
+        }
 
-            // The slope cannot be fitted (a constant or separating eta), so there is no closed test; in the large may still be.
-            try
-            {
-                fit = Recalibrator.Fit(data.Values, data.Outcomes, model.Link, RecalibrationKind.InTheLarge);
-            }
-            catch (Exception inner) when (inner is ArgumentException or InvalidOperationException)
-            {
-                throw new CommandException(CommandException.DataError, $"the recalibration cannot be fitted on {o.Input}: {inner.Message}");
-            }
+        if (outcome.Choice is { } choice)
+        {
+            Print(model, o, choice, stdout);
+        }
 
-            stdout.WriteLine($"no closed test: {ex.Message}");
+        if (outcome is not { Fit: { } fit, Document: { } recalibrated })
+        {
+            stdout.WriteLine($"--kind auto: the closed test recommends keeping {model.Model} {model.Version} as it is; nothing written");
+            return 0;
+        }
+
+        if (outcome.NoTest is { } noTest)
+        {
+            stdout.WriteLine($"no closed test: {noTest}");
             stdout.WriteLine(string.Create(CultureInfo.InvariantCulture,
                 $"in the large: a = {fit.Intercept:G6} (se {fit.InterceptSe:G6}), log-likelihood {fit.LogLikelihood:G6}, {fit.Rows} rows, {fit.Events} events"));
-        }
-        ModelDocument recalibrated;
-        try
-        {
-            recalibrated = Recalibrator.Apply(model, fit, o.Version!);
-        }
-        catch (ArgumentException ex)
-        {
-            throw new CommandException(CommandException.DataError, ex.Message);
-        }
-        catch (ModelFileException ex)
-        {
-            throw new CommandException(CommandException.DataError, [$"the recalibrated model would not be a valid model file:", .. ex.Problems.Select(p => p.ToString())]);
         }
 
         try
@@ -194,14 +169,5 @@ internal static class RecalibrateCommand
 
         return load.Document ?? throw new CommandException(CommandException.DataError,
             [$"{path} is not a valid model file:", .. load.Errors.Select(e => e.ToString())]);
-    }
-
-    private static bool IsVersion(string text) =>
-        text.Length > 0 && char.IsAsciiLetterOrDigit(text[0]) && text.All(c => char.IsAsciiLetterOrDigit(c) || c is '.' or '_' or '+' or '-');
-
-    private static RecalibrationKind? Bad(List<string> usage, string message)
-    {
-        usage.Add(message);
-        return null;
     }
 }

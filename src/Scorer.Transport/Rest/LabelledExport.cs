@@ -1,3 +1,4 @@
+using Scorer.Application.Models;
 using System.Buffers;
 using System.Globalization;
 using System.IO.Pipelines;
@@ -25,7 +26,7 @@ namespace Scorer.Transport.Rest;
 /// REST error mapping, RestErrorHandler). A store that fails after the status line was sent aborts the response (no last
 /// chunk; HTTP/2: a reset stream), so a client never takes a cut-off file for a whole one.
 /// </remarks>
-public sealed class LabelledExport(ModelRegistry registry, IScorerStore store, ApiKeyInterceptor keys)
+public sealed class LabelledExport(ModelCatalog catalog, IScorerStore store, ApiKeyInterceptor keys)
 {
     public const string Method = "/scorer.v1.Outcomes/ExportLabelled";
 
@@ -42,14 +43,11 @@ public sealed class LabelledExport(ModelRegistry registry, IScorerStore store, A
         try
         {
             keys.Authorize(context.Request.Headers.Authorization.Count > 0 ? context.Request.Headers.Authorization.ToString() : null, Method);
-            entry = registry.Current.Find(model) ?? throw Errors.NotFound("model", $"no model '{model}' is loaded");
+            entry = catalog.Model(model);
             since = Time(context.Request.Query["since"].ToString(), "since", DateTimeOffset.UnixEpoch);
             until = Time(context.Request.Query["until"].ToString(), "until", DateTimeOffset.MaxValue.AddYears(-1));
             version = context.Request.Query["version"].ToString() is { Length: > 0 } v ? v : null;
-            if (version is not null && entry.Find(version) is null)
-            {
-                throw Errors.NotFound("version", $"model '{model}' has no version '{version}' (loaded: {string.Join(", ", entry.Versions.Select(x => x.Version))})");
-            }
+            catalog.Optional(entry, version);
 
             if (until <= since)
             {
@@ -124,7 +122,7 @@ public sealed class LabelledExport(ModelRegistry registry, IScorerStore store, A
                 var p = row.Prediction;
                 _csv.Field(p.Id.TryFormat(formatted, out var n) ? formatted[..n] : p.Id.ToString());
                 _csv.Field(p.Version);
-                _csv.Field(Services.ModelsService.StageName(p.Stage));
+                _csv.Field(Scorer.Application.Models.ModelCatalog.StageName(p.Stage));
                 _csv.Field(p.ScoredAt.TryFormat(formatted, out n, TimeFormat, CultureInfo.InvariantCulture) ? formatted[..n] : p.ScoredAt.ToString(TimeFormat, CultureInfo.InvariantCulture));
                 _csv.Field(row.Key);
                 _csv.Number(p.Eta);

@@ -1,3 +1,4 @@
+using Scorer.Application.Models;
 using System.Text;
 using Google.Protobuf;
 using Grpc.Core;
@@ -14,7 +15,7 @@ namespace Scorer.Transport.Rest;
 /// (<c>event: snapshot</c> or <c>event: status</c>, <c>data:</c> the report as JSON, as the REST report gives it), a
 /// comment line every 15 s to keep proxies from closing the connection. Same contract as gRPC <c>WatchReports</c>.
 /// </summary>
-public sealed class MonitorEvents(ModelRegistry registry, MonitorReporter reporter, MonitorWatch watch, ApiKeyInterceptor keys, EventSubscribers subscribers)
+public sealed class MonitorEvents(ModelCatalog catalog, MonitorWatch watch, ApiKeyInterceptor keys, EventSubscribers subscribers)
 {
     private static readonly JsonFormatter Json = new(JsonFormatter.Settings.Default.WithFormatDefaultValues(true));
 
@@ -26,12 +27,7 @@ public sealed class MonitorEvents(ModelRegistry registry, MonitorReporter report
         try
         {
             keys.Authorize(context.Request.Headers.Authorization.Count > 0 ? context.Request.Headers.Authorization.ToString() : null, "/scorer.v1.Monitor/WatchReports");
-            (version, window) = MonitorService.Resolve(registry, reporter.Options, new MonitorRequest
-            {
-                Model = model,
-                Version = context.Request.Query["version"].ToString(),
-                Window = context.Request.Query["window"].ToString(),
-            });
+            (version, window) = catalog.Monitored(model, context.Request.Query["version"].ToString(), context.Request.Query["window"].ToString());
             lease = subscribers.Enter();
         }
         catch (RpcException ex)

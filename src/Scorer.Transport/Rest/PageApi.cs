@@ -1,3 +1,4 @@
+using Scorer.Application.Models;
 using System.Buffers;
 using System.Globalization;
 using System.Text;
@@ -40,6 +41,7 @@ public sealed class PageApi
     private static readonly JsonWriterOptions WriterOptions = new() { Encoder = System.Text.Encodings.Web.JavaScriptEncoder.UnsafeRelaxedJsonEscaping };
 
     private readonly ModelRegistry _registry;
+    private readonly ModelCatalog _catalog;
     private readonly MonitorReporter _reporter;
     private readonly MonitorLoop _loop;
     private readonly TrendReporter _trends;
@@ -51,11 +53,12 @@ public sealed class PageApi
     private readonly Lock _lock = new();
     private readonly Dictionary<(string Model, string Version), StatusChange> _changes = [];
 
-    public PageApi(ModelRegistry registry, MonitorReporter reporter, MonitorLoop loop, TrendReporter trends, IScorerStore store, ApiKeyInterceptor keys,
+    public PageApi(ModelRegistry registry, ModelCatalog catalog, MonitorReporter reporter, MonitorLoop loop, TrendReporter trends, IScorerStore store, ApiKeyInterceptor keys,
         TimeProvider time, EventSubscribers subscribers)
     {
         _subscribers = subscribers;
         _registry = registry;
+        _catalog = catalog;
         _reporter = reporter;
         _loop = loop;
         _trends = trends;
@@ -162,7 +165,7 @@ public sealed class PageApi
             {
                 w.WriteStartObject();
                 w.WriteString("version", version.Version);
-                w.WriteString("stage", ModelsService.StageName(version.Stage));
+                w.WriteString("stage", Scorer.Application.Models.ModelCatalog.StageName(version.Stage));
                 w.WriteString("loadedAt", version.LoadedAt);
                 w.WriteString("file", Path.GetFileName(version.File));
                 w.WriteNumber("scoredLastHour", await _store.CountPredictionsByMinuteAsync(entry.Name, version.Version, now.AddHours(-1), now.AddMinutes(1),
@@ -295,8 +298,8 @@ public sealed class PageApi
         await context.Response.Body.FlushAsync(cancellationToken).ConfigureAwait(false);
     }
 
-    private (LoadedVersion Version, string Window) Resolve(HttpContext context, string model) => MonitorService.Resolve(_registry, _reporter.Options,
-        new MonitorRequest { Model = model, Version = context.Request.Query["version"].ToString(), Window = context.Request.Query["window"].ToString() });
+    private (LoadedVersion Version, string Window) Resolve(HttpContext context, string model) => _catalog.Monitored(model,
+        context.Request.Query["version"].ToString(), context.Request.Query["window"].ToString());
 
     /// <summary>An optional whole-number query parameter within [min, max], or the error naming it.</summary>
     private static int Count(HttpContext context, string name, int absent, int min, int max)

@@ -10,7 +10,7 @@ using Microsoft.AspNetCore.Http;
 using Scorer.Engine;
 using Scorer.Engine.Scoring;
 using Scorer.Store;
-using Scorer.Transport.Services;
+using Scorer.Application.Scoring;
 
 namespace Scorer.Transport.Rest;
 
@@ -22,7 +22,7 @@ namespace Scorer.Transport.Rest;
 /// transcoder gives one vague message for a malformed body, this reader names the field and the reason, and a row
 /// that is not an object, or that names a feature twice, fails that row only.
 /// </summary>
-public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
+public sealed class RestScoring(ScoringPipeline pipeline, ApiKeyInterceptor keys)
 {
     public const string Method = "/scorer.v1.Scoring/Score";
 
@@ -32,7 +32,7 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
 
     private static readonly JsonReaderOptions ReaderOptions = new() { CommentHandling = JsonCommentHandling.Disallow, MaxDepth = 64 };
 
-    private readonly Prometheus.Histogram.Child _callsOk = core.Metrics.Calls.WithLabels("Scoring/Score", "OK");
+    private readonly Prometheus.Histogram.Child _callsOk = pipeline.Metrics.Calls.WithLabels("Scoring/Score", "OK");
 
     /// <summary>Answers the request: a score response, or the error in the transcoder's JSON shape.</summary>
     public async Task HandleAsync(HttpContext context, string model)
@@ -86,7 +86,7 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
                 reader.AdvanceTo(read.Buffer.End);
             }
 
-            (status == StatusCode.OK ? _callsOk : core.Metrics.Calls.WithLabels("Scoring/Score", status.ToString())).Observe(Stopwatch.GetElapsedTime(started).TotalSeconds);
+            (status == StatusCode.OK ? _callsOk : pipeline.Metrics.Calls.WithLabels("Scoring/Score", status.ToString())).Observe(Stopwatch.GetElapsedTime(started).TotalSeconds);
         }
 
         await context.Response.BodyWriter.FlushAsync(context.RequestAborted).ConfigureAwait(false);
@@ -110,14 +110,19 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
             }
 
             var request = ReadRequest(json, modelName);
-            var version = core.Resolve(modelName, request.Version, out var entry);
-            core.CheckRowCount(request.Rows.Count);
-            ScoringCore.CheckKeys(request.Keys, request.Rows.Count);
-            var settings = ScoringCore.Settings(request.Level.HasValue, request.Level ?? 0, "level");
+            var call = pipeline.Prepare(modelName, request.Version, request.Rows.Count, request.Keys, request.Level, request.Contributions);
             context.Response.StatusCode = StatusCodes.Status200OK;
             context.Response.ContentType = "application/json; charset=utf-8";
-            using var writer = new Utf8JsonWriter(context.Response.BodyWriter, WriterOptions);
-            ScoreRows(writer, json, request, version, entry, settings);
+            using var w = new Utf8JsonWriter(context.Response.BodyWriter, WriterOptions);
+            w.WriteStartObject();
+            w.WriteString("model"u8, call.Version.Model);
+            w.WriteString("version"u8, call.Version.Version);
+            w.WriteStartArray("results"u8);
+            var rows = new JsonRows(json, request, pipeline.Limits);
+            var writer = new JsonResultWriter(w);
+            pipeline.Score(call, ref rows, ref writer);
+            w.WriteEndArray();
+            w.WriteEndObject();
         }
         finally
         {
@@ -128,98 +133,96 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
         }
     }
 
-    private void ScoreRows(Utf8JsonWriter w, ReadOnlySpan<byte> json, in ParsedRequest request, Registry.LoadedVersion version, Registry.ModelEntry entry,
-        in ScoreSettings settings)
+    /// <summary>The rows of a score request body: each row's bytes read onto named values when the pipeline asks for it.</summary>
+    private readonly ref struct JsonRows(ReadOnlySpan<byte> json, ParsedRequest request, Application.ScoringLimits limits) : IScoreRows
     {
-        var model = version.Compiled;
-        var limits = core.Limits;
-        var log = core.Log;
-        var rowCount = request.Rows.Count;
-        var now = core.Time.GetUtcNow();
-        var contributions = new double[model.TermCount];
-        var warnings = new RowWarning[model.MaxWarningsPerRow];
-        var shadowRows = entry.Shadows.Length > 0 && version.Stage == Stage.Live ? new NamedValue[]?[rowCount] : null;
-        var shadowKeys = shadowRows is null ? null : new string?[rowCount];
-        var shadowIds = shadowRows is null ? null : new Guid[rowCount];
-        var values = ArrayPool<NamedValue>.Shared.Rent(Math.Min(limits.MaxFeaturesPerRow, 1024));
-        int scoredRows = 0, warnedRows = 0;
-        var tally = core.Drift.Begin(version, now);
-        try
+        private readonly ReadOnlySpan<byte> _json = json;
+
+        public int Count => request.Rows.Count;
+
+        public string? Key(int row) => request.Keys is { } k ? k[row] : null;
+
+        public bool TryBind(int row, CompiledModel model, Span<NamedValue> values, out int count, out string? field, out string? reason)
+        {
+            var (start, length) = request.Rows[row];
+            return Bind(_json.Slice(start, length), row, model, values, limits, out count, out field, out reason);
+        }
+    }
+
+    /// <summary>Writes each row's result as the transcoder writes a RowResult.</summary>
+    private readonly struct JsonResultWriter(Utf8JsonWriter w) : IScoreWriter
+    {
+        public void Scored(int row, Guid id, string? key, in ScoredRow r, CompiledModel model, ReadOnlySpan<int> order, ReadOnlySpan<double> contributions,
+            ReadOnlySpan<RowWarning> warnings)
         {
             w.WriteStartObject();
-            w.WriteString("model"u8, version.Model);
-            w.WriteString("version"u8, version.Version);
-            w.WriteStartArray("results"u8);
-            for (var i = 0; i < rowCount; i++)
+            w.WriteString("id"u8, id);
+            WriteDouble(w, "eta"u8, r.Eta);
+            if (!double.IsNaN(r.Se))
             {
-                var key = request.Keys is { } k ? k[i] : null;
-                var id = PredictionIds.Next(now);
+                WriteDouble(w, "se"u8, r.Se);
+                WriteDouble(w, "probability"u8, r.Probability);
+                WriteDouble(w, "lower"u8, r.Lower);
+                WriteDouble(w, "upper"u8, r.Upper);
+            }
+            else
+            {
+                WriteDouble(w, "probability"u8, r.Probability);
+            }
+
+            if (r.FlagValue is { } flag)
+            {
+                w.WriteBoolean("flag"u8, flag);
+            }
+
+            w.WriteStartArray("contributions"u8);
+            foreach (var j in order)
+            {
                 w.WriteStartObject();
-                w.WriteString("id"u8, id);
-                if (key is { Length: > 0 } && key.Length > limits.MaxStringLength)
-                {
-                    core.CountRowError(version, RowMessages.BadKeyCode);
-                    WriteRowError(w, RowMessages.BadKeyCode, $"keys[{i}]", $"longer than {limits.MaxStringLength} characters", key);
-                    continue;
-                }
-
-                var (start, length) = request.Rows[i];
-                var rowJson = json.Slice(start, length);
-                var bound = Bind(rowJson, i, model, values, out var count, out var bindField, out var bindReason);
-                if (!bound)
-                {
-                    core.CountRowError(version, RowMessages.BadValueCode);
-                    WriteRowError(w, RowMessages.BadValueCode, bindField!, bindReason!, key);
-                    continue;
-                }
-
-                var row = values.AsSpan(0, count);
-                var r = model.Score(row, settings, contributions, warnings);
-                if (r.Failed)
-                {
-                    core.CountRowError(version, RowMessages.Code(r.Error.Kind));
-                    WriteRowError(w, RowMessages.Code(r.Error.Kind), RowMessages.Field(model, r.Error), RowMessages.Describe(model, r.Error), key);
-                    continue;
-                }
-
-                scoredRows++;
-                warnedRows += r.WarningCount > 0 ? 1 : 0;
-                tally?.Add(r.Eta, row);
-                WriteScored(w, r, model, contributions, warnings, request.Contributions ?? 0, key);
-                if (log.Enabled)
-                {
-                    log.TryEnqueue(new PredictionRecord(id, version.Model, version.Version, version.Stage, now, string.IsNullOrEmpty(key) ? null : key,
-                        r.Eta, r.Probability, LoggedFeatures.Json(model, row)));
-                }
-
-                if (shadowRows is not null)
-                {
-                    shadowRows[i] = row.ToArray();
-                    shadowIds![i] = id;
-                    shadowKeys![i] = string.IsNullOrEmpty(key) ? null : key;
-                }
+                w.WriteString("term"u8, model.TermNames[j]);
+                WriteDouble(w, "value"u8, contributions[j]);
+                w.WriteEndObject();
             }
 
             w.WriteEndArray();
+            w.WriteStartArray("warnings"u8);
+            foreach (var warning in warnings)
+            {
+                w.WriteStartObject();
+                w.WriteString("code"u8, RowMessages.Code(warning.Kind));
+                w.WriteString("field"u8, warning.Feature >= 0 ? model.FeatureNames[warning.Feature] : "");
+                w.WriteString("message"u8, RowMessages.Describe(model, warning));
+                w.WriteEndObject();
+            }
+
+            w.WriteEndArray();
+            w.WriteNull("error"u8);
+            w.WriteString("key"u8, key ?? "");
             w.WriteEndObject();
         }
-        finally
-        {
-            ArrayPool<NamedValue>.Shared.Return(values, clearArray: true);
-        }
 
-        tally?.Commit();
-        core.Count(version, scoredRows, warnedRows);
-        if (shadowRows is not null)
+        public void Failed(int row, Guid id, string? key, string code, string field, string reason)
         {
-            core.Shadow(version, entry, shadowRows, shadowIds!, shadowKeys!, now);
+            w.WriteStartObject();
+            w.WriteString("id"u8, id);
+            w.WriteStartArray("contributions"u8);
+            w.WriteEndArray();
+            w.WriteStartArray("warnings"u8);
+            w.WriteEndArray();
+            w.WriteStartObject("error"u8);
+            w.WriteString("code"u8, code);
+            w.WriteString("field"u8, field);
+            w.WriteString("reason"u8, reason);
+            w.WriteEndObject();
+            w.WriteString("key"u8, key ?? "");
+            w.WriteEndObject();
         }
     }
 
     /// <summary>Binds one row object onto named values; false with the field and reason when the row cannot be read.</summary>
-    private bool Bind(ReadOnlySpan<byte> rowJson, int index, CompiledModel model, NamedValue[] values, out int count, out string? field, out string? reason)
+    private static bool Bind(ReadOnlySpan<byte> rowJson, int index, CompiledModel model, Span<NamedValue> values, Application.ScoringLimits limits, out int count,
+        out string? field, out string? reason)
     {
-        var limits = core.Limits;
         count = 0;
         field = null;
         reason = null;
@@ -235,7 +238,7 @@ public sealed class RestScoring(ScoringCore core, ApiKeyInterceptor keys)
         Span<char> nameBuffer = stackalloc char[256];
         while (reader.Read() && reader.TokenType == JsonTokenType.PropertyName)
         {
-            if (count >= limits.MaxFeaturesPerRow || count >= values.Length)
+            if (count >= values.Length)
             {
                 var total = count;
                 do

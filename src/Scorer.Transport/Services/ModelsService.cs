@@ -2,6 +2,7 @@ using System.Globalization;
 using Google.Protobuf.WellKnownTypes;
 using Grpc.Core;
 using Scorer.ModelFile;
+using Scorer.Application.Models;
 using Scorer.Registry;
 using Scorer.Store;
 using Scorer.Transport.V1;
@@ -9,11 +10,11 @@ using Scorer.Transport.V1;
 namespace Scorer.Transport.Services;
 
 /// <summary>What is loaded, the files as loaded, stage changes (admin) and their history.</summary>
-public sealed class ModelsService(ModelRegistry registry, IScorerStore store) : Models.ModelsBase
+public sealed class ModelsService(ModelCatalog catalog, StageChanges stages) : Models.ModelsBase
 {
     public override Task<ListModelsResponse> ListModels(ListModelsRequest request, ServerCallContext context)
     {
-        var snapshot = registry.Current;
+        var snapshot = catalog.Current;
         var response = new ListModelsResponse();
         foreach (var entry in snapshot.Models.Values)
         {
@@ -49,73 +50,35 @@ public sealed class ModelsService(ModelRegistry registry, IScorerStore store) : 
 
     public override Task<Struct> GetModelVersion(GetModelVersionRequest request, ServerCallContext context)
     {
-        var version = Find(request.Model, request.Version);
+        var version = catalog.Version(request.Model, request.Version);
         return Task.FromResult(Struct.Parser.ParseJson(System.Text.Encoding.UTF8.GetString(version.FileBytes.Span)));
     }
 
     public override async Task<StageResponse> SetStage(SetStageRequest request, ServerCallContext context)
     {
-        var stage = ParseStage(request.Stage);
-        Find(request.Model, request.Version);
-        var changes = await Guard(() => registry.SetStageAsync(request.Model, request.Version, stage, ApiKeyInterceptor.Actor(context), context.CancellationToken)).ConfigureAwait(false);
+        var changes = await stages.SetAsync(request.Model, request.Version, request.Stage, ApiKeyInterceptor.Actor(context), context.CancellationToken).ConfigureAwait(false);
         return Response(request.Model, changes);
     }
 
     public override async Task<StageResponse> Rollback(RollbackRequest request, ServerCallContext context)
     {
-        var changes = await Guard(() => registry.RollbackAsync(request.Model, ApiKeyInterceptor.Actor(context), context.CancellationToken)).ConfigureAwait(false);
+        var changes = await stages.RollbackAsync(request.Model, ApiKeyInterceptor.Actor(context), context.CancellationToken).ConfigureAwait(false);
         return Response(request.Model, changes);
     }
 
     public override async Task<GetHistoryResponse> GetHistory(GetHistoryRequest request, ServerCallContext context)
     {
-        if (registry.Current.Find(request.Model) is null)
-        {
-            throw Errors.NotFound("model", $"no model '{request.Model}' is loaded");
-        }
-
         var response = new GetHistoryResponse { Model = request.Model };
-        response.Changes.AddRange((await store.GetHistoryAsync(request.Model, context.CancellationToken).ConfigureAwait(false)).Select(Info));
+        response.Changes.AddRange((await stages.HistoryAsync(request.Model, context.CancellationToken).ConfigureAwait(false)).Select(Info));
         return response;
     }
 
-    public static string StageName(Stage stage) => stage switch
-    {
-        Stage.Live => "live",
-        Stage.Shadow => "shadow",
-        _ => "retired",
-    };
-
-    private static Stage ParseStage(string text) => text switch
-    {
-        "live" => Stage.Live,
-        "shadow" => Stage.Shadow,
-        "retired" => Stage.Retired,
-        _ => throw Errors.Invalid("stage", $"'{text}' is not a stage; give live, shadow or retired"),
-    };
-
-    private LoadedVersion Find(string model, string version)
-    {
-        var entry = registry.Current.Find(model) ?? throw Errors.NotFound("model", $"no model '{model}' is loaded");
-        return entry.Find(version) ?? throw Errors.NotFound("version",
-            $"model '{model}' has no version '{version}' (loaded: {string.Join(", ", entry.Versions.Select(v => v.Version))})");
-    }
-
-    private static async Task<T> Guard<T>(Func<Task<T>> action)
-    {
-        try
-        {
-            return await action().ConfigureAwait(false);
-        }
-        catch (RegistryException ex)
-        {
-            throw ex.NotFound ? Errors.NotFound(ex.Field, ex.Reason) : Errors.Precondition(ex.Field, ex.Reason);
-        }
-    }
+    /// <summary>A stage as the API writes it (<see cref="ModelCatalog.StageName"/>).</summary>
+    public static string StageName(Stage stage) => ModelCatalog.StageName(stage);
 
     private StageResponse Response(string model, IReadOnlyList<StageChange> changes)
     {
-        var response = new StageResponse { Model = model, Live = registry.Current.Find(model)?.Live?.Version ?? "" };
+        var response = new StageResponse { Model = model, Live = stages.Live(model) ?? "" };
         response.Changes.AddRange(changes.Select(Info));
         return response;
     }

@@ -3,108 +3,28 @@ using Grpc.Core;
 using Scorer.Statistics.Recalibration;
 using Scorer.Monitor.Reporting;
 using Scorer.Statistics;
-using Scorer.Registry;
+using Scorer.Application;
+using Scorer.Application.Models;
+using Scorer.Application.Monitoring;
 using Scorer.Transport.V1;
 
 namespace Scorer.Transport.Services;
 
 /// <summary>The monitor's reports over gRPC (and REST through transcoding).</summary>
-public sealed class MonitorService(ModelRegistry registry, MonitorReporter reporter, MonitorWatch watch, Scorer.Store.IScorerStore store, RegistryOptions folder,
-    TimeProvider time, EventSubscribers subscribers) : V1.Monitor.MonitorBase
+public sealed class MonitorService(MonitorReporter reporter, MonitorWatch watch, ModelCatalog catalog, Recalibration recalibration, EventSubscribers subscribers) : V1.Monitor.MonitorBase
 {
     public override async Task<RecalibrateResponse> Recalibrate(RecalibrateRequest request, ServerCallContext context)
     {
-        var (version, window) = Resolve(registry, reporter.Options, new MonitorRequest
-        {
-            Model = request.Model,
-            Version = request.Version,
-            Window = string.IsNullOrEmpty(request.Window) ? reporter.Options.JudgedWindow : request.Window,
-        });
-        if (string.IsNullOrEmpty(request.Version))
-        {
-            throw Errors.Invalid("version", "name the version to recalibrate");
-        }
-
-        RecalibrationKind? kind = request.Kind switch
-        {
-            "" or "auto" => null,
-            "in-the-large" => RecalibrationKind.InTheLarge,
-            "intercept-and-slope" => RecalibrationKind.InterceptAndSlope,
-            _ => throw Errors.Invalid("kind", $"'{request.Kind}' is not a kind; use auto, in-the-large or intercept-and-slope"),
-        };
-        var now = time.GetUtcNow();
-        var newVersion = string.IsNullOrEmpty(request.NewVersion) ? $"{version.Version}-recal-{now:yyyyMMddHHmmss}" : request.NewVersion;
-        if (registry.Current.Find(version.Model)?.Find(newVersion) is not null)
-        {
-            throw Errors.Invalid("newVersion", $"model '{version.Model}' already has a version '{newVersion}'");
-        }
-
-        var span = reporter.Options.Windows[window];
-        var labelled = await store.GetLabelledAsync(version.Model, version.Version, span is { } w ? now - w : DateTimeOffset.UnixEpoch, now.AddMinutes(1),
-            context.CancellationToken).ConfigureAwait(false);
-        var eta = labelled.Select(l => l.Eta).ToArray();
-        var y = labelled.Select(l => l.Outcome).ToArray();
-        var events = y.Count(v => v == 1);
-        var needed = Math.Max(1, reporter.Options.MinEvents);
-        if (events < needed || y.Length - events < needed)
-        {
-            // Nothing is written: a candidate fitted on a handful of outcomes would only carry their noise.
-            throw Errors.Precondition("window", $"the window {window} holds {y.Length} labelled predictions of {version.Model} {version.Version} "
-                + $"({events} events, {y.Length - events} non-events); a recalibration needs at least {needed} of each (Scorer:Monitor:MinEvents): "
-                + "wait for more outcomes or choose a longer window");
-        }
-
-        RecalibrationFit? fit;
-        string reason;
-        try
-        {
-            if (kind is { } k)
-            {
-                fit = Recalibrator.Fit(eta, y, version.Document.Link, k);
-                reason = $"{Recalibrator.KindName(k)} asked for; fitted on {y.Length} labelled predictions over {window}.";
-            }
-            else
-            {
-                var choice = Recalibrator.Choose(eta, y, version.Document.Link);
-                fit = choice.RecommendedFit;
-                reason = choice.Reason;
-            }
-        }
-        catch (ArgumentException ex)
-        {
-            throw Errors.Precondition("version", ex.Message);
-        }
-
-        var response = new RecalibrateResponse { Reason = reason, Rows = y.Length, Events = events, NewVersion = newVersion };
-        if (fit is null)
+        var result = await recalibration.RunAsync(request.Model, request.Version, request.Window, request.Kind, request.NewVersion, context.CancellationToken)
+            .ConfigureAwait(false);
+        var response = new RecalibrateResponse { Reason = result.Outcome.Reason, Rows = result.Rows, Events = result.Events, NewVersion = result.NewVersion };
+        if (result is not { File: { } file, Outcome.Fit: { } fit })
         {
             return response;
         }
 
-        ModelFile.ModelDocument document;
-        try
-        {
-            document = Recalibrator.Apply(version.Document, fit, newVersion);
-        }
-        catch (ArgumentException ex)
-        {
-            throw Errors.Precondition("version", ex.Message);
-        }
-
-        var file = Path.Combine(folder.ModelsPath, $"{version.Model}-{newVersion}.json");
-        if (File.Exists(file))
-        {
-            throw Errors.Invalid("newVersion", $"the file {Path.GetFileName(file)} exists already");
-        }
-
-        await using (var stream = new FileStream(file, FileMode.CreateNew))
-        {
-            ModelFile.ModelFileWriter.Write(document, stream);
-        }
-
-        await registry.ReloadAsync(context.CancellationToken).ConfigureAwait(false);
         response.Written = true;
-        response.File = Path.GetFileName(file);
+        response.File = file;
         response.Kind = Recalibrator.KindName(fit.Kind);
         var z = Scorer.Engine.Numerics.Quantiles.TwoSidedZ(reporter.Options.Level);
         response.Intercept = Wald(fit.Intercept, fit.InterceptSe, z);
@@ -114,7 +34,7 @@ public sealed class MonitorService(ModelRegistry registry, MonitorReporter repor
 
     public override async Task WatchReports(MonitorRequest request, IServerStreamWriter<MonitorEvent> responseStream, ServerCallContext context)
     {
-        var (version, window) = Resolve(registry, reporter.Options, request);
+        var (version, window) = catalog.Monitored(request.Model, request.Version, request.Window);
         using var lease = subscribers.Enter();
         await foreach (var e in watch.WatchAsync(version, window, context.CancellationToken).ConfigureAwait(false))
         {
@@ -124,38 +44,9 @@ public sealed class MonitorService(ModelRegistry registry, MonitorReporter repor
 
     public override async Task<MonitorReport> GetReport(MonitorRequest request, ServerCallContext context)
     {
-        var (version, window) = Resolve(registry, reporter.Options, request);
+        var (version, window) = catalog.Monitored(request.Model, request.Version, request.Window);
         var snapshot = await reporter.ReportAsync(version, window, context.CancellationToken).ConfigureAwait(false);
         return ToMessage(snapshot);
-    }
-
-    /// <summary>The version and window a request names, or the error naming the field.</summary>
-    public static (LoadedVersion Version, string Window) Resolve(ModelRegistry registry, MonitorOptions options, MonitorRequest request)
-    {
-        if (string.IsNullOrEmpty(request.Model))
-        {
-            throw Errors.Invalid("model", "name the model");
-        }
-
-        var entry = registry.Current.Find(request.Model) ?? throw Errors.NotFound("model", $"no model '{request.Model}' is loaded");
-        LoadedVersion version;
-        if (string.IsNullOrEmpty(request.Version))
-        {
-            version = entry.Live ?? throw Errors.Precondition("version", $"model '{request.Model}' has no live version; name a version");
-        }
-        else
-        {
-            version = entry.Find(request.Version) ?? throw Errors.NotFound("version",
-                $"model '{request.Model}' has no version '{request.Version}' (loaded: {string.Join(", ", entry.Versions.Select(v => v.Version))})");
-        }
-
-        var window = string.IsNullOrEmpty(request.Window) ? options.DefaultWindow : request.Window;
-        if (!options.Windows.ContainsKey(window))
-        {
-            throw Errors.Invalid("window", $"'{window}' is not a window; use one of {string.Join(", ", options.Windows.Keys)}");
-        }
-
-        return (version, window);
     }
 
     /// <summary>The report as the proto message (shared with the streams and the page).</summary>
@@ -166,7 +57,7 @@ public sealed class MonitorService(ModelRegistry registry, MonitorReporter repor
         {
             Model = s.Version.Model,
             Version = s.Version.Version,
-            Stage = ModelsService.StageName(s.Version.Stage),
+            Stage = Scorer.Application.Models.ModelCatalog.StageName(s.Version.Stage),
             Window = s.Window,
             From = Timestamp.FromDateTimeOffset(s.From),
             To = Timestamp.FromDateTimeOffset(s.To),

@@ -1,4 +1,4 @@
-namespace Scorer.Transport;
+namespace Scorer.Application;
 
 /// <summary>Limits on what one request may carry, and on what callers may hold open. Each has a documented default.</summary>
 public sealed record ScoringLimits

@@ -2,7 +2,7 @@ using Google.Protobuf.WellKnownTypes;
 using Google.Rpc;
 using Grpc.Core;
 
-namespace Scorer.Transport;
+namespace Scorer.Application;
 
 /// <summary>
 /// The one error shape: a gRPC status whose message names the field and the reason, with a google.rpc.BadRequest

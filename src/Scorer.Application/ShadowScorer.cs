@@ -4,7 +4,7 @@ using Scorer.Engine.Scoring;
 using Scorer.Registry;
 using Scorer.Store;
 
-namespace Scorer.Transport;
+namespace Scorer.Application;
 
 /// <summary>Rows a live version scored, to be scored again by the model's shadow versions.</summary>
 /// <remarks><see cref="LiveIds"/>: the live prediction's id of each row, stored with the shadow prediction to pair them.</remarks>

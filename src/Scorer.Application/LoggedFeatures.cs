@@ -4,7 +4,7 @@ using Scorer.Engine;
 using Scorer.Engine.Scoring;
 using Scorer.ModelFile;
 
-namespace Scorer.Transport;
+namespace Scorer.Application;
 
 /// <summary>
 /// The features a prediction log record keeps: a JSON object of the values of the features the scoring model uses,

@@ -1,4 +1,4 @@
-namespace Scorer.Transport;
+namespace Scorer.Application;
 
 /// <summary>
 /// The bound on open event streams (the monitor's Server-Sent Events and gRPC <c>WatchReports</c>, the overview's

@@ -3,7 +3,7 @@ using System.Net.Sockets;
 using Grpc.Core;
 using Scorer.Store;
 
-namespace Scorer.Transport;
+namespace Scorer.Application;
 
 /// <summary>
 /// The one rule for a call that failed because the store did not answer (or had no room left for a write): which

@@ -2,7 +2,7 @@ using Prometheus;
 using Scorer.Registry;
 using Scorer.Store;
 
-namespace Scorer.Transport;
+namespace Scorer.Application;
 
 /// <summary>
 /// The service's metrics in the Prometheus exposition format, in a registry of the service's own (one per server, so
@@ -109,7 +109,7 @@ public sealed class ScorerMetrics
             {
                 foreach (var stage in new[] { Stage.Live, Stage.Shadow, Stage.Retired })
                 {
-                    versions.WithLabels(entry.Name, Services.ModelsService.StageName(stage)).Set(entry.Versions.Count(v => v.Stage == stage));
+                    versions.WithLabels(entry.Name, Models.ModelCatalog.StageName(stage)).Set(entry.Versions.Count(v => v.Stage == stage));
                 }
             }
 
