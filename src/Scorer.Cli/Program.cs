@@ -211,7 +211,7 @@ public static class Program
                 }
             }
 
-            return await Scorer.Server.ScorerServer.RunAsync([.. args]).ConfigureAwait(false);
+            return await Scorer.Host.ScorerServer.RunAsync([.. args]).ConfigureAwait(false);
         });
         return command;
     }

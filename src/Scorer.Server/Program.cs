@@ -2,5 +2,5 @@ namespace Scorer.Server;
 
 public static class Program
 {
-    public static Task<int> Main(string[] args) => ScorerServer.RunAsync(args);
+    public static Task<int> Main(string[] args) => Scorer.Host.ScorerServer.RunAsync(args);
 }

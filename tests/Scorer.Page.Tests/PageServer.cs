@@ -9,7 +9,7 @@ using Microsoft.Extensions.Configuration;
 using Microsoft.Extensions.DependencyInjection;
 using Scorer.ModelFile;
 using Scorer.Statistics.Recalibration;
-using Scorer.Server;
+using Scorer.Host;
 using Scorer.Store;
 
 namespace Scorer.Page.Tests;

@@ -1,3 +1,4 @@
+using Scorer.Host;
 using System.Globalization;
 using System.Net;
 using System.Net.Sockets;

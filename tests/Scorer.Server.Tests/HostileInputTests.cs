@@ -1,3 +1,4 @@
+using Scorer.Host;
 using System.Net;
 using System.Net.Sockets;
 using System.Text;

@@ -1,3 +1,4 @@
+using Scorer.Host;
 using System.Diagnostics;
 using System.Net;
 using System.Text;

@@ -1,7 +1,7 @@
 using System.Collections;
 using System.Reflection;
 using System.Text.RegularExpressions;
-using Scorer.Server;
+using Scorer.Host;
 
 namespace Scorer.Server.Tests;
 

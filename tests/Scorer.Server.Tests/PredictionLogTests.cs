@@ -1,3 +1,4 @@
+using Scorer.Host;
 using Microsoft.Extensions.Logging.Abstractions;
 using Scorer.Store;
 using Scorer.Store.Sqlite;

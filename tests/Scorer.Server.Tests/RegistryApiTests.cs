@@ -1,3 +1,4 @@
+using Scorer.Host;
 using System.Net;
 using System.Net.Http.Headers;
 using System.Text;

@@ -1,3 +1,4 @@
+using Scorer.Host;
 using Grpc.Net.Client;
 using Microsoft.AspNetCore.Builder;
 using Microsoft.AspNetCore.Hosting.Server;

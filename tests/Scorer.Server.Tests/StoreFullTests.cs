@@ -1,3 +1,4 @@
+using Scorer.Host;
 using System.Net;
 using System.Text;
 using Grpc.Core;

@@ -96,7 +96,7 @@ internal static class DemoCommand
         WebApplication app;
         try
         {
-            app = await Scorer.Server.ScorerServer.BuildAsync(args, b => b.Configuration.AddInMemoryCollection(new Dictionary<string, string?>
+            app = await Scorer.Host.ScorerServer.BuildAsync(args, b => b.Configuration.AddInMemoryCollection(new Dictionary<string, string?>
             {
                 ["Scorer:SeedDemoModels"] = "false",
                 ["Scorer:LogLevel"] = "Warning",
@@ -168,7 +168,7 @@ internal static class DemoCommand
     /// </summary>
     internal static void WriteModels(string folder)
     {
-        var assembly = typeof(Scorer.Server.ScorerServer).Assembly;
+        var assembly = typeof(Scorer.Host.ScorerServer).Assembly;
         ModelDocument Read(string name)
         {
             using var stream = assembly.GetManifestResourceStream("demo/" + name) ?? throw new InvalidOperationException($"the demo model {name} is not embedded");

@@ -2,7 +2,7 @@ using Microsoft.Extensions.Diagnostics.HealthChecks;
 using Scorer.Registry;
 using Scorer.Store;
 
-namespace Scorer.Server;
+namespace Scorer.Host;
 
 /// <summary>
 /// Ready when models are loaded and the prediction log is not close to its bound. A store that does not answer, or that

@@ -10,7 +10,7 @@ using Scorer.Store.Sqlite;
 using Scorer.Transport;
 using Scorer.Transport.Services;
 
-namespace Scorer.Server;
+namespace Scorer.Host;
 
 /// <summary>Builds and runs the service: one process, embedded defaults, everything configurable.</summary>
 public static class ScorerServer

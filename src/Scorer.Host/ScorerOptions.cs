@@ -2,7 +2,7 @@ using System.Net;
 using Scorer.Store;
 using Scorer.Transport;
 
-namespace Scorer.Server;
+namespace Scorer.Host;
 
 /// <summary>The service's settings, bound from the <c>Scorer</c> section (appsettings.json, SCORER__… variables, flags).</summary>
 public sealed class ScorerOptions

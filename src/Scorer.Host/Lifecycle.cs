@@ -3,7 +3,7 @@ using Scorer.Registry;
 using Scorer.Store;
 using Scorer.Transport;
 
-namespace Scorer.Server;
+namespace Scorer.Host;
 
 /// <summary>
 /// Starts the folder watcher and the monitor's charts; on shutdown stops them, drains shadow scoring and the
