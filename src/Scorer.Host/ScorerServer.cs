@@ -120,7 +120,7 @@ public static class ScorerServer
         builder.Services.AddSingleton<Scorer.Transport.Rest.RestScoring>();
         // The monitor page (docs/page.md): its trends, overview and files.
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.TrendReporter>();
-        builder.Services.AddSingleton<Scorer.Transport.Rest.PageApi>();
+        builder.Services.AddSingleton<Scorer.Page.PageApi>();
         builder.Services.AddSingleton(options.Limits);
         builder.Services.AddSingleton<EventSubscribers>();
         var apiKeys = new ApiKeyInterceptor(options.Keys);
@@ -171,6 +171,11 @@ public static class ScorerServer
         // Failures of the REST routes of our own, in the API's error shape: a store that does not answer is 503 (the gRPC
         // and transcoded routes get the same from MetricsInterceptor). After the response started, the response is aborted.
         app.UseExceptionHandler(new ExceptionHandlerOptions { ExceptionHandler = Scorer.Transport.Rest.RestErrorHandler.UnknownAsync });
+
+        // The page's assets (static file middleware) before routing, which the fallback route would otherwise answer.
+        var page = app.Services.GetRequiredService<Scorer.Page.PageApi>();
+        page.UseAssets(app);
+        app.UseRouting();
 
         // A declared body over the limit is refused before anything reads it (Kestrel's own limit catches the rest).
         app.Use(async (context, next) =>
@@ -249,7 +254,7 @@ public static class ScorerServer
         var export = app.Services.GetRequiredService<Scorer.Transport.Rest.LabelledExport>();
         app.MapGet("/v1/models/{model}/labelled", (HttpContext context, string model) => export.HandleAsync(context, model));
         // The monitor page at / and /models/{model}, its files under /page/, and its JSON (docs/page.md).
-        app.Services.GetRequiredService<Scorer.Transport.Rest.PageApi>().Map(app);
+        page.Map(app);
         app.MapGet("/healthz", () => Results.Text("ok\n"));
         app.MapGet("/readyz", async ([Microsoft.AspNetCore.Mvc.FromServices] ReadinessCheck check) =>
         {

@@ -1,3 +1,5 @@
+using System.Net.ServerSentEvents;
+using System.Runtime.CompilerServices;
 using Scorer.Application.Models;
 using System.Text;
 using Google.Protobuf;
@@ -13,9 +15,10 @@ namespace Scorer.Transport.Rest;
 /// <summary>
 /// <c>GET /v1/models/{model}/monitor/events?version=&amp;window=</c>: the monitor's events as Server-Sent Events
 /// (<c>event: snapshot</c> or <c>event: status</c>, <c>data:</c> the report as JSON, as the REST report gives it), a
-/// comment line every 15 s to keep proxies from closing the connection. Same contract as gRPC <c>WatchReports</c>.
+/// <c>keepalive</c> event every 15 s to keep proxies from closing the connection (<see cref="EventStreams"/>). Same
+/// contract as gRPC <c>WatchReports</c>.
 /// </summary>
-public sealed class MonitorEvents(ModelCatalog catalog, MonitorWatch watch, ApiKeyInterceptor keys, EventSubscribers subscribers)
+public sealed class MonitorEvents(ModelCatalog catalog, MonitorWatch watch, ApiKeyInterceptor keys, EventSubscribers subscribers, TimeProvider time)
 {
     private static readonly JsonFormatter Json = new(JsonFormatter.Settings.Default.WithFormatDefaultValues(true));
 
@@ -37,56 +40,20 @@ public sealed class MonitorEvents(ModelCatalog catalog, MonitorWatch watch, ApiK
         }
 
         using var held = lease;
-        context.Response.ContentType = "text/event-stream; charset=utf-8";
-        context.Response.Headers.CacheControl = "no-cache";
-        context.Response.Headers["X-Accel-Buffering"] = "no";
-        var aborted = context.RequestAborted;
-        using var keepAlive = new PeriodicTimer(TimeSpan.FromSeconds(15));
-        var gate = new SemaphoreSlim(1, 1);
-        var pings = Task.Run(async () =>
-        {
-            while (await keepAlive.WaitForNextTickAsync(aborted).ConfigureAwait(false))
-            {
-                await Send(": still here\n\n").ConfigureAwait(false);
-            }
-        }, aborted);
-
         try
         {
-            await foreach (var e in watch.WatchAsync(version, window, aborted).ConfigureAwait(false))
-            {
-                await Send($"event: {e.Kind}\ndata: {Json.Format(e.Report)}\n\n").ConfigureAwait(false);
-            }
+            await EventStreams.WriteAsync(context, Events(version, window, context.RequestAborted), time).ConfigureAwait(false);
         }
-        catch (OperationCanceledException) when (aborted.IsCancellationRequested)
+        catch (OperationCanceledException) when (context.RequestAborted.IsCancellationRequested)
         {
         }
-        finally
-        {
-            keepAlive.Dispose();
-            try
-            {
-                await pings.ConfigureAwait(false);
-            }
-            catch (OperationCanceledException)
-            {
-            }
+    }
 
-            gate.Dispose();
-        }
-
-        async Task Send(string text)
+    private async IAsyncEnumerable<SseItem<string>> Events(LoadedVersion version, string window, [EnumeratorCancellation] CancellationToken cancellationToken)
+    {
+        await foreach (var e in watch.WatchAsync(version, window, cancellationToken).ConfigureAwait(false))
         {
-            await gate.WaitAsync(aborted).ConfigureAwait(false);
-            try
-            {
-                await context.Response.Body.WriteAsync(Encoding.UTF8.GetBytes(text), aborted).ConfigureAwait(false);
-                await context.Response.Body.FlushAsync(aborted).ConfigureAwait(false);
-            }
-            finally
-            {
-                gate.Release();
-            }
+            yield return new SseItem<string>(Json.Format(e.Report), e.Kind);
         }
     }
 }

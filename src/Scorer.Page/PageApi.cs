@@ -1,5 +1,9 @@
 using Scorer.Application.Models;
 using System.Buffers;
+using System.Net.ServerSentEvents;
+using System.Runtime.CompilerServices;
+using Scorer.Transport;
+using Scorer.Transport.Rest;
 using System.Globalization;
 using System.Text;
 using System.Text.Json;
@@ -15,7 +19,7 @@ using Scorer.Store;
 using Scorer.Transport.Services;
 using Scorer.Transport.V1;
 
-namespace Scorer.Transport.Rest;
+namespace Scorer.Page;
 
 /// <summary>A version's last change of status as this process saw it: when, from what (null for its first judgement since start), to what, and why.</summary>
 public sealed record StatusChange(DateTimeOffset At, string? From, string To, string Action, IReadOnlyList<string> Reasons, string Advice);
@@ -81,7 +85,10 @@ public sealed class PageApi
         }
     }
 
-    /// <summary>Maps the page (<c>/</c>, <c>/models/{model}</c>, <c>/page/{file}</c>) and its JSON endpoints.</summary>
+    /// <summary>The page's assets under <c>/page/</c>, through the static file middleware: call before routing.</summary>
+    public void UseAssets(IApplicationBuilder app) => _files.UseAssets(app);
+
+    /// <summary>Maps the page (<c>/</c>, <c>/models/{model}</c>) and its JSON endpoints.</summary>
     public void Map(IEndpointRouteBuilder app)
     {
         _files.Map(app);
@@ -230,7 +237,7 @@ public sealed class PageApi
             }
 
             w.WriteEndArray();
-            w.WriteString("at", Services.ModelsService.Time(failure.At));
+            w.WriteString("at", Scorer.Transport.Services.ModelsService.Time(failure.At));
             w.WriteString("kind", LoadFailure.KindName(failure.Kind));
             w.WriteEndObject();
         }
@@ -244,45 +251,37 @@ public sealed class PageApi
     /// <summary>The overview at once, then after each round of the monitor (coalesced) and at each change of status.</summary>
     private async Task StreamOverviewAsync(HttpContext context)
     {
-        var aborted = context.RequestAborted;
         using var lease = _subscribers.Enter();
+        try
+        {
+            await EventStreams.WriteAsync(context, OverviewEvents(context.RequestAborted), _time).ConfigureAwait(false);
+        }
+        catch (OperationCanceledException) when (context.RequestAborted.IsCancellationRequested)
+        {
+        }
+    }
+
+    private async IAsyncEnumerable<SseItem<string>> OverviewEvents([EnumeratorCancellation] CancellationToken cancellationToken)
+    {
         var signals = Channel.CreateBounded<bool>(new BoundedChannelOptions(16) { FullMode = BoundedChannelFullMode.DropOldest });
         void OnUpdated(bool status) => signals.Writer.TryWrite(status);
         Updated += OnUpdated;
         try
         {
-            context.Response.ContentType = "text/event-stream; charset=utf-8";
-            context.Response.Headers.CacheControl = "no-cache";
-            context.Response.Headers["X-Accel-Buffering"] = "no";
-            await SendAsync(context, "overview", await OverviewAsync(aborted).ConfigureAwait(false), aborted).ConfigureAwait(false);
-            while (!aborted.IsCancellationRequested)
+            yield return new SseItem<string>(Encoding.UTF8.GetString(await OverviewAsync(cancellationToken).ConfigureAwait(false)), "overview");
+            while (true)
             {
-                using var keepAlive = CancellationTokenSource.CreateLinkedTokenSource(aborted);
-                keepAlive.CancelAfter(TimeSpan.FromSeconds(15));
-                bool status;
-                try
-                {
-                    status = await signals.Reader.ReadAsync(keepAlive.Token).ConfigureAwait(false);
-                }
-                catch (OperationCanceledException) when (!aborted.IsCancellationRequested)
-                {
-                    await context.Response.Body.WriteAsync(": still here\n\n"u8.ToArray(), aborted).ConfigureAwait(false);
-                    await context.Response.Body.FlushAsync(aborted).ConfigureAwait(false);
-                    continue;
-                }
+                var status = await signals.Reader.ReadAsync(cancellationToken).ConfigureAwait(false);
 
                 // A round of the monitor raises one update per version and window: let it finish, then send once.
-                await Task.Delay(TimeSpan.FromMilliseconds(150), aborted).ConfigureAwait(false);
+                await Task.Delay(Coalesce, _time, cancellationToken).ConfigureAwait(false);
                 while (signals.Reader.TryRead(out var more))
                 {
                     status |= more;
                 }
 
-                await SendAsync(context, status ? "status" : "overview", await OverviewAsync(aborted).ConfigureAwait(false), aborted).ConfigureAwait(false);
+                yield return new SseItem<string>(Encoding.UTF8.GetString(await OverviewAsync(cancellationToken).ConfigureAwait(false)), status ? "status" : "overview");
             }
-        }
-        catch (OperationCanceledException) when (aborted.IsCancellationRequested)
-        {
         }
         finally
         {
@@ -290,13 +289,8 @@ public sealed class PageApi
         }
     }
 
-    private static async Task SendAsync(HttpContext context, string kind, byte[] json, CancellationToken cancellationToken)
-    {
-        await context.Response.Body.WriteAsync(Encoding.UTF8.GetBytes($"event: {kind}\ndata: "), cancellationToken).ConfigureAwait(false);
-        await context.Response.Body.WriteAsync(json, cancellationToken).ConfigureAwait(false);
-        await context.Response.Body.WriteAsync("\n\n"u8.ToArray(), cancellationToken).ConfigureAwait(false);
-        await context.Response.Body.FlushAsync(cancellationToken).ConfigureAwait(false);
-    }
+    /// <summary>How long the overview stream waits after an update for the rest of the monitor's round.</summary>
+    private static readonly TimeSpan Coalesce = TimeSpan.FromMilliseconds(150);
 
     private (LoadedVersion Version, string Window) Resolve(HttpContext context, string model) => _catalog.Monitored(model,
         context.Request.Query["version"].ToString(), context.Request.Query["window"].ToString());
