@@ -123,8 +123,7 @@ public static class ScorerServer
         builder.Services.AddSingleton<Scorer.Page.PageApi>();
         builder.Services.AddSingleton(options.Limits);
         builder.Services.AddSingleton<EventSubscribers>();
-        var apiKeys = new ApiKeyInterceptor(options.Keys);
-        builder.Services.AddSingleton(apiKeys);
+        builder.Services.AddApiKeys(options.Keys); // the ApiKey scheme and the role policies (Scorer.Transport/Security)
         builder.Services.AddSingleton<ScorerMetrics>();
         builder.Services.AddExceptionHandler<Scorer.Transport.Rest.RestErrorHandler>();
         builder.Services.AddSingleton<MetricsInterceptor>();
@@ -133,7 +132,6 @@ public static class ScorerServer
             .AddGrpc(g =>
             {
                 g.Interceptors.Add<MetricsInterceptor>();
-                g.Interceptors.Add<ApiKeyInterceptor>();
                 g.MaxReceiveMessageSize = (int)Math.Min(int.MaxValue, options.MaxRequestBodyBytes);
                 g.EnableDetailedErrors = false;
             })
@@ -211,6 +209,11 @@ public static class ScorerServer
             app.UseRateLimiter();
         }
 
+        // Every call but health, metrics and the page's HTML needs a key with the role its endpoint names ([Authorize] on
+        // the gRPC services, which the transcoded and direct REST routes carry too; RequireAuthorization on the others).
+        app.UseAuthentication();
+        app.UseAuthorization();
+
         if (options.DirectRestScoring)
         {
             // In front of the transcoded endpoint of the same route (routing has already matched it).
@@ -250,9 +253,11 @@ public static class ScorerServer
             await metrics.Registry.CollectAndExportAsTextAsync(context.Response.Body, context.RequestAborted).ConfigureAwait(false);
         });
         var monitorEvents = app.Services.GetRequiredService<Scorer.Transport.Rest.MonitorEvents>();
-        app.MapGet("/v1/models/{model}/monitor/events", (HttpContext context, string model) => monitorEvents.HandleAsync(context, model));
+        app.MapGet("/v1/models/{model}/monitor/events", (HttpContext context, string model) => monitorEvents.HandleAsync(context, model))
+            .RequireAuthorization(Roles.Score);
         var export = app.Services.GetRequiredService<Scorer.Transport.Rest.LabelledExport>();
-        app.MapGet("/v1/models/{model}/labelled", (HttpContext context, string model) => export.HandleAsync(context, model));
+        app.MapGet("/v1/models/{model}/labelled", (HttpContext context, string model) => export.HandleAsync(context, model))
+            .RequireAuthorization(Roles.Admin);
         // The monitor page at / and /models/{model}, its files under /page/, and its JSON (docs/page.md).
         page.Map(app);
         app.MapGet("/healthz", () => Results.Text("ok\n"));

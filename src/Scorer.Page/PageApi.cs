@@ -39,9 +39,6 @@ public sealed record StatusChange(DateTimeOffset At, string? From, string To, st
 /// </summary>
 public sealed class PageApi
 {
-    private const string OverviewMethod = "/scorer.v1.Page/Overview";
-    private const string TrendMethod = "/scorer.v1.Page/Trend";
-
     private static readonly JsonWriterOptions WriterOptions = new() { Encoder = System.Text.Encodings.Web.JavaScriptEncoder.UnsafeRelaxedJsonEscaping };
 
     private readonly ModelRegistry _registry;
@@ -50,14 +47,13 @@ public sealed class PageApi
     private readonly MonitorLoop _loop;
     private readonly TrendReporter _trends;
     private readonly IScorerStore _store;
-    private readonly ApiKeyInterceptor _keys;
     private readonly TimeProvider _time;
     private readonly EventSubscribers _subscribers;
     private readonly PageFiles _files = new();
     private readonly Lock _lock = new();
     private readonly Dictionary<(string Model, string Version), StatusChange> _changes = [];
 
-    public PageApi(ModelRegistry registry, ModelCatalog catalog, MonitorReporter reporter, MonitorLoop loop, TrendReporter trends, IScorerStore store, ApiKeyInterceptor keys,
+    public PageApi(ModelRegistry registry, ModelCatalog catalog, MonitorReporter reporter, MonitorLoop loop, TrendReporter trends, IScorerStore store,
         TimeProvider time, EventSubscribers subscribers)
     {
         _subscribers = subscribers;
@@ -67,7 +63,6 @@ public sealed class PageApi
         _loop = loop;
         _trends = trends;
         _store = store;
-        _keys = keys;
         _time = time;
         reporter.StatusChanged += OnStatusChanged;
         loop.Updated += _ => Updated?.Invoke(false);
@@ -92,10 +87,11 @@ public sealed class PageApi
     public void Map(IEndpointRouteBuilder app)
     {
         _files.Map(app);
-        app.MapGet("/v1/overview", (HttpContext context) => Guarded(context, OverviewMethod, WriteOverviewAsync));
-        app.MapGet("/v1/overview/events", (HttpContext context) => Guarded(context, OverviewMethod, StreamOverviewAsync));
-        app.MapGet("/v1/models/{model}/monitor/trend", (HttpContext context, string model) => Guarded(context, TrendMethod, c => WriteTrendAsync(c, model)));
-        app.MapGet("/v1/models/{model}/monitor/cusum", (HttpContext context, string model) => Guarded(context, TrendMethod, c => WriteCusumAsync(c, model)));
+        // Reads, like every read of the API: the score role (Roles).
+        app.MapGet("/v1/overview", (HttpContext context) => Guarded(context, WriteOverviewAsync)).RequireAuthorization(Roles.Score);
+        app.MapGet("/v1/overview/events", (HttpContext context) => Guarded(context, StreamOverviewAsync)).RequireAuthorization(Roles.Score);
+        app.MapGet("/v1/models/{model}/monitor/trend", (HttpContext context, string model) => Guarded(context, c => WriteTrendAsync(c, model))).RequireAuthorization(Roles.Score);
+        app.MapGet("/v1/models/{model}/monitor/cusum", (HttpContext context, string model) => Guarded(context, c => WriteCusumAsync(c, model))).RequireAuthorization(Roles.Score);
     }
 
     private void OnStatusChanged(string model, string version, StatusJudgement judgement)
@@ -109,13 +105,12 @@ public sealed class PageApi
         Updated?.Invoke(true);
     }
 
-    /// <summary>Checks the key, then answers; a refusal or a bad request becomes the API's JSON error.</summary>
-    private async Task Guarded(HttpContext context, string method, Func<HttpContext, Task> answer)
+    /// <summary>Answers; a bad request becomes the API's JSON error.</summary>
+    private static async Task Guarded(HttpContext context, Func<HttpContext, Task> answer)
     {
         context.Response.Headers.XContentTypeOptions = "nosniff";
         try
         {
-            _keys.Authorize(context.Request.Headers.Authorization.Count > 0 ? context.Request.Headers.Authorization.ToString() : null, method);
             await answer(context).ConfigureAwait(false);
         }
         catch (RpcException ex) when (!context.Response.HasStarted)

@@ -22,7 +22,7 @@ namespace Scorer.Transport.Rest;
 /// transcoder gives one vague message for a malformed body, this reader names the field and the reason, and a row
 /// that is not an object, or that names a feature twice, fails that row only.
 /// </summary>
-public sealed class RestScoring(ScoringPipeline pipeline, ApiKeyInterceptor keys)
+public sealed class RestScoring(ScoringPipeline pipeline)
 {
     public const string Method = "/scorer.v1.Scoring/Score";
 
@@ -44,7 +44,6 @@ public sealed class RestScoring(ScoringPipeline pipeline, ApiKeyInterceptor keys
         var holding = false; // a read result not yet handed back to the body reader
         try
         {
-            keys.Authorize(context.Request.Headers.Authorization.Count > 0 ? context.Request.Headers.Authorization.ToString() : null, Method);
             CheckContentType(context.Request.ContentType);
             while (true)
             {

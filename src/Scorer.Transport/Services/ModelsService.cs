@@ -1,3 +1,4 @@
+using Microsoft.AspNetCore.Authorization;
 using System.Globalization;
 using Google.Protobuf.WellKnownTypes;
 using Grpc.Core;
@@ -10,6 +11,7 @@ using Scorer.Transport.V1;
 namespace Scorer.Transport.Services;
 
 /// <summary>What is loaded, the files as loaded, stage changes (admin) and their history.</summary>
+[Authorize(Policy = Roles.Score)]
 public sealed class ModelsService(ModelCatalog catalog, StageChanges stages) : Models.ModelsBase
 {
     public override Task<ListModelsResponse> ListModels(ListModelsRequest request, ServerCallContext context)
@@ -54,15 +56,17 @@ public sealed class ModelsService(ModelCatalog catalog, StageChanges stages) : M
         return Task.FromResult(Struct.Parser.ParseJson(System.Text.Encoding.UTF8.GetString(version.FileBytes.Span)));
     }
 
+    [Authorize(Policy = Roles.Admin)]
     public override async Task<StageResponse> SetStage(SetStageRequest request, ServerCallContext context)
     {
-        var changes = await stages.SetAsync(request.Model, request.Version, request.Stage, ApiKeyInterceptor.Actor(context), context.CancellationToken).ConfigureAwait(false);
+        var changes = await stages.SetAsync(request.Model, request.Version, request.Stage, ApiKeyAuthentication.Actor(context), context.CancellationToken).ConfigureAwait(false);
         return Response(request.Model, changes);
     }
 
+    [Authorize(Policy = Roles.Admin)]
     public override async Task<StageResponse> Rollback(RollbackRequest request, ServerCallContext context)
     {
-        var changes = await stages.RollbackAsync(request.Model, ApiKeyInterceptor.Actor(context), context.CancellationToken).ConfigureAwait(false);
+        var changes = await stages.RollbackAsync(request.Model, ApiKeyAuthentication.Actor(context), context.CancellationToken).ConfigureAwait(false);
         return Response(request.Model, changes);
     }
 

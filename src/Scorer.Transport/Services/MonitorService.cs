@@ -1,3 +1,4 @@
+using Microsoft.AspNetCore.Authorization;
 using Google.Protobuf.WellKnownTypes;
 using Grpc.Core;
 using Scorer.Statistics.Recalibration;
@@ -11,8 +12,10 @@ using Scorer.Transport.V1;
 namespace Scorer.Transport.Services;
 
 /// <summary>The monitor's reports over gRPC (and REST through transcoding).</summary>
+[Authorize(Policy = Roles.Score)]
 public sealed class MonitorService(MonitorReporter reporter, MonitorWatch watch, ModelCatalog catalog, Recalibration recalibration, EventSubscribers subscribers) : V1.Monitor.MonitorBase
 {
+    [Authorize(Policy = Roles.Admin)]
     public override async Task<RecalibrateResponse> Recalibrate(RecalibrateRequest request, ServerCallContext context)
     {
         var result = await recalibration.RunAsync(request.Model, request.Version, request.Window, request.Kind, request.NewVersion, context.CancellationToken)

@@ -1,3 +1,4 @@
+using Microsoft.AspNetCore.Authorization;
 using Grpc.Core;
 using Scorer.Application.Outcomes;
 using Scorer.Store;
@@ -9,6 +10,7 @@ namespace Scorer.Transport.Services;
 /// Outcomes of earlier predictions, by id or business key. Each message is checked whole before anything is recorded
 /// (a bad entry refuses the message, naming it), then recorded in one transaction before the answer is sent.
 /// </summary>
+[Authorize(Policy = Roles.Outcomes)]
 public sealed class OutcomesService(OutcomeIntake intake)
     : V1.Outcomes.OutcomesBase
 {

@@ -1,3 +1,4 @@
+using Microsoft.AspNetCore.Authorization;
 using System.Buffers;
 using Google.Protobuf.Collections;
 using Google.Protobuf.WellKnownTypes;
@@ -14,6 +15,7 @@ namespace Scorer.Transport.Services;
 /// Scoring over gRPC (and REST through transcoding): reads each message's rows (<see cref="MessageRows"/>), runs them
 /// through the <see cref="ScoringPipeline"/> and writes the protobuf response (<see cref="MessageWriter"/>).
 /// </summary>
+[Authorize(Policy = Roles.Score)]
 public sealed class ScoringService(ScoringPipeline pipeline) : Scoring.ScoringBase
 {
     public override Task<ScoreResponse> Score(ScoreRequest request, ServerCallContext context) => Task.FromResult(ScoreMessage(request));
