@@ -105,6 +105,11 @@ public sealed partial class PostgresScorerStore : IScorerStore
             builder.AutoPrepareMinUsages = 2;
         }
 
+        if (options.PruneInterval <= TimeSpan.Zero)
+        {
+            throw new ArgumentException($"PruneInterval is {options.PruneInterval}; it must be positive.", nameof(options));
+        }
+
         Options = options;
         _connectionString = builder.ConnectionString;
         _dataSource = NpgsqlDataSource.Create(builder);
