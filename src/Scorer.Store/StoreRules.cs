@@ -4,7 +4,8 @@ using System.Reflection;
 namespace Scorer.Store;
 
 /// <summary>
-/// What every store driver checks and names the same way: a prediction's fields, a version to add, stage changes, text the stores cannot keep, and stages as text. The outcome reports' checks and rules are <see cref="OutcomeRules"/>.
+/// What every store driver checks and names the same way: a prediction's fields, a version to add, stage changes,
+/// text the stores cannot keep, and stages as text. The outcome reports' checks and rules are <see cref="OutcomeRules"/>.
 /// </summary>
 public static class StoreRules
 {
