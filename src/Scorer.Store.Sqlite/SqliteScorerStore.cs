@@ -25,6 +25,12 @@ namespace Scorer.Store.Sqlite;
 /// repeated in a batch or already stored throws <see cref="InvalidOperationException"/> naming the id. Either way the
 /// batch writes nothing. History comes in the order the changes were made.
 /// </para>
+/// <para>
+/// Leases are rows of the file with their holder and the end of the hold (<see cref="TryHoldLeaseAsync"/>), so at most
+/// one instance among all the processes on the file holds one. Outcome reports are checked and applied by the rules
+/// every driver shares (<see cref="OutcomeRules"/>). The class is split by concern: <c>.Stages</c>, <c>.Predictions</c>,
+/// <c>.Outcomes</c>, <c>.Labelled</c>, <c>.Drift</c>, <c>.Leases</c>; this file holds opening, migrating, writing and closing.
+/// </para>
 /// </remarks>
 public sealed partial class SqliteScorerStore : IScorerStore, IStoreSpaceSignal
 {
