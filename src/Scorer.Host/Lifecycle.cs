@@ -6,70 +6,41 @@ using Scorer.Transport;
 namespace Scorer.Host;
 
 /// <summary>
-/// Starts the folder watcher and the monitor's charts; on shutdown stops them, drains shadow scoring and the
-/// prediction log, closes the store.
+/// Starts the folder watcher, the monitor's charts, the drift counts' flush and the stores' stage-change signals; on
+/// shutdown stops them, gives up the charts' lease, and drains shadow scoring and the prediction log. The store
+/// driver's own background work (retention) and the store's closing, after all this, belong to the driver's hosted
+/// service (<c>AddSqliteStore</c>, <c>AddPostgresStore</c>).
 /// </summary>
-internal sealed class Lifecycle(RegistryWatcher watcher, ShadowScorer shadows, PredictionLog log, IScorerStore store, ChartRunner charts, DriftTracker drift,
-    MonitorLoop monitor, StatusWebhook webhook, TimeProvider time, ILogger<Lifecycle> logger)
+internal sealed partial class Lifecycle(RegistryWatcher watcher, ShadowScorer shadows, PredictionLog log, ILeaseStore leases,
+    IEnumerable<IStageChangeSignal> stageSignals, ChartRunner charts, DriftTracker drift, MonitorLoop monitor, StatusWebhook webhook, TimeProvider time,
+    ILogger<Lifecycle> logger)
     : IHostedService
 {
+    /// <summary>How often the drift counts are added to the store.</summary>
+    internal static readonly TimeSpan DriftFlushInterval = TimeSpan.FromSeconds(1);
+
     private readonly CancellationTokenSource _stopping = new();
-    private Task _charts = Task.CompletedTask;
-    private Task _monitor = Task.CompletedTask;
-    private Task _drift = Task.CompletedTask;
-    private Task _stages = Task.CompletedTask;
-    private Task _prune = Task.CompletedTask;
+    private readonly List<Task> _loops = [];
 
     public Task StartAsync(CancellationToken cancellationToken)
     {
         watcher.Start();
-        _charts = Task.Run(() => charts.RunAsync(_stopping.Token), CancellationToken.None);
-        _monitor = Task.Run(() => monitor.RunAsync(_stopping.Token), CancellationToken.None);
-        _drift = Task.Run(() => FlushDriftAsync(_stopping.Token), CancellationToken.None);
-        if (store is IStageChangeSignal signal)
+        _loops.Add(Task.Run(() => charts.RunAsync(_stopping.Token), CancellationToken.None));
+        _loops.Add(Task.Run(() => monitor.RunAsync(_stopping.Token), CancellationToken.None));
+        _loops.Add(Task.Run(() => FlushDriftAsync(_stopping.Token), CancellationToken.None));
+        foreach (var signal in stageSignals)
         {
             // Another replica changed a stage: rescan at once instead of at the next turn.
-            _stages = Task.Run(() => signal.ListenForStageChangesAsync(_ => watcher.Poke(), _stopping.Token), CancellationToken.None);
-        }
-
-        if (store is Scorer.Store.Postgres.PostgresScorerStore postgres && postgres.Options.PredictionRetention is not null)
-        {
-            _prune = Task.Run(() => PruneAsync(postgres, _stopping.Token), CancellationToken.None);
+            _loops.Add(Task.Run(() => signal.ListenForStageChangesAsync(_ => watcher.Poke(), _stopping.Token), CancellationToken.None));
         }
 
         return Task.CompletedTask;
     }
 
-    /// <summary>Applies the prediction log's retention every hour (PostgreSQL; see PostgresScorerStore.PruneAsync).</summary>
-    private async Task PruneAsync(Scorer.Store.Postgres.PostgresScorerStore postgres, CancellationToken cancellationToken)
-    {
-        using var timer = new PeriodicTimer(TimeSpan.FromHours(1));
-        do
-        {
-            try
-            {
-                var result = await postgres.PruneAsync(time.GetUtcNow(), cancellationToken).ConfigureAwait(false);
-                logger.LogInformation("Prediction log retention: {Deleted} predictions deleted, {Kept} past the retention kept because their outcome is still expected",
-                    result.Deleted, result.KeptAwaitingOutcome);
-            }
-            catch (OperationCanceledException) when (cancellationToken.IsCancellationRequested)
-            {
-                return;
-            }
-#pragma warning disable CA1031 // retried at the next tick
-            catch (Exception ex)
-#pragma warning restore CA1031
-            {
-                logger.LogError(ex, "Applying the prediction log's retention failed; retrying in an hour");
-            }
-        }
-        while (await timer.WaitForNextTickAsync(cancellationToken).ConfigureAwait(false));
-    }
-
-    /// <summary>Adds the drift counts to the store every second; a failed flush keeps them for the next.</summary>
+    /// <summary>Adds the drift counts to the store every <see cref="DriftFlushInterval"/> (on the injected clock); a failed flush keeps them for the next.</summary>
     private async Task FlushDriftAsync(CancellationToken cancellationToken)
     {
-        using var timer = new PeriodicTimer(TimeSpan.FromSeconds(1));
+        using var timer = new PeriodicTimer(DriftFlushInterval, time);
         while (await timer.WaitForNextTickAsync(cancellationToken).ConfigureAwait(false))
         {
             try
@@ -84,7 +55,7 @@ internal sealed class Lifecycle(RegistryWatcher watcher, ShadowScorer shadows, P
             catch (Exception ex)
 #pragma warning restore CA1031
             {
-                logger.LogError(ex, "Adding the drift counts to the store failed; retrying");
+                DriftFlushFailed(ex);
             }
         }
     }
@@ -92,7 +63,7 @@ internal sealed class Lifecycle(RegistryWatcher watcher, ShadowScorer shadows, P
     public async Task StopAsync(CancellationToken cancellationToken)
     {
         await _stopping.CancelAsync().ConfigureAwait(false);
-        foreach (var loop in new[] { _charts, _monitor, _drift, _stages, _prune })
+        foreach (var loop in _loops)
         {
             try
             {
@@ -105,12 +76,14 @@ internal sealed class Lifecycle(RegistryWatcher watcher, ShadowScorer shadows, P
 
         await webhook.DisposeAsync().ConfigureAwait(false);
         await drift.FlushAsync(CancellationToken.None).ConfigureAwait(false); // what was counted since the last tick
-        await store.ReleaseLeaseAsync(ChartRunner.Lease, CancellationToken.None).ConfigureAwait(false); // another replica takes the charts at once
+        await leases.ReleaseLeaseAsync(ChartRunner.Lease, CancellationToken.None).ConfigureAwait(false); // another replica takes the charts at once
 
         await watcher.DisposeAsync().ConfigureAwait(false);
         await shadows.DisposeAsync().ConfigureAwait(false);
         await log.StopAsync().ConfigureAwait(false);
-        await store.DisposeAsync().ConfigureAwait(false);
         _stopping.Dispose();
     }
+
+    [LoggerMessage(EventId = 1101, Level = LogLevel.Error, Message = "Adding the drift counts to the store failed; retrying")]
+    private partial void DriftFlushFailed(Exception error);
 }

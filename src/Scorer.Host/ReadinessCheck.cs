@@ -6,12 +6,12 @@ namespace Scorer.Host;
 
 /// <summary>
 /// Ready when models are loaded and the prediction log is not close to its bound. A store that does not answer, or that
-/// refuses writes for lack of space (<see cref="IStoreSpaceSignal"/>), makes the service degraded, not unready:
+/// refuses writes for lack of space (an <see cref="IStoreSpaceSignal"/> its driver registered), makes the service degraded, not unready:
 /// scoring goes on (the log keeps the rows, up to its bound, and writes them when the store is back), while outcome
 /// reports and stage changes are refused, since they are acknowledged only once stored. Only when the log nears its bound does readiness fail, so that traffic moves to replicas that can keep
 /// their rows.
 /// </summary>
-internal sealed class ReadinessCheck(ModelRegistry registry, IScorerStore store, PredictionLog log) : IHealthCheck
+internal sealed class ReadinessCheck(ModelRegistry registry, IStageStore store, IEnumerable<IStoreSpaceSignal> space, PredictionLog log) : IHealthCheck
 {
     public async Task<(bool Ready, IReadOnlyList<string> Reasons)> EvaluateAsync(CancellationToken cancellationToken = default)
     {
@@ -54,7 +54,7 @@ internal sealed class ReadinessCheck(ModelRegistry registry, IScorerStore store,
         }
 
         // Reads go on when the disk is full, so the probe above does not notice; the store says when its writes are refused.
-        if (store is IStoreSpaceSignal { Full: { } full })
+        foreach (var full in space.Select(s => s.Full).OfType<StoreFull>())
         {
             reasons.Add($"degraded: store full since {full.Since:yyyy-MM-ddTHH:mm:ssZ}, writes refused for lack of space (scoring goes on, rows wait in the "
                 + "prediction log; outcomes and stage changes may be refused): " + full.Reason);

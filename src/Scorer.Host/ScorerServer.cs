@@ -6,6 +6,7 @@ using Microsoft.Extensions.DependencyInjection.Extensions;
 using Microsoft.Extensions.Options;
 using Scorer.Registry;
 using Scorer.Store;
+using Scorer.Store.Postgres;
 using Scorer.Store.Sqlite;
 using Scorer.Transport;
 using Scorer.Transport.Services;
@@ -24,6 +25,18 @@ public static class ScorerServer
         ["--http"] = "Scorer:Http",
         ["--grpc"] = "Scorer:Grpc",
     };
+
+    /// <summary>
+    /// Each store kind (<c>Scorer:Store:Kind</c>) and the driver's registration of it; <see cref="StoreOptions.Validate"/>
+    /// refuses any other kind.
+    /// </summary>
+    internal static readonly IReadOnlyDictionary<string, Action<IServiceCollection, StoreOptions>> StoreKinds =
+        new Dictionary<string, Action<IServiceCollection, StoreOptions>>(StringComparer.Ordinal)
+        {
+            ["sqlite"] = (services, store) => services.AddSqliteStore(store.Path, new SqliteStoreOptions { MaxSizeBytes = store.MaxSizeMegabytes << 20 }),
+            ["postgres"] = (services, store) => services.AddPostgresStore(store.ConnectionString!,
+                new PostgresStoreOptions { Schema = store.Schema, PredictionRetention = store.PredictionRetention }),
+        };
 
     public static async Task<int> RunAsync(string[] args)
     {
@@ -88,16 +101,14 @@ public static class ScorerServer
         });
         builder.Services.AddSingleton(options);
         builder.Services.TryAddSingleton(TimeProvider.System); // a test may bring its own clock
-        builder.Services.AddSingleton<IScorerStore>(sp => options.Store.Kind == "postgres"
-            ? Scorer.Store.Postgres.PostgresScorerStore.ForConnectionString(options.Store.ConnectionString!,
-                new Scorer.Store.Postgres.PostgresStoreOptions { Schema = options.Store.Schema, PredictionRetention = options.Store.PredictionRetention })
-            : SqliteScorerStore.ForFile(options.Store.Path, new SqliteStoreOptions { MaxSizeBytes = options.Store.MaxSizeMegabytes << 20 },
-                sp.GetRequiredService<TimeProvider>()));
+        // The store of the configured kind: its driver registers the store (as IScorerStore and each narrow contract),
+        // its signals and its own background work.
+        StoreKinds[options.Store.Kind](builder.Services, options.Store);
         builder.Services.AddSingleton(new RegistryOptions { ModelsPath = options.ModelsPath, Reader = options.ModelFiles.ToReaderOptions() });
         builder.Services.AddSingleton<ModelRegistry>();
         builder.Services.AddSingleton(sp => new RegistryWatcher(sp.GetRequiredService<ModelRegistry>(), sp.GetRequiredService<RegistryOptions>(),
             sp.GetRequiredService<TimeProvider>(), sp.GetRequiredService<ILogger<RegistryWatcher>>()) { RescanInterval = options.RescanInterval });
-        builder.Services.AddSingleton(sp => new PredictionLog(sp.GetRequiredService<IScorerStore>(), options.PredictionLog, sp.GetRequiredService<ILogger<PredictionLog>>(),
+        builder.Services.AddSingleton(sp => new PredictionLog(sp.GetRequiredService<IPredictionLogStore>(), options.PredictionLog, sp.GetRequiredService<ILogger<PredictionLog>>(),
             sp.GetRequiredService<TimeProvider>()));
         builder.Services.AddSingleton<ShadowScorer>();
         // The application layer (src/Scorer.Application): every transport goes through these.
@@ -285,8 +296,7 @@ public static class ScorerServer
             logger.LogInformation("Created {Folder} with the demo models", Path.GetFullPath(options.ModelsPath));
         }
 
-        var store = app.Services.GetRequiredService<IScorerStore>();
-        await store.MigrateAsync().ConfigureAwait(false);
+        await app.Services.GetRequiredService<IScorerStore>().MigrateAsync().ConfigureAwait(false);
         var snapshot = await app.Services.GetRequiredService<ModelRegistry>().ReloadAsync().ConfigureAwait(false);
         logger.LogInformation("REST on http://{Http}, gRPC (h2c) on http://{Grpc}; store {Store}; models from {Models}",
             options.Http, options.Grpc, options.Store.Describe(), Path.GetFullPath(options.ModelsPath));

@@ -37,7 +37,7 @@ public sealed class RegistryException(string field, string reason, bool notFound
 /// A scan reads, validates and compiles without the lock that stage changes take; it takes that lock only to add the
 /// compiled versions and publish. A file is read again only when its length, times or inode change.
 /// </remarks>
-public sealed partial class ModelRegistry(RegistryOptions options, IScorerStore store, TimeProvider time, ILogger<ModelRegistry> logger)
+public sealed partial class ModelRegistry(RegistryOptions options, IStageStore store, TimeProvider time, ILogger<ModelRegistry> logger)
 {
     public const string SystemActor = "registry";
 

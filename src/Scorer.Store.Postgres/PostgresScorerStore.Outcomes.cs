@@ -4,7 +4,7 @@ using NpgsqlTypes;
 
 namespace Scorer.Store.Postgres;
 
-/// <summary>Outcomes, implicit negatives, the labelled change feed and the prediction log's retention.</summary>
+/// <summary>Outcome reports (by the shared rules), implicit negatives, and the model's outcome lock.</summary>
 public sealed partial class PostgresScorerStore
 {
     /// <summary>
@@ -13,9 +13,9 @@ public sealed partial class PostgresScorerStore
     /// statement; the caller holds the model's outcome lock, so what it reads stays as read until it commits.
     /// </summary>
     private const string TargetsSql =
-        "SELECT p.id, p.version, p.stage, p.scored_at, p.eta, p.probability, p.live_id, o.outcome, o.implicit, NULL::text "
+        "SELECT p.id, p.version, p.stage, p.scored_at, p.eta, p.probability, p.live_id, o.outcome, o.implicit, p.\"key\" "
         + "FROM predictions p LEFT JOIN outcomes o ON o.prediction_id = p.id WHERE p.model = $1 AND p.id = ANY($2) "
-        + "UNION ALL SELECT p.id, p.version, p.stage, p.scored_at, p.eta, p.probability, p.live_id, o.outcome, o.implicit, NULL::text "
+        + "UNION ALL SELECT p.id, p.version, p.stage, p.scored_at, p.eta, p.probability, p.live_id, o.outcome, o.implicit, p.\"key\" "
         + "FROM predictions p LEFT JOIN outcomes o ON o.prediction_id = p.id WHERE p.model = $1 AND p.live_id = ANY($2) "
         + "UNION ALL SELECT p.id, p.version, p.stage, p.scored_at, p.eta, p.probability, p.live_id, o.outcome, o.implicit, p.\"key\" "
         + "FROM predictions p LEFT JOIN outcomes o ON o.prediction_id = p.id WHERE p.model = $1 AND p.\"key\" = ANY($3)";
@@ -42,7 +42,7 @@ public sealed partial class PostgresScorerStore
     /// Set-based, three round trips whatever the batch's size: (1) the model's outcome lock (writers of one model's
     /// outcomes take turns, here and in other processes, as the SQLite driver's writers do), then one statement reads
     /// every prediction the reports reach (by id, as paired shadows, by key) with its recorded outcome; (2) the reports
-    /// are applied in memory, in the SQLite driver's order and with its rules (<see cref="OutcomeApplication"/>),
+    /// are applied in memory, in the order and by the rules every driver shares (<see cref="OutcomeRules"/>),
     /// giving the receipt and the net writes, and one batch of statements makes them: new outcome rows, changed ones,
     /// conflict rows, each from arrays (unnest); (3) commit.
     /// </para>
@@ -56,31 +56,10 @@ public sealed partial class PostgresScorerStore
     public async Task<OutcomeReceipt> RecordOutcomesAsync(string model, IReadOnlyList<OutcomeReport> reports, ConflictPolicy policy, DateTimeOffset recordedAt,
         CancellationToken cancellationToken = default)
     {
-        ArgumentException.ThrowIfNullOrEmpty(model);
-        ArgumentNullException.ThrowIfNull(reports);
-        for (var i = 0; i < reports.Count; i++)
-        {
-            var r = reports[i] ?? throw new ArgumentException($"reports[{i}] is null.", nameof(reports));
-            if (r.Id is null == string.IsNullOrEmpty(r.Key))
-            {
-                throw new ArgumentException($"reports[{i}] must give either an id or a key.", nameof(reports));
-            }
-
-            if (r.Outcome > 1)
-            {
-                throw new ArgumentException($"reports[{i}] has outcome {r.Outcome}; outcomes are 0 or 1.", nameof(reports));
-            }
-
-        }
-
-        if (!Enum.IsDefined(policy))
-        {
-            throw new ArgumentOutOfRangeException(nameof(policy), policy, "Not a conflict policy: expected KeepFirst or TakeLatest.");
-        }
-
-        var ids = reports.Where(r => r.Id is not null).Select(r => r.Id!.Value).Distinct().ToArray();
+        OutcomeRules.Check(model, reports, policy);
+        var ids = OutcomeRules.Ids(reports);
         // A key holding U+0000 is left out of the lookup (PostgreSQL text cannot hold it, so no prediction has it): it is unknown.
-        var keys = reports.Where(r => r.Id is null && !r.Key!.Contains('\0', StringComparison.Ordinal)).Select(r => r.Key!).Distinct(StringComparer.Ordinal).ToArray();
+        var keys = OutcomeRules.Keys(reports).Where(k => !k.Contains('\0', StringComparison.Ordinal)).ToArray();
         await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
         for (var attempt = 1; ; attempt++)
         {
@@ -114,9 +93,8 @@ public sealed partial class PostgresScorerStore
     private static async Task<OutcomeReceipt?> TryRecordOutcomesAsync(NpgsqlConnection connection, NpgsqlTransaction transaction, string model,
         IReadOnlyList<OutcomeReport> reports, Guid[] ids, string[] keys, ConflictPolicy policy, DateTimeOffset recordedAt, CancellationToken cancellationToken)
     {
-        var targets = new Dictionary<Guid, OutcomeTarget>();
-        var shadowsOf = new Dictionary<Guid, List<Guid>>();
-        var byKey = new Dictionary<string, List<Guid>>(StringComparer.Ordinal);
+        var rows = new Dictionary<Guid, OutcomeRow>();
+        var targets = new List<OutcomeTarget>();
         var recorded = new Dictionary<Guid, RecordedOutcome>();
 
         // (1) The model's outcome lock, then everything the reports reach with its recorded outcome, in one round trip.
@@ -134,30 +112,21 @@ public sealed partial class PostgresScorerStore
             await reader.NextResultAsync(cancellationToken).ConfigureAwait(false);
             while (await reader.ReadAsync(cancellationToken).ConfigureAwait(false))
             {
-                var target = new OutcomeTarget(reader.GetGuid(0), reader.GetString(1), reader.GetString(2), reader.GetDateTime(3), reader.GetDouble(4),
+                var row = new OutcomeRow(reader.GetGuid(0), reader.GetString(1), reader.GetString(2), reader.GetDateTime(3), reader.GetDouble(4),
                     reader.GetDouble(5), reader.IsDBNull(6) ? null : reader.GetGuid(6));
-                if (targets.TryAdd(target.Id, target))
+                if (rows.TryAdd(row.Id, row))
                 {
-                    if (target.LiveId is { } live)
-                    {
-                        Add(shadowsOf, live, target.Id);
-                    }
-
+                    targets.Add(new OutcomeTarget(row.Id, row.LiveId, reader.IsDBNull(9) ? null : reader.GetString(9)));
                     if (!reader.IsDBNull(7))
                     {
-                        recorded[target.Id] = new RecordedOutcome((byte)reader.GetInt16(7), reader.GetBoolean(8));
+                        recorded[row.Id] = new RecordedOutcome((byte)reader.GetInt16(7), reader.GetBoolean(8));
                     }
-                }
-
-                if (!reader.IsDBNull(9))
-                {
-                    Add(byKey, reader.GetString(9), target.Id);
                 }
             }
         }
 
-        // (2) The reports applied in memory, then the net writes in one round trip.
-        var applied = OutcomeApplication.Apply(reports, targets, shadowsOf, byKey, recorded, policy);
+        // (2) The reports applied in memory by the shared rules, then the net writes in one round trip.
+        var applied = OutcomeRules.Apply(reports, targets, recorded, policy);
         var write = new NpgsqlBatch(connection, transaction);
         await using (write.ConfigureAwait(false))
         {
@@ -165,44 +134,44 @@ public sealed partial class PostgresScorerStore
             NpgsqlBatchCommand? insert = null;
             if (applied.Inserts.Count > 0)
             {
-                var rows = applied.Inserts;
+                var inserts = applied.Inserts.Select(w => (Write: w, Row: rows[w.Id])).ToArray();
                 insert = new NpgsqlBatchCommand(InsertOutcomesSql);
                 insert.Parameters.Add(Text(model));
                 insert.Parameters.Add(new NpgsqlParameter<DateTime> { TypedValue = now, NpgsqlDbType = NpgsqlDbType.TimestampTz });
-                insert.Parameters.Add(UuidArray([.. rows.Select(r => r.Target.Id)]));
-                insert.Parameters.Add(TextArray([.. rows.Select(r => r.Target.Version)]));
-                insert.Parameters.Add(TextArray([.. rows.Select(r => r.Target.Stage)]));
-                insert.Parameters.Add(TimestampArray([.. rows.Select(r => (DateTime?)r.Target.ScoredAt)]));
-                insert.Parameters.Add(DoubleArray([.. rows.Select(r => r.Target.Eta)]));
-                insert.Parameters.Add(DoubleArray([.. rows.Select(r => r.Target.Probability)]));
-                insert.Parameters.Add(SmallintArray([.. rows.Select(r => (short)r.Outcome)]));
-                insert.Parameters.Add(TimestampArray([.. rows.Select(r => r.ObservedAt)]));
-                insert.Parameters.Add(new NpgsqlParameter<Guid?[]> { TypedValue = [.. rows.Select(r => r.Target.LiveId)], NpgsqlDbType = NpgsqlDbType.Array | NpgsqlDbType.Uuid });
+                insert.Parameters.Add(UuidArray([.. inserts.Select(r => r.Row.Id)]));
+                insert.Parameters.Add(TextArray([.. inserts.Select(r => r.Row.Version)]));
+                insert.Parameters.Add(TextArray([.. inserts.Select(r => r.Row.Stage)]));
+                insert.Parameters.Add(TimestampArray([.. inserts.Select(r => (DateTime?)r.Row.ScoredAt)]));
+                insert.Parameters.Add(DoubleArray([.. inserts.Select(r => r.Row.Eta)]));
+                insert.Parameters.Add(DoubleArray([.. inserts.Select(r => r.Row.Probability)]));
+                insert.Parameters.Add(SmallintArray([.. inserts.Select(r => (short)r.Write.Outcome)]));
+                insert.Parameters.Add(TimestampArray([.. inserts.Select(r => PostgresValues.ToTimestamp(r.Write.ObservedAt))]));
+                insert.Parameters.Add(new NpgsqlParameter<Guid?[]> { TypedValue = [.. inserts.Select(r => r.Row.LiveId)], NpgsqlDbType = NpgsqlDbType.Array | NpgsqlDbType.Uuid });
                 write.BatchCommands.Add(insert);
             }
 
             if (applied.Updates.Count > 0)
             {
-                var rows = applied.Updates;
+                var updates = applied.Updates;
                 var update = new NpgsqlBatchCommand(UpdateOutcomesSql);
                 update.Parameters.Add(new NpgsqlParameter<DateTime> { TypedValue = now, NpgsqlDbType = NpgsqlDbType.TimestampTz });
-                update.Parameters.Add(UuidArray([.. rows.Select(r => r.Id)]));
-                update.Parameters.Add(SmallintArray([.. rows.Select(r => (short)r.Outcome)]));
-                update.Parameters.Add(TimestampArray([.. rows.Select(r => r.ObservedAt)]));
+                update.Parameters.Add(UuidArray([.. updates.Select(r => r.Id)]));
+                update.Parameters.Add(SmallintArray([.. updates.Select(r => (short)r.Outcome)]));
+                update.Parameters.Add(TimestampArray([.. updates.Select(r => PostgresValues.ToTimestamp(r.ObservedAt))]));
                 write.BatchCommands.Add(update);
             }
 
             if (applied.Conflicts.Count > 0)
             {
-                var rows = applied.Conflicts;
+                var conflictRows = applied.Conflicts;
                 var conflicts = new NpgsqlBatchCommand(InsertConflictsSql);
                 conflicts.Parameters.Add(Text(model));
                 conflicts.Parameters.Add(new NpgsqlParameter<DateTime> { TypedValue = now, NpgsqlDbType = NpgsqlDbType.TimestampTz });
-                conflicts.Parameters.Add(UuidArray([.. rows.Select(r => r.Id)]));
-                conflicts.Parameters.Add(SmallintArray([.. rows.Select(r => (short)r.Recorded)]));
-                conflicts.Parameters.Add(SmallintArray([.. rows.Select(r => (short)r.Reported)]));
-                conflicts.Parameters.Add(SmallintArray([.. rows.Select(r => (short)r.Kept)]));
-                conflicts.Parameters.Add(new NpgsqlParameter<bool[]> { TypedValue = [.. rows.Select(r => r.WasImplicit)], NpgsqlDbType = NpgsqlDbType.Array | NpgsqlDbType.Boolean });
+                conflicts.Parameters.Add(UuidArray([.. conflictRows.Select(r => r.Id)]));
+                conflicts.Parameters.Add(SmallintArray([.. conflictRows.Select(r => (short)r.Recorded)]));
+                conflicts.Parameters.Add(SmallintArray([.. conflictRows.Select(r => (short)r.Reported)]));
+                conflicts.Parameters.Add(SmallintArray([.. conflictRows.Select(r => (short)r.Kept)]));
+                conflicts.Parameters.Add(new NpgsqlParameter<bool[]> { TypedValue = [.. conflictRows.Select(r => r.WasImplicit)], NpgsqlDbType = NpgsqlDbType.Array | NpgsqlDbType.Boolean });
                 write.BatchCommands.Add(conflicts);
             }
 
@@ -290,111 +259,6 @@ public sealed partial class PostgresScorerStore
         }
     }
 
-    /// <inheritdoc />
-    /// <remarks>
-    /// <para>
-    /// Every insert or update of an outcome row stamps it with the id of its transaction (pg_current_xact_id(), xid8,
-    /// column <c>change</c>); the read returns the model version's rows stamped at or above the cursor, in stamp order,
-    /// and the cursor returned is one past the largest stamp read (or the cursor given, when nothing was read: it stays
-    /// put while nothing changes).
-    /// </para>
-    /// <para>
-    /// Neither transaction ids nor sequence numbers follow commit order in PostgreSQL: an id is handed out when a
-    /// transaction first writes, and a transaction still in flight can hold a smaller id than one already committed; a
-    /// reader that moved its cursor past the committed one would skip the other's change for good. What makes the
-    /// stamps safe here is the model's outcome lock (see <see cref="RecordOutcomesAsync"/>): every writer of the model's
-    /// outcomes, in any process, holds it exclusively from before its first write to its commit, and this read takes
-    /// it shared (in the same implicit transaction, before its snapshot) for the length of one statement. So when the
-    /// read's snapshot is taken no writer of the model is in flight: every change made so far is committed and
-    /// visible, and every later writer takes its transaction id after the read, above every stamp read. The read never
-    /// skips a change, returns a committed change at once (it is not held back by unrelated transactions in flight,
-    /// as a bound at the snapshot's xmin would hold it back), and waits at most for one batch of the model's outcomes
-    /// to commit.
-    /// </para>
-    /// <para>
-    /// Stamps are xid8 values (epoch and transaction id, never wrapping), carried as longs.
-    /// </para>
-    /// </remarks>
-    public async Task<LabelledChanges> GetLabelledChangesAsync(string model, string version, long cursor, CancellationToken cancellationToken = default)
-    {
-        ArgumentException.ThrowIfNullOrEmpty(model);
-        ArgumentException.ThrowIfNullOrEmpty(version);
-        ArgumentOutOfRangeException.ThrowIfNegative(cursor);
-        await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
-        var read = new NpgsqlBatch(connection);
-        await using (read.ConfigureAwait(false))
-        {
-            // No explicit transaction: the batch is one implicit transaction, and the lock lasts until it ends.
-            read.BatchCommands.Add(OutcomeLock(model, shared: true));
-            var changes = new NpgsqlBatchCommand(
-                "SELECT prediction_id, scored_at, probability, outcome, change::text::bigint FROM outcomes "
-                + "WHERE model = $1 AND version = $2 AND change >= $3::text::xid8 ORDER BY change");
-            changes.Parameters.Add(Text(model));
-            changes.Parameters.Add(Text(version));
-            changes.Parameters.Add(Text(cursor.ToString(CultureInfo.InvariantCulture)));
-            read.BatchCommands.Add(changes);
-            var points = new List<LabelledPoint>();
-            var next = cursor;
-            await using var reader = await read.ExecuteReaderAsync(cancellationToken).ConfigureAwait(false);
-            await reader.NextResultAsync(cancellationToken).ConfigureAwait(false);
-            while (await reader.ReadAsync(cancellationToken).ConfigureAwait(false))
-            {
-                points.Add(new LabelledPoint(reader.GetGuid(0), PostgresValues.FromTimestamp(reader.GetDateTime(1)), reader.GetDouble(2), (byte)reader.GetInt16(3)));
-                next = reader.GetInt64(4) + 1;
-            }
-
-            return new LabelledChanges(points, next);
-        }
-    }
-
-    /// <summary>
-    /// Deletes logged predictions scored more than <see cref="PostgresStoreOptions.PredictionRetention"/> before
-    /// <paramref name="now"/> whose outcome is no longer awaited; nothing when the store keeps predictions forever (no
-    /// retention set).
-    /// </summary>
-    /// <remarks>
-    /// <para>
-    /// The rule: an old prediction is deleted when (a) its outcome is recorded (reported, or an implicit 0), or (b) its
-    /// model has no version left that is live or shadow in the registry's table (every version retired, or the model
-    /// unknown to it): no outcome is expected for a model that no longer serves. Every other old prediction is kept,
-    /// however old (its outcome, or its implicit 0 once the model's horizon passes, is still to come), and counted in
-    /// <see cref="PruneResult.KeptAwaitingOutcome"/>, so a caller can log it.
-    /// </para>
-    /// <para>
-    /// What a deletion leaves: the outcome rows (which carry their own copy of the prediction's time, η and
-    /// probability: the monitor, the change feed and <see cref="GetLabelledAsync"/> are unchanged), the per-minute and
-    /// drift counts. What it takes: the rows themselves, so <see cref="GetPredictionAsync"/>,
-    /// <see cref="GetPredictionsAsync"/> and <see cref="CountPredictionsAsync"/> no longer see them,
-    /// <see cref="GetLabelledRowsAsync"/> (which exports the logged features) leaves them out, and a report for a
-    /// deleted prediction is listed as unknown. One statement, one transaction.
-    /// </para>
-    /// </remarks>
-    public async Task<PruneResult> PruneAsync(DateTimeOffset now, CancellationToken cancellationToken = default)
-    {
-        if (Options.PredictionRetention is not { } retention)
-        {
-            ObjectDisposedException.ThrowIf(_disposed, this);
-            return new PruneResult(0, 0);
-        }
-
-        await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
-        await using var command = Command(connection, null,
-            "WITH serving AS (SELECT DISTINCT model FROM model_versions WHERE stage <> 'retired'), "
-            + "gone AS (DELETE FROM predictions p WHERE p.scored_at < $1 "
-            + "  AND (EXISTS (SELECT 1 FROM outcomes o WHERE o.prediction_id = p.id) OR p.model NOT IN (SELECT model FROM serving)) RETURNING 1) "
-            + "SELECT (SELECT count(*) FROM gone), "
-            + "(SELECT count(*) FROM predictions p WHERE p.scored_at < $1 AND p.model IN (SELECT model FROM serving) "
-            + "  AND NOT EXISTS (SELECT 1 FROM outcomes o WHERE o.prediction_id = p.id))");
-        command.CommandTimeout = 0;
-        command.Parameters.Add(Timestamp(SafeSubtract(now, retention)));
-        await using var reader = await command.ExecuteReaderAsync(cancellationToken).ConfigureAwait(false);
-        await reader.ReadAsync(cancellationToken).ConfigureAwait(false);
-        return new PruneResult(reader.GetInt64(0), reader.GetInt64(1));
-    }
-
-    private static DateTimeOffset SafeSubtract(DateTimeOffset time, TimeSpan span) =>
-        time.UtcTicks - DateTimeOffset.MinValue.UtcTicks < span.Ticks ? DateTimeOffset.MinValue : time - span;
-
     /// <summary>
     /// The model's outcome lock (see <see cref="RecordOutcomesAsync"/>), held to the end of the transaction: exclusive
     /// for writers, shared for the change feed's read.
@@ -402,16 +266,8 @@ public sealed partial class PostgresScorerStore
     private static NpgsqlBatchCommand OutcomeLock(string model, bool shared = false) =>
         new($"SELECT pg_advisory_xact_lock{(shared ? "_shared" : "")}({OutcomeLockClass}, hashtext(current_schema() || '.' || $1))") { Parameters = { Text(model) } };
 
-    private static void Add<TKey>(Dictionary<TKey, List<Guid>> map, TKey key, Guid id)
-        where TKey : notnull
-    {
-        if (!map.TryGetValue(key, out var list))
-        {
-            map[key] = list = [];
-        }
-
-        list.Add(id);
-    }
+    /// <summary>A prediction an outcome report reaches, as read from the log: what a new outcome row copies in.</summary>
+    private readonly record struct OutcomeRow(Guid Id, string Version, string Stage, DateTime ScoredAt, double Eta, double Probability, Guid? LiveId);
 
     private static NpgsqlParameter<Guid[]> UuidArray(Guid[] values) => new() { TypedValue = values, NpgsqlDbType = NpgsqlDbType.Array | NpgsqlDbType.Uuid };
 

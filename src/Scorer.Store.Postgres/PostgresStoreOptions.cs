@@ -16,6 +16,12 @@ public sealed record PostgresStoreOptions
     /// there for which ones it deletes); null (the default) keeps them forever, and pruning deletes nothing.
     /// </summary>
     public TimeSpan? PredictionRetention { get; init; }
+
+    /// <summary>
+    /// How often the store's hosted service (registered by <c>AddPostgresStore</c>) applies the retention, on the
+    /// host's clock: once at start, then every interval (an hour by default). Only with a <see cref="PredictionRetention"/>.
+    /// </summary>
+    public TimeSpan PruneInterval { get; init; } = TimeSpan.FromHours(1);
 }
 
 /// <summary>

@@ -76,7 +76,7 @@ internal static class PredictionCopy
         var counts = new Dictionary<(string Model, string Version, long Minute), long>();
         foreach (var row in batch)
         {
-            var key = (row.Model, row.Version, PostgresValues.Minute(row.ScoredAt));
+            var key = (row.Model, row.Version, StoreTime.Minute(row.ScoredAt));
             counts[key] = counts.GetValueOrDefault(key) + 1;
         }
 

@@ -61,7 +61,7 @@ internal static class PredictionBatchInsert
                     Check(raw.sqlite3_bind_text16(statement, 4, StoredValues.ToText(row.Stage).AsSpan()), db);
                 }
 
-                Check(raw.sqlite3_bind_int64(statement, 5, StoredValues.ToUnixMicroseconds(row.ScoredAt)), db);
+                Check(raw.sqlite3_bind_int64(statement, 5, StoreTime.ToUnixMicroseconds(row.ScoredAt)), db);
                 Check(row.Key is null ? raw.sqlite3_bind_null(statement, 6) : raw.sqlite3_bind_text16(statement, 6, row.Key.AsSpan()), db);
                 Check(raw.sqlite3_bind_double(statement, 7, row.Eta), db);
                 Check(raw.sqlite3_bind_double(statement, 8, row.Probability), db);
@@ -101,7 +101,7 @@ internal static class PredictionBatchInsert
         var counts = new Dictionary<(string Model, string Version, long Minute), long>();
         foreach (var row in batch)
         {
-            var key = (row.Model, row.Version, StoredValues.ToUnixMicroseconds(row.ScoredAt) / MicrosecondsPerMinute);
+            var key = (row.Model, row.Version, StoreTime.Minute(row.ScoredAt));
             counts[key] = counts.GetValueOrDefault(key) + 1;
         }
 
@@ -125,7 +125,7 @@ internal static class PredictionBatchInsert
         }
     }
 
-    public const long MicrosecondsPerMinute = 60_000_000;
+
 
     private static void Check(int rc, sqlite3 db)
     {

@@ -1,20 +1,8 @@
 namespace Scorer.Store.Sqlite;
 
-/// <summary>How values are written to and read from the SQLite columns.</summary>
+/// <summary>How values are written to and read from the SQLite columns (times as <see cref="StoreTime"/>'s microseconds since the Unix epoch).</summary>
 internal static class StoredValues
 {
-    private const long TicksPerMicrosecond = TimeSpan.TicksPerMillisecond / 1000;
-
-    /// <summary>Microseconds since the Unix epoch, UTC, rounded down (towards the past).</summary>
-    public static long ToUnixMicroseconds(DateTimeOffset time)
-    {
-        var ticks = time.UtcTicks - DateTimeOffset.UnixEpoch.UtcTicks;
-        return ticks >= 0 ? ticks / TicksPerMicrosecond : ((ticks + 1) / TicksPerMicrosecond) - 1;
-    }
-
-    public static DateTimeOffset FromUnixMicroseconds(long microseconds) =>
-        new(DateTimeOffset.UnixEpoch.UtcTicks + (microseconds * TicksPerMicrosecond), TimeSpan.Zero);
-
     public static string ToText(Stage stage) => StoreRules.ToText(stage);
 
     public static Stage ToStage(string text) => StoreRules.ToStage(text);

@@ -38,13 +38,13 @@ public sealed record PredictionLogOptions
 /// for the store. When the store is slow the queue fills to its bound (memory stays bounded); rows that find it full
 /// are dropped and counted, never lost silently. A failed write is retried with backoff and the batch kept; shutdown
 /// drains the queue, within <see cref="PredictionLogOptions.DrainTimeout"/>. A batch the store refuses for what it
-/// holds (<see cref="IScorerStore.IsRefusal"/>) is split until the refused rows are found; those are set aside in
+/// holds (<see cref="IPredictionLogStore.IsRefusal"/>) is split until the refused rows are found; those are set aside in
 /// <see cref="PredictionLogOptions.SetAsideFolder"/> with the reason and counted, and the rest is written, so no single
 /// row can stop the log.
 /// </summary>
 public sealed class PredictionLog : IAsyncDisposable
 {
-    private readonly IScorerStore _store;
+    private readonly IPredictionLogStore _store;
     private readonly PredictionLogOptions _options;
     private readonly ILogger _logger;
     private readonly TimeProvider _time;
@@ -62,7 +62,7 @@ public sealed class PredictionLog : IAsyncDisposable
     private long _lastDrainedTimestamp;
     private int _stopped;
 
-    public PredictionLog(IScorerStore store, PredictionLogOptions options, ILogger<PredictionLog> logger, TimeProvider? time = null)
+    public PredictionLog(IPredictionLogStore store, PredictionLogOptions options, ILogger<PredictionLog> logger, TimeProvider? time = null)
     {
         _store = store;
         _options = options;

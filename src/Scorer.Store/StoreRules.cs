@@ -3,7 +3,10 @@ using System.Reflection;
 
 namespace Scorer.Store;
 
-/// <summary>What every store driver checks and names the same way: a prediction's fields, and stages as text.</summary>
+/// <summary>
+/// What every store driver checks and names the same way: a prediction's fields, a version to add, stage changes,
+/// text the stores cannot keep, and stages as text. The outcome reports' checks and rules are <see cref="OutcomeRules"/>.
+/// </summary>
 public static class StoreRules
 {
     /// <summary>
@@ -41,6 +44,41 @@ public static class StoreRules
         if (!Enum.IsDefined(row.Stage))
         {
             throw new ArgumentException($"batch[{index}] (id {row.Id}) has Stage = {(int)row.Stage}, which is not a stage.", "batch");
+        }
+    }
+
+    /// <summary>
+    /// Checks a version to add: present, with a model, a version and a file hash, a defined stage, and an actor; throws
+    /// <see cref="ArgumentException"/> naming the field.
+    /// </summary>
+    public static void CheckVersion(ModelVersionRecord version, string actor)
+    {
+        ArgumentNullException.ThrowIfNull(version);
+        ArgumentException.ThrowIfNullOrEmpty(version.Model, nameof(version));
+        ArgumentException.ThrowIfNullOrEmpty(version.Version, nameof(version));
+        ArgumentNullException.ThrowIfNull(version.FileSha256, nameof(version));
+        ArgumentNullException.ThrowIfNull(actor);
+        _ = ToText(version.Stage);
+    }
+
+    /// <summary>
+    /// Checks a list of stage changes: no null entry, each with a model, a version, an actor and defined stages; throws
+    /// <see cref="ArgumentException"/> naming the list (and the entry).
+    /// </summary>
+    public static void CheckStageChanges(IReadOnlyList<StageChange> changes)
+    {
+        ArgumentNullException.ThrowIfNull(changes);
+        for (var i = 0; i < changes.Count; i++)
+        {
+            var change = changes[i] ?? throw new ArgumentException($"changes[{i}] is null.", nameof(changes));
+            ArgumentException.ThrowIfNullOrEmpty(change.Model, nameof(changes));
+            ArgumentException.ThrowIfNullOrEmpty(change.Version, nameof(changes));
+            ArgumentNullException.ThrowIfNull(change.Actor, nameof(changes));
+            _ = ToText(change.To);
+            if (change.From is { } from)
+            {
+                _ = ToText(from);
+            }
         }
     }
 

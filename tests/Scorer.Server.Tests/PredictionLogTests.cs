@@ -161,7 +161,7 @@ public sealed class PredictionLogTests : IDisposable
         var registry = new Scorer.Registry.ModelRegistry(new Scorer.Registry.RegistryOptions { ModelsPath = _folder.Models }, store, time,
             NullLogger<Scorer.Registry.ModelRegistry>.Instance);
         await registry.ReloadAsync();
-        var readiness = new ReadinessCheck(registry, store, log);
+        var readiness = new ReadinessCheck(registry, store, [], log);
         for (var i = 0; i < 10; i++)
         {
             Assert.True(log.TryEnqueue(Row(i)));

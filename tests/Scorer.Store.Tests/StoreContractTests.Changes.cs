@@ -140,4 +140,51 @@ public abstract partial class StoreContractTests
         Assert.True(await store.TryHoldLeaseAsync("charts"));
         await store.SaveChartStateAsync(Renewal, "1", "{}", "charts");
     }
+
+    [Fact]
+    public async Task Of_two_instances_sharing_the_storage_only_one_holds_a_lease_and_the_other_cannot_save_under_it()
+    {
+        var first = await OpenAsync();
+        var second = await OpenAsync();
+
+        Assert.True(await first.TryHoldLeaseAsync("charts"));
+        Assert.True(await first.TryHoldLeaseAsync("charts")); // confirmed
+        Assert.False(await second.TryHoldLeaseAsync("charts"));
+        await Assert.ThrowsAsync<LeaseLostException>(() => second.SaveChartStateAsync(Renewal, "1", "{\"by\":\"second\"}", "charts"));
+        Assert.True(await second.TryHoldLeaseAsync("other-work")); // leases are by name
+        await first.SaveChartStateAsync(Renewal, "1", "{\"by\":\"first\"}", "charts");
+
+        Assert.Equal("{\"by\":\"first\"}", await second.GetChartStateAsync(Renewal, "1"));
+    }
+
+    [Fact]
+    public async Task A_lease_released_by_its_holder_is_taken_by_the_other_instance_and_the_old_holder_can_no_longer_save()
+    {
+        var first = await OpenAsync();
+        var second = await OpenAsync();
+        Assert.True(await first.TryHoldLeaseAsync("charts"));
+
+        await second.ReleaseLeaseAsync("charts"); // not its own: changes nothing
+        Assert.False(await second.TryHoldLeaseAsync("charts"));
+        await first.ReleaseLeaseAsync("charts");
+
+        Assert.True(await second.TryHoldLeaseAsync("charts"));
+        Assert.False(await first.TryHoldLeaseAsync("charts"));
+        await Assert.ThrowsAsync<LeaseLostException>(() => first.SaveChartStateAsync(Renewal, "1", "{}", "charts"));
+        await second.SaveChartStateAsync(Renewal, "1", "{\"by\":\"second\"}", "charts");
+        Assert.Equal("{\"by\":\"second\"}", await first.GetChartStateAsync(Renewal, "1"));
+    }
+
+    [Fact]
+    public async Task A_disposed_holder_lets_its_leases_go_at_once()
+    {
+        var first = await OpenAsync();
+        var second = await OpenAsync();
+        Assert.True(await first.TryHoldLeaseAsync("charts"));
+        Assert.False(await second.TryHoldLeaseAsync("charts"));
+
+        await first.DisposeAsync();
+
+        Assert.True(await second.TryHoldLeaseAsync("charts"));
+    }
 }

@@ -184,6 +184,19 @@ public abstract partial class StoreContractTests
     }
 
     [Fact]
+    public async Task An_undefined_conflict_policy_is_refused_naming_the_policy_and_nothing_is_recorded()
+    {
+        var store = await OpenAsync();
+        var a = Prediction(Renewal, "1", T0);
+        await store.WritePredictionsAsync([a]);
+
+        var error = await Assert.ThrowsAsync<ArgumentOutOfRangeException>(() => store.RecordOutcomesAsync(Renewal, [new OutcomeReport(a.Id, null, 1)], (ConflictPolicy)2, Later));
+
+        Assert.Equal("policy", error.ParamName);
+        Assert.Empty(await store.GetLabelledAsync(Renewal, null, T0, Later));
+    }
+
+    [Fact]
     public async Task Outcomes_survive_a_restart()
     {
         var first = await OpenAsync();

@@ -33,7 +33,8 @@ public sealed record ChartsView(CusumView? Up, CusumView? Down, EwmaView Ewma, l
 /// <remarks>
 /// <para>
 /// One process runs the charts among all that share the store: the holder of the store's lease
-/// <see cref="Lease"/> (a PostgreSQL advisory lock; with SQLite, the one process). After each catch-up that took
+/// <see cref="Lease"/> (PostgreSQL: a session advisory lock; SQLite: a row of the file renewed each round, see
+/// <see cref="ILeaseStore.TryHoldLeaseAsync"/>). After each catch-up that took
 /// outcomes in, the holder saves every changed version's chart state (values, thresholds, signals, the threshold
 /// sample and the walk's position) to the store, fenced by the lease, so a holder that lost the lease cannot overwrite
 /// its successor's state. Every other process reads the saved states each round and shows them; when the holder dies,
@@ -46,7 +47,7 @@ public sealed record ChartsView(CusumView? Up, CusumView? Down, EwmaView Ewma, l
 /// past it is counted in the windows' statistics but not in the charts.
 /// </para>
 /// </remarks>
-public sealed class ChartRunner(ModelRegistry registry, IScorerStore store, MonitorOptions options, TimeProvider time, ILogger<ChartRunner> logger)
+public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leases, ILabelledStore labelled, IOutcomeStore outcomes, MonitorOptions options, TimeProvider time, ILogger<ChartRunner> logger)
 {
     private readonly ConcurrentDictionary<(string Model, string Version), VersionCharts> _charts = new();
 
@@ -73,11 +74,27 @@ public sealed class ChartRunner(ModelRegistry registry, IScorerStore store, Moni
             catch (Exception ex)
 #pragma warning restore CA1031
             {
-                logger.LogError(ex, "The monitor's charts could not catch up; retrying");
+                CatchUpFailed(ex);
             }
         }
         while (await timer.WaitForNextTickAsync(cancellationToken).ConfigureAwait(false));
     }
+
+    [LoggerMessage(EventId = 3101, Level = LogLevel.Error, Message = "The monitor's charts could not catch up; retrying")]
+    private partial void CatchUpFailed(Exception error);
+
+    [LoggerMessage(EventId = 3102, Level = LogLevel.Information, Message = "This process now runs the monitor's charts (lease {Lease}); continuing from their saved states")]
+    private partial void BecameHolder(string lease);
+
+    [LoggerMessage(EventId = 3103, Level = LogLevel.Warning, Message = "Another process runs the monitor's charts now (lease {Lease})")]
+    private partial void LostToAnother(string lease);
+
+    [LoggerMessage(EventId = 3104, Level = LogLevel.Warning, Message = "The lease {Lease} was lost while saving the charts; another process runs them now")]
+    private partial void LostWhileSaving(string lease);
+
+    [LoggerMessage(EventId = 3105, Level = LogLevel.Warning,
+        Message = "CUSUM {Chart} of {Model} {Version} signalled at outcome {Index} (prediction {Id} of {Time:O}): statistic {Statistic:F3}")]
+    private partial void ChartSignalled(string chart, string model, string version, long index, Guid id, DateTimeOffset time, double statistic);
 
     /// <summary>The store lease whose holder runs the charts.</summary>
     public const string Lease = "monitor-charts";
@@ -93,14 +110,14 @@ public sealed class ChartRunner(ModelRegistry registry, IScorerStore store, Moni
     /// </summary>
     public async Task CatchUpAsync(CancellationToken cancellationToken = default)
     {
-        var holds = await store.TryHoldLeaseAsync(Lease, cancellationToken).ConfigureAwait(false);
+        var holds = await leases.TryHoldLeaseAsync(Lease, cancellationToken).ConfigureAwait(false);
         if (holds && !_holder)
         {
-            logger.LogInformation("This process now runs the monitor's charts (lease {Lease}); continuing from their saved states", Lease);
+            BecameHolder(Lease);
         }
         else if (!holds && _holder)
         {
-            logger.LogWarning("Another process runs the monitor's charts now (lease {Lease})", Lease);
+            LostToAnother(Lease);
         }
 
         var becameHolder = holds && !_holder;
@@ -125,7 +142,7 @@ public sealed class ChartRunner(ModelRegistry registry, IScorerStore store, Moni
                 var horizon = outcome?.HorizonSpan ?? TimeSpan.Zero;
                 if (outcome?.Negatives == NegativesPolicy.Implicit && horizon > TimeSpan.Zero)
                 {
-                    while (await store.RecordImplicitNegativesAsync(entry.Name, now - horizon, now, 10_000, cancellationToken).ConfigureAwait(false) == 10_000)
+                    while (await outcomes.RecordImplicitNegativesAsync(entry.Name, now - horizon, now, 10_000, cancellationToken).ConfigureAwait(false) == 10_000)
                     {
                     }
                 }
@@ -133,24 +150,23 @@ public sealed class ChartRunner(ModelRegistry registry, IScorerStore store, Moni
                 foreach (var version in entry.Versions.Where(v => v.Stage != Stage.Retired))
                 {
                     var charts = _charts.GetOrAdd((entry.Name, version.Version), _ => new VersionCharts(options));
-                    if (await charts.CatchUpAsync(store, entry.Name, version.Version, now - horizon, cancellationToken, OnSignal).ConfigureAwait(false))
+                    if (await charts.CatchUpAsync(labelled, entry.Name, version.Version, now - horizon, cancellationToken, OnSignal).ConfigureAwait(false))
                     {
-                        await store.SaveChartStateAsync(entry.Name, version.Version, charts.SaveState(), Lease, cancellationToken).ConfigureAwait(false);
+                        await leases.SaveChartStateAsync(entry.Name, version.Version, charts.SaveState(), Lease, cancellationToken).ConfigureAwait(false);
                     }
                 }
             }
         }
         catch (LeaseLostException)
         {
-            logger.LogWarning("The lease {Lease} was lost while saving the charts; another process runs them now", Lease);
+            LostWhileSaving(Lease);
             Volatile.Write(ref _holder, false);
             await FollowAsync(cancellationToken).ConfigureAwait(false);
         }
 
         void OnSignal(string model, string version, string chart, ChartSignal signal)
         {
-            logger.LogWarning("CUSUM {Chart} of {Model} {Version} signalled at outcome {Index} (prediction {Id} of {Time:O}): statistic {Statistic:F3}",
-                chart, model, version, signal.Index, signal.PredictionId, signal.Time, signal.Statistic);
+            ChartSignalled(chart, model, version, signal.Index, signal.PredictionId, signal.Time, signal.Statistic);
             Signalled?.Invoke(model, version, chart, signal);
         }
     }
@@ -160,7 +176,7 @@ public sealed class ChartRunner(ModelRegistry registry, IScorerStore store, Moni
     {
         foreach (var version in registry.Current.Models.Values.SelectMany(m => m.Versions).Where(v => v.Stage != Stage.Retired))
         {
-            var saved = await store.GetChartStateAsync(version.Model, version.Version, cancellationToken).ConfigureAwait(false);
+            var saved = await leases.GetChartStateAsync(version.Model, version.Version, cancellationToken).ConfigureAwait(false);
             if (saved is null)
             {
                 continue;
@@ -295,7 +311,7 @@ public sealed class ChartRunner(ModelRegistry registry, IScorerStore store, Moni
         }
 
         /// <summary>Takes in the matured outcomes after the walk's position; true when it took any.</summary>
-        public async Task<bool> CatchUpAsync(IScorerStore store, string model, string version, DateTimeOffset frontier, CancellationToken cancellationToken,
+        public async Task<bool> CatchUpAsync(ILabelledStore store, string model, string version, DateTimeOffset frontier, CancellationToken cancellationToken,
             Action<string, string, string, ChartSignal> onSignal)
         {
             if (frontier <= _cursorTime)

@@ -20,7 +20,7 @@ public sealed record DriftView(double? Score, IReadOnlyDictionary<string, double
 /// already bound, summed per request before one short lock, so it costs the request path little and the log writer
 /// nothing.
 /// </summary>
-public sealed class DriftTracker(IScorerStore store, TimeProvider time)
+public sealed class DriftTracker(IDriftCountStore store, TimeProvider time)
 {
     /// <summary>The series of the linear predictor (a name the model file keeps from features).</summary>
     public const string ScoreSeries = ModelFile.ModelDocument.LinearPredictorSeries;

@@ -7,7 +7,7 @@ namespace Scorer.Monitor.Reporting;
 /// <summary>
 /// Every labelled prediction of each version the monitor reports on, in memory, as columns (prediction time, p,
 /// outcome) in ascending order of p, kept up to date from the store's change feed
-/// (<see cref="IScorerStore.GetLabelledChangesAsync"/>). A report over a window then reads no rows from the store and
+/// (<see cref="ILabelledStore.GetLabelledChangesAsync"/>). A report over a window then reads no rows from the store and
 /// sorts nothing: it takes the window's rows in p order in one sequential scan (<see cref="WindowAsync"/>), and the
 /// statistics are computed exactly over them (<see cref="Statistics.CalibrationStatistics.ComputeSorted"/>).
 /// </summary>
@@ -17,7 +17,7 @@ namespace Scorer.Monitor.Reporting;
 /// last one, plus one sequential merge (linear in the version's rows) when something new arrived. Every replica keeps its own cache from the same
 /// store, so every replica reports the same numbers.
 /// </remarks>
-public sealed class LabelledCache(IScorerStore store)
+public sealed class LabelledCache(ILabelledStore store)
 {
     private readonly ConcurrentDictionary<(string Model, string Version), VersionRows> _versions = new();
 

@@ -29,7 +29,7 @@ public sealed record MonitorSnapshot(
 /// for the PSI, and the charts from the <see cref="ChartRunner"/>. The status is judged over
 /// <see cref="MonitorOptions.JudgedWindow"/>; a change of status is logged.
 /// </summary>
-public sealed class MonitorReporter(ModelRegistry registry, IScorerStore store, LabelledCache labelled, ChartRunner charts, MonitorOptions options,
+public sealed class MonitorReporter(ModelRegistry registry, IPredictionLogStore predictionLog, IDriftCountStore driftCounts, ILabelledStore labelledStore, LabelledCache labelled, ChartRunner charts, MonitorOptions options,
     TimeProvider time, ILogger<MonitorReporter> logger)
 {
     private readonly Dictionary<(string, string), MonitorStatus> _lastStatus = [];
@@ -55,7 +55,7 @@ public sealed class MonitorReporter(ModelRegistry registry, IScorerStore store, 
         {
             foreach (var shadow in entry.Versions.Where(v => v.Version != version.Version && v.Stage == Stage.Shadow))
             {
-                var pairs = await store.GetPairedAsync(version.Model, version.Version, shadow.Version, part.From, part.To, cancellationToken).ConfigureAwait(false);
+                var pairs = await labelledStore.GetPairedAsync(version.Model, version.Version, shadow.Version, part.From, part.To, cancellationToken).ConfigureAwait(false);
                 shadows.Add(ShadowComparisonView.Compare(shadow.Version, pairs, options.Level, options.MinEvents));
             }
         }
@@ -114,13 +114,13 @@ public sealed class MonitorReporter(ModelRegistry registry, IScorerStore store, 
             }
         }
 
-        var predictions = await store.CountPredictionsByMinuteAsync(version.Model, version.Version, from, to, cancellationToken).ConfigureAwait(false);
+        var predictions = await predictionLog.CountPredictionsByMinuteAsync(version.Model, version.Version, from, to, cancellationToken).ConfigureAwait(false);
         var immature = Math.Max(0, predictions - calibration.Labelled);
         var horizon = version.Document.Outcome.HorizonSpan;
         // A window stays provisional while any of its predictions may still get an outcome: some have none yet, or (with
         // implicit negatives) some are younger than the horizon.
         var provisional = immature > 0 || (version.Document.Outcome.Negatives == NegativesPolicy.Implicit && now - horizon < to);
-        var counts = await store.GetDriftCountsAsync(version.Model, version.Version, from, to, cancellationToken).ConfigureAwait(false);
+        var counts = await driftCounts.GetDriftCountsAsync(version.Model, version.Version, from, to, cancellationToken).ConfigureAwait(false);
         return new WindowPart(from, to, immature, provisional, calibration, DriftTracker.Psi(version, counts));
     }
 }

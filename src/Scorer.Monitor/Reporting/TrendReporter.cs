@@ -39,7 +39,7 @@ public sealed record CusumPaths(string Window, DateTimeOffset From, DateTimeOffs
 /// What the page draws over time and the report does not hold: the calibration intercept and slope and the AUC per
 /// bucket of prediction time (<see cref="TrendAsync"/>), and the paths of the CUSUM charts (<see cref="CusumAsync"/>).
 /// </summary>
-public sealed class TrendReporter(IScorerStore store, LabelledCache labelled, ChartRunner charts, MonitorOptions options, TimeProvider time)
+public sealed class TrendReporter(ILabelledStore store, LabelledCache labelled, ChartRunner charts, MonitorOptions options, TimeProvider time)
 {
     /// <summary>The bucket lengths a trend chooses from: the shortest that keeps the buckets within the asked number.</summary>
     public static IReadOnlyList<TimeSpan> Steps { get; } =
