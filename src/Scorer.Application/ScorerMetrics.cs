@@ -12,7 +12,7 @@ namespace Scorer.Application;
 public sealed class ScorerMetrics
 {
     public ScorerMetrics(ModelRegistry registry, PredictionLog log, ShadowScorer shadows, Scorer.Monitor.Reporting.MonitorLoop monitor,
-        Scorer.Monitor.Reporting.ChartRunner charts, EventSubscribers subscribers, IScorerStore store)
+        Scorer.Monitor.Reporting.ChartRunner charts, EventSubscribers subscribers, IEnumerable<IStoreSpaceSignal> spaces)
     {
         Registry = Metrics.NewCustomRegistry();
         var factory = Metrics.WithCustomRegistry(Registry);
@@ -131,7 +131,7 @@ public sealed class ScorerMetrics
             shadowDropped.IncTo(shadows.Dropped);
             streams.Set(subscribers.Open);
             streamsRefused.IncTo(subscribers.Refused);
-            if (store is IStoreSpaceSignal space)
+            foreach (var space in spaces)
             {
                 storeFull.Set(space.Full is null ? 0 : 1);
                 storeFullWrites.IncTo(space.FullWrites);

@@ -46,14 +46,14 @@ public sealed class PageApi
     private readonly MonitorReporter _reporter;
     private readonly MonitorLoop _loop;
     private readonly TrendReporter _trends;
-    private readonly IScorerStore _store;
+    private readonly IPredictionLogStore _store;
     private readonly TimeProvider _time;
     private readonly EventSubscribers _subscribers;
     private readonly PageFiles _files = new();
     private readonly Lock _lock = new();
     private readonly Dictionary<(string Model, string Version), StatusChange> _changes = [];
 
-    public PageApi(ModelRegistry registry, ModelCatalog catalog, MonitorReporter reporter, MonitorLoop loop, TrendReporter trends, IScorerStore store,
+    public PageApi(ModelRegistry registry, ModelCatalog catalog, MonitorReporter reporter, MonitorLoop loop, TrendReporter trends, IPredictionLogStore store,
         TimeProvider time, EventSubscribers subscribers)
     {
         _subscribers = subscribers;

@@ -7,7 +7,7 @@ namespace Scorer.Application.Models;
 /// Stage changes for every transport: setting a version's stage, rolling a model back to its previous live version,
 /// and the history, with the registry's refusals turned into the one error shape (not found, or not possible now).
 /// </summary>
-public sealed class StageChanges(ModelCatalog catalog, ModelRegistry registry, IScorerStore store)
+public sealed class StageChanges(ModelCatalog catalog, ModelRegistry registry, IStageStore store)
 {
     /// <summary>Moves the named version to <paramref name="stage"/> (live, shadow or retired) on behalf of <paramref name="actor"/>.</summary>
     public Task<IReadOnlyList<StageChange>> SetAsync(string? model, string? version, string? stage, string actor, CancellationToken cancellationToken)

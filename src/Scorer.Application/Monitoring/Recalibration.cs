@@ -14,7 +14,7 @@ public sealed record RecalibrationResult(string Model, string NewVersion, int Ro
 /// store, refuses too few events, runs the <see cref="RecalibrationWorkflow"/> (the same one <c>scorer recalibrate</c>
 /// runs on a CSV), writes the candidate into the models folder and reloads the registry.
 /// </summary>
-public sealed class Recalibration(ModelCatalog catalog, ModelRegistry registry, IScorerStore store, MonitorOptions options, RegistryOptions folder, TimeProvider time)
+public sealed class Recalibration(ModelCatalog catalog, ModelRegistry registry, ILabelledStore store, MonitorOptions options, RegistryOptions folder, TimeProvider time)
 {
     public MonitorOptions Options => options;
 

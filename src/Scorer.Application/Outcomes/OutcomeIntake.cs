@@ -24,7 +24,7 @@ public readonly record struct OutcomeInput(string? Id, string? Key, int? Outcome
 /// anything is recorded (a bad entry refuses the message, naming it, as <c>outcomes[i].field</c>), then recorded in one
 /// transaction before the answer is given.
 /// </summary>
-public sealed class OutcomeIntake(ModelCatalog catalog, IScorerStore store, OutcomeSettings settings, ScoringLimits limits, ScorerMetrics metrics, TimeProvider time)
+public sealed class OutcomeIntake(ModelCatalog catalog, IOutcomeStore store, OutcomeSettings settings, ScoringLimits limits, ScorerMetrics metrics, TimeProvider time)
 {
     /// <summary>Checks the entries (<paramref name="count"/> of them, read by <paramref name="entry"/>) and records them.</summary>
     public async Task<OutcomeReceipt> RecordAsync(string? model, int count, Func<int, OutcomeInput?> entry, CancellationToken cancellationToken)

@@ -26,7 +26,7 @@ namespace Scorer.Transport.Rest;
 /// REST error mapping, RestErrorHandler). A store that fails after the status line was sent aborts the response (no last
 /// chunk; HTTP/2: a reset stream), so a client never takes a cut-off file for a whole one.
 /// </remarks>
-public sealed class LabelledExport(ModelCatalog catalog, IScorerStore store)
+public sealed class LabelledExport(ModelCatalog catalog, ILabelledStore store)
 {
     public const string Method = "/scorer.v1.Outcomes/ExportLabelled";
 
