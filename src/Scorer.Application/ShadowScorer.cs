@@ -81,8 +81,15 @@ public sealed class ShadowScorer : IAsyncDisposable
             catch (Exception ex)
 #pragma warning restore CA1031
             {
-                _logger.LogError(ex, "Shadow scoring failed");
+                ShadowScorerEvents.Failed(_logger, ex);
             }
         }
     }
+}
+
+/// <summary>The log events of this file, with their event ids (docs/operations.md lists them).</summary>
+internal static partial class ShadowScorerEvents
+{
+    [LoggerMessage(EventId = 5001, Level = LogLevel.Error, Message = "Shadow scoring failed")]
+    public static partial void Failed(ILogger logger, Exception error);
 }

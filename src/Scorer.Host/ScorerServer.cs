@@ -1,3 +1,4 @@
+using Microsoft.Extensions.Logging;
 using Serilog;
 using System.Net;
 using System.Threading.RateLimiting;
@@ -293,26 +294,25 @@ public static class ScorerServer
         if (options.SeedDemoModels && !Directory.Exists(options.ModelsPath))
         {
             SeedDemoModels(options.ModelsPath);
-            logger.LogInformation("Created {Folder} with the demo models", Path.GetFullPath(options.ModelsPath));
+            ServerEvents.DemoModelsCreated(logger, Path.GetFullPath(options.ModelsPath));
         }
 
         await app.Services.GetRequiredService<IScorerStore>().MigrateAsync().ConfigureAwait(false);
         var snapshot = await app.Services.GetRequiredService<ModelRegistry>().ReloadAsync().ConfigureAwait(false);
-        logger.LogInformation("REST on http://{Http}, gRPC (h2c) on http://{Grpc}; store {Store}; models from {Models}",
-            options.Http, options.Grpc, options.Store.Describe(), Path.GetFullPath(options.ModelsPath));
+        ServerEvents.Listening(logger, options.Http, options.Grpc, options.Store.Describe(), Path.GetFullPath(options.ModelsPath));
         foreach (var version in snapshot.Models.Values.SelectMany(m => m.Versions))
         {
-            logger.LogInformation("Loaded {Model} {Version} ({Stage})", version.Model, version.Version, Scorer.Application.Models.ModelCatalog.StageName(version.Stage));
+            ServerEvents.Loaded(logger, version.Model, version.Version, Scorer.Application.Models.ModelCatalog.StageName(version.Stage));
         }
 
         foreach (var failure in snapshot.Failures)
         {
-            logger.LogWarning("Failed to load {File}: {Problems}", failure.File, string.Join("; ", failure.Problems));
+            ServerEvents.LoadFailed(logger, failure.File, string.Join("; ", failure.Problems));
         }
 
         if (options.Keys.Count == 0)
         {
-            logger.LogWarning("NO API KEYS ARE CONFIGURED: every caller on this machine can score and change stages. Configure Scorer:Keys before binding beyond loopback.");
+            ServerEvents.NoKeys(logger);
         }
     }
 
@@ -327,4 +327,23 @@ public static class ScorerServer
             source.CopyTo(target);
         }
     }
+}
+
+/// <summary>The log events of this file, with their event ids (docs/operations.md lists them).</summary>
+internal static partial class ServerEvents
+{
+    [LoggerMessage(EventId = 1001, Level = LogLevel.Information, Message = "Created {Folder} with the demo models")]
+    public static partial void DemoModelsCreated(Microsoft.Extensions.Logging.ILogger logger, string folder);
+
+    [LoggerMessage(EventId = 1002, Level = LogLevel.Information, Message = "REST on http://{Http}, gRPC (h2c) on http://{Grpc}; store {Store}; models from {Models}")]
+    public static partial void Listening(Microsoft.Extensions.Logging.ILogger logger, string http, string grpc, string store, string models);
+
+    [LoggerMessage(EventId = 1003, Level = LogLevel.Information, Message = "Loaded {Model} {Version} ({Stage})")]
+    public static partial void Loaded(Microsoft.Extensions.Logging.ILogger logger, string model, string version, string stage);
+
+    [LoggerMessage(EventId = 1004, Level = LogLevel.Warning, Message = "Failed to load {File}: {Problems}")]
+    public static partial void LoadFailed(Microsoft.Extensions.Logging.ILogger logger, string file, string problems);
+
+    [LoggerMessage(EventId = 1005, Level = LogLevel.Warning, Message = "NO API KEYS ARE CONFIGURED: every caller on this machine can score and change stages. Configure Scorer:Keys before binding beyond loopback.")]
+    public static partial void NoKeys(Microsoft.Extensions.Logging.ILogger logger);
 }

@@ -92,8 +92,15 @@ public sealed class RegistryWatcher(ModelRegistry registry, RegistryOptions opti
             catch (Exception ex)
 #pragma warning restore CA1031
             {
-                logger.LogError(ex, "Rescan of {Folder} failed; retrying", options.ModelsPath);
+                RegistryWatcherEvents.RescanFailed(logger, ex, options.ModelsPath);
             }
         }
     }
+}
+
+/// <summary>The log events of this file, with their event ids (docs/operations.md lists them).</summary>
+internal static partial class RegistryWatcherEvents
+{
+    [LoggerMessage(EventId = 6001, Level = LogLevel.Error, Message = "Rescan of {Folder} failed; retrying")]
+    public static partial void RescanFailed(ILogger logger, Exception error, string folder);
 }

@@ -126,7 +126,7 @@ public sealed class PredictionLog : IAsyncDisposable
 
         if (Interlocked.Increment(ref _dropped) % 10_000 == 1)
         {
-            _logger.LogWarning("Prediction log full ({Capacity} rows waiting): rows are being dropped; {Dropped} so far", _options.Capacity, Dropped);
+            PredictionLogEvents.Full(_logger, _options.Capacity, Dropped);
         }
 
         return false;
@@ -145,7 +145,7 @@ public sealed class PredictionLog : IAsyncDisposable
         if (finished != _writer)
         {
             await _abort.CancelAsync().ConfigureAwait(false);
-            _logger.LogError("Prediction log did not drain within {Timeout}; {Depth} rows not written", _options.DrainTimeout, Depth);
+            PredictionLogEvents.NotDrained(_logger, _options.DrainTimeout, Depth);
         }
 
         try
@@ -176,7 +176,8 @@ public sealed class PredictionLog : IAsyncDisposable
                 break;
             }
 
-            var deadline = Stopwatch.GetTimestamp() + (long)(_options.MaxDelay.TotalSeconds * Stopwatch.Frequency);
+            // A batch waits at most MaxDelay (on the injected clock) for more rows after its first.
+            var deadline = _time.GetTimestamp() + (long)(_options.MaxDelay.TotalSeconds * _time.TimestampFrequency);
             while (batch.Count < _options.MaxBatch)
             {
                 if (reader.TryRead(out var item))
@@ -187,12 +188,25 @@ public sealed class PredictionLog : IAsyncDisposable
                     continue;
                 }
 
-                if (Stopwatch.GetTimestamp() >= deadline || reader.Completion.IsCompleted)
+                var remaining = TimeSpan.FromSeconds((double)(deadline - _time.GetTimestamp()) / _time.TimestampFrequency);
+                if (remaining <= TimeSpan.Zero || reader.Completion.IsCompleted)
                 {
                     break;
                 }
 
-                await Task.Delay(1, _abort.Token).ConfigureAwait(false);
+                using var timeout = new CancellationTokenSource(remaining, _time);
+                using var either = CancellationTokenSource.CreateLinkedTokenSource(timeout.Token, _abort.Token);
+                try
+                {
+                    if (!await reader.WaitToReadAsync(either.Token).ConfigureAwait(false))
+                    {
+                        break;
+                    }
+                }
+                catch (OperationCanceledException) when (!_abort.IsCancellationRequested)
+                {
+                    break; // MaxDelay passed: write what there is
+                }
             }
 
             if (batch.Count > 0)
@@ -249,15 +263,14 @@ public sealed class PredictionLog : IAsyncDisposable
                     }
 
                     // Some row of these is refused: write each half on its own until the refused rows are alone.
-                    _logger.LogWarning("The store refused a batch of {Rows} predictions ({Reason}); writing it in halves to set the refused rows aside",
-                        count, ex.Message);
+                    PredictionLogEvents.BatchRefused(_logger, count, ex.Message);
                     var half = count / 2;
                     await WriteAsync(batch, start, half).ConfigureAwait(false);
                     await WriteAsync(batch, start + half, count - half).ConfigureAwait(false);
                     return;
                 }
 
-                _logger.LogError(ex, "Writing {Rows} predictions failed; retrying in {Delay}", rows.Count, delay);
+                PredictionLogEvents.WriteFailed(_logger, ex, rows.Count, delay);
                 await Task.Delay(delay, _time, _abort.Token).ConfigureAwait(false);
                 delay = TimeSpan.FromTicks(Math.Min(delay.Ticks * 2, TimeSpan.FromSeconds(5).Ticks));
             }
@@ -287,13 +300,11 @@ public sealed class PredictionLog : IAsyncDisposable
             Directory.CreateDirectory(_options.SetAsideFolder);
             var file = Path.Combine(_options.SetAsideFolder, $"predictions-{now:yyyy-MM-dd}.jsonl");
             await File.AppendAllTextAsync(file, line + "\n", _abort.Token).ConfigureAwait(false);
-            _logger.LogError("The store refused prediction {Id} of {Model} {Version} ({Reason}); set aside in {File}", row.Id, row.Model, row.Version,
-                reason.Message, file);
+            PredictionLogEvents.SetAside(_logger, row.Id, row.Model, row.Version, reason.Message, file);
         }
         catch (Exception ex) when (ex is IOException or UnauthorizedAccessException)
         {
-            _logger.LogError("The store refused prediction {Id} ({Reason}) and the set-aside folder {Folder} could not take it ({Error}); the row: {Row}",
-                row.Id, reason.Message, _options.SetAsideFolder, ex.Message, line);
+            PredictionLogEvents.SetAsideFailed(_logger, row.Id, reason.Message, _options.SetAsideFolder, ex.Message, line);
         }
     }
 
@@ -321,4 +332,26 @@ public sealed class PredictionLog : IAsyncDisposable
 
         return System.Text.Encoding.UTF8.GetString(buffer.WrittenSpan);
     }
+}
+
+/// <summary>The log events of this file, with their event ids (docs/operations.md lists them).</summary>
+internal static partial class PredictionLogEvents
+{
+    [LoggerMessage(EventId = 2201, Level = LogLevel.Warning, Message = "Prediction log full ({Capacity} rows waiting): rows are being dropped; {Dropped} so far")]
+    public static partial void Full(ILogger logger, int capacity, long dropped);
+
+    [LoggerMessage(EventId = 2202, Level = LogLevel.Error, Message = "Prediction log did not drain within {Timeout}; {Depth} rows not written")]
+    public static partial void NotDrained(ILogger logger, TimeSpan timeout, int depth);
+
+    [LoggerMessage(EventId = 2203, Level = LogLevel.Warning, Message = "The store refused a batch of {Rows} predictions ({Reason}); writing it in halves to set the refused rows aside")]
+    public static partial void BatchRefused(ILogger logger, int rows, string reason);
+
+    [LoggerMessage(EventId = 2204, Level = LogLevel.Error, Message = "Writing {Rows} predictions failed; retrying in {Delay}")]
+    public static partial void WriteFailed(ILogger logger, Exception error, int rows, TimeSpan delay);
+
+    [LoggerMessage(EventId = 2205, Level = LogLevel.Error, Message = "The store refused prediction {Id} of {Model} {Version} ({Reason}); set aside in {File}")]
+    public static partial void SetAside(ILogger logger, Guid id, string model, string version, string reason, string file);
+
+    [LoggerMessage(EventId = 2206, Level = LogLevel.Error, Message = "The store refused prediction {Id} ({Reason}) and the set-aside folder {Folder} could not take it ({Error}); the row: {Row}")]
+    public static partial void SetAsideFailed(ILogger logger, Guid id, string reason, string? folder, string error, string row);
 }

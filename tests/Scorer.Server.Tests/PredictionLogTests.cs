@@ -150,6 +150,32 @@ public sealed class PredictionLogTests : IDisposable
     }
 
     [Fact]
+    public async Task A_batch_short_of_its_size_is_written_when_its_delay_has_passed_on_the_log_clock_and_not_before()
+    {
+        var store = await StoreAsync();
+        var time = new Microsoft.Extensions.Time.Testing.FakeTimeProvider(DateTimeOffset.UnixEpoch.AddDays(20_000));
+        var log = new PredictionLog(store, new PredictionLogOptions { MaxBatch = 100, MaxDelay = TimeSpan.FromSeconds(5) }, NullLogger<PredictionLog>.Instance, time);
+        for (var i = 0; i < 3; i++)
+        {
+            Assert.True(log.TryEnqueue(Row(i)));
+        }
+
+        // The writer has taken the rows and waits for more (they count as pending, none is written yet).
+        Assert.True(await Files.EventuallyAsync(() => Task.FromResult(log.Depth == 0 && log.Pending == 3), TimeSpan.FromSeconds(30)));
+        time.Advance(TimeSpan.FromSeconds(4));
+        await Task.Delay(100);
+        Assert.Equal(0, log.Written);
+
+        Assert.True(await Files.EventuallyAsync(() =>
+        {
+            time.Advance(TimeSpan.FromSeconds(1)); // the delay's end, and past it
+            return Task.FromResult(log.Written == 3);
+        }, TimeSpan.FromSeconds(30)));
+        await log.StopAsync();
+        await store.DisposeAsync();
+    }
+
+    [Fact]
     public async Task A_log_that_writes_nothing_for_longer_than_its_stall_time_makes_readiness_say_it_is_not_draining()
     {
         // Arrange: a store whose writes fail until told otherwise, on a fake clock.
@@ -167,7 +193,11 @@ public sealed class PredictionLogTests : IDisposable
             Assert.True(log.TryEnqueue(Row(i)));
         }
 
-        Assert.True(await Files.EventuallyAsync(() => Task.FromResult(log.FailedWrites >= 1), TimeSpan.FromSeconds(30)));
+        Assert.True(await Files.EventuallyAsync(() =>
+        {
+            time.Advance(TimeSpan.FromMilliseconds(1)); // the batch's MaxDelay passes on the fake clock
+            return Task.FromResult(log.FailedWrites >= 1);
+        }, TimeSpan.FromSeconds(30)));
         Assert.DoesNotContain((await readiness.CheckAsync()).Reasons, r => r.Contains("not draining", StringComparison.Ordinal));
 
         // Act: 31 s pass without a successful write.

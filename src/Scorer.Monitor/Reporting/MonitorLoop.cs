@@ -10,7 +10,7 @@ namespace Scorer.Monitor.Reporting;
 /// keeps the latest: the metrics, the page's overview and the event streams read them, so a scrape or a page view never
 /// computes a report itself. Status changes are judged (and logged) as a side effect of each round.
 /// </summary>
-public sealed class MonitorLoop(ModelRegistry registry, MonitorReporter reporter, LabelledCache labelled, MonitorOptions options, ILogger<MonitorLoop> logger)
+public sealed class MonitorLoop(ModelRegistry registry, MonitorReporter reporter, LabelledCache labelled, MonitorOptions options, TimeProvider time, ILogger<MonitorLoop> logger)
 {
     private readonly ConcurrentDictionary<(string Model, string Version, string Window), MonitorSnapshot> _latest = new();
 
@@ -24,7 +24,7 @@ public sealed class MonitorLoop(ModelRegistry registry, MonitorReporter reporter
 
     public async Task RunAsync(CancellationToken cancellationToken)
     {
-        using var timer = new PeriodicTimer(options.ReportInterval);
+        using var timer = new PeriodicTimer(options.ReportInterval, time);
         do
         {
             try
@@ -39,7 +39,7 @@ public sealed class MonitorLoop(ModelRegistry registry, MonitorReporter reporter
             catch (Exception ex)
 #pragma warning restore CA1031
             {
-                logger.LogError(ex, "The monitor's reports could not be refreshed; retrying");
+                MonitorLoopEvents.RefreshFailed(logger, ex);
             }
         }
         while (await timer.WaitForNextTickAsync(cancellationToken).ConfigureAwait(false));
@@ -70,4 +70,11 @@ public sealed class MonitorLoop(ModelRegistry registry, MonitorReporter reporter
             }
         }
     }
+}
+
+/// <summary>The log events of this file, with their event ids (docs/operations.md lists them).</summary>
+internal static partial class MonitorLoopEvents
+{
+    [LoggerMessage(EventId = 3301, Level = LogLevel.Error, Message = "The monitor's reports could not be refreshed; retrying")]
+    public static partial void RefreshFailed(ILogger logger, Exception error);
 }

@@ -85,8 +85,7 @@ public sealed class MonitorReporter(ModelRegistry registry, IPredictionLogStore 
 
         if (changed)
         {
-            logger.LogInformation("Status of {Model} {Version} is now {Status} (action {Action}): {Reasons}", version.Model, version.Version, status.Name,
-                status.ActionName, string.Join(" ", status.Reasons));
+            MonitorReporterEvents.StatusChanged(logger, version.Model, version.Version, status.Name, status.ActionName, string.Join(" ", status.Reasons));
             StatusChanged?.Invoke(version.Model, version.Version, status);
         }
     }
@@ -123,4 +122,11 @@ public sealed class MonitorReporter(ModelRegistry registry, IPredictionLogStore 
         var counts = await driftCounts.GetDriftCountsAsync(version.Model, version.Version, from, to, cancellationToken).ConfigureAwait(false);
         return new WindowPart(from, to, immature, provisional, calibration, DriftTracker.Psi(version, counts));
     }
+}
+
+/// <summary>The log events of this file, with their event ids (docs/operations.md lists them).</summary>
+internal static partial class MonitorReporterEvents
+{
+    [LoggerMessage(EventId = 3401, Level = LogLevel.Information, Message = "Status of {Model} {Version} is now {Status} (action {Action}): {Reasons}")]
+    public static partial void StatusChanged(ILogger logger, string model, string version, string status, string action, string reasons);
 }

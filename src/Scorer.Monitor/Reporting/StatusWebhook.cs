@@ -89,8 +89,7 @@ public sealed class StatusWebhook : IAsyncDisposable
                     ShouldRetryAfterHeader = false,
                     OnRetry = args =>
                     {
-                        logger.LogWarning("Posting a status change to the webhook failed ({Error}); attempt {Attempt} of {Attempts} in {Delay}",
-                            args.Outcome.Exception?.Message ?? $"HTTP {(int?)args.Outcome.Result?.StatusCode}", args.AttemptNumber + 2, Retries + 1, args.RetryDelay);
+                        StatusWebhookEvents.Retrying(logger, args.Outcome.Exception?.Message ?? $"HTTP {(int?)args.Outcome.Result?.StatusCode}", args.AttemptNumber + 2, Retries + 1, args.RetryDelay);
                         return ValueTask.CompletedTask;
                     },
                 });
@@ -142,9 +141,18 @@ public sealed class StatusWebhook : IAsyncDisposable
             }
             catch (Exception ex) when (ex is HttpRequestException or TaskCanceledException or Polly.Timeout.TimeoutRejectedException && !_stop.IsCancellationRequested)
             {
-                _logger.LogError(ex, "Giving up posting the status change of {Model} {Version} to {Webhook} after {Attempts} attempts",
-                    notice.Model, notice.Version, _target, Retries + 1);
+                StatusWebhookEvents.GaveUp(_logger, ex, notice.Model, notice.Version, _target, Retries + 1);
             }
         }
     }
+}
+
+/// <summary>The log events of this file, with their event ids (docs/operations.md lists them).</summary>
+internal static partial class StatusWebhookEvents
+{
+    [LoggerMessage(EventId = 3201, Level = LogLevel.Warning, Message = "Posting a status change to the webhook failed ({Error}); attempt {Attempt} of {Attempts} in {Delay}")]
+    public static partial void Retrying(ILogger logger, string error, int attempt, int attempts, TimeSpan delay);
+
+    [LoggerMessage(EventId = 3202, Level = LogLevel.Error, Message = "Giving up posting the status change of {Model} {Version} to {Webhook} after {Attempts} attempts")]
+    public static partial void GaveUp(ILogger logger, Exception error, string model, string version, Uri? webhook, int attempts);
 }
