@@ -39,6 +39,9 @@ public sealed record StatusChange(DateTimeOffset At, string? From, string To, st
 /// </summary>
 public sealed class PageApi
 {
+    /// <summary>Messages as the JSON transcoder writes them (default values included).</summary>
+    private static readonly Google.Protobuf.JsonFormatter ApiJson = new(Google.Protobuf.JsonFormatter.Settings.Default.WithFormatDefaultValues(true));
+
     private static readonly JsonWriterOptions WriterOptions = new() { Encoder = System.Text.Encodings.Web.JavaScriptEncoder.UnsafeRelaxedJsonEscaping };
 
     private readonly ModelRegistry _registry;
@@ -214,27 +217,9 @@ public sealed class PageApi
         w.WriteStartArray("loadErrors");
         foreach (var failure in snapshot.Failures)
         {
-            w.WriteStartObject();
-            // The shape of GET /v1/models' loadErrors (the LoadError message as JSON).
-            w.WriteString("file", Path.GetFileName(failure.File));
-            w.WriteStartArray("problems");
-            foreach (var p in failure.Problems)
-            {
-                w.WriteStartObject();
-                w.WriteString("path", p.Path);
-                w.WriteString("reason", p.Reason);
-                if (!string.IsNullOrEmpty(p.Hint))
-                {
-                    w.WriteString("hint", p.Hint);
-                }
-
-                w.WriteEndObject();
-            }
-
-            w.WriteEndArray();
-            w.WriteString("at", Scorer.Transport.Services.ModelsService.Time(failure.At));
-            w.WriteString("kind", LoadFailure.KindName(failure.Kind));
-            w.WriteEndObject();
+            // Exactly what GET /v1/models gives (the LoadError message as JSON).
+            using var error = JsonDocument.Parse(ApiJson.Format(Scorer.Transport.Services.ModelsService.LoadErrorOf(failure)));
+            error.WriteTo(w);
         }
 
         w.WriteEndArray();

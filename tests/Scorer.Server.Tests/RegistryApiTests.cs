@@ -79,6 +79,10 @@ public sealed class RegistryApiTests : IDisposable
         var error = list.RootElement.GetProperty("loadErrors")[0];
         Assert.Equal("broken.json", error.GetProperty("file").GetString());
         Assert.Contains(error.GetProperty("problems").EnumerateArray(), p => p.GetProperty("path").GetString() == "$.link");
+
+        // The page's overview lists the same load errors in the same shape, byte for byte.
+        using var overview = await GetAsync(server, "/v1/overview");
+        Assert.Equal(list.RootElement.GetProperty("loadErrors").GetRawText(), overview.RootElement.GetProperty("loadErrors").GetRawText());
         var (status, json) = await PostAsync(server, "/v1/models/pump-bearing-failure/score", PumpRow);
         Assert.Equal(HttpStatusCode.OK, status);
         Assert.Equal("2026.11.1", json.RootElement.GetProperty("version").GetString());

@@ -571,21 +571,12 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
             MaxSe = maxSe,
             Numeric = numeric.ToImmutable(),
             Levels = levels.ToImmutable(),
-            TermMeans = b.TryGetProperty("term_means", out var tm) ? ReadTermMeans(tm, terms, ConstantTerms(root)) : ImmutableDictionary<string, double>.Empty,
+            TermMeans = b.TryGetProperty("term_means", out var tm) ? ReadTermMeans(tm, terms) : ImmutableDictionary<string, double>.Empty,
         };
     }
 
     /// <summary>baseline.term_means: a finite mean for every term with factors, and for nothing else.</summary>
-    /// <summary>The names of the terms the file gives without factors (the intercept), as written, whatever else is wrong with them.</summary>
-    private static HashSet<string> ConstantTerms(JsonElement root) =>
-        root.TryGetProperty("terms", out var ts) && ts.ValueKind == JsonValueKind.Array
-            ? [.. ts.EnumerateArray()
-                .Where(t => t.ValueKind == JsonValueKind.Object && t.TryGetProperty("name", out var n) && n.ValueKind == JsonValueKind.String
-                    && (!t.TryGetProperty("factors", out var f) || (f.ValueKind == JsonValueKind.Array && f.GetArrayLength() == 0)))
-                .Select(t => t.GetProperty("name").GetString()!)]
-            : [];
-
-    private ImmutableDictionary<string, double> ReadTermMeans(JsonElement e, ImmutableArray<TermSpec> terms, HashSet<string> constant)
+    private ImmutableDictionary<string, double> ReadTermMeans(JsonElement e, ImmutableArray<TermSpec> terms)
     {
         const string path = "$.baseline.term_means";
         var means = ImmutableDictionary.CreateBuilder<string, double>(StringComparer.Ordinal);
@@ -603,7 +594,7 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
             {
                 Error(at, $"'{p.Name}' is not a term of the model");
             }
-            else if (constant.Contains(p.Name))
+            else if (term.IsIntercept)
             {
                 Error(at, $"'{p.Name}' has no factors: its value is 1 in every row, so it has no mean to report against", "leave it out");
             }
@@ -617,7 +608,7 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
             }
         }
 
-        var missing = terms.Where(t => !constant.Contains(t.Name) && !e.TryGetProperty(t.Name, out _)).Select(t => t.Name).ToList();
+        var missing = terms.Where(t => !t.IsIntercept && !e.TryGetProperty(t.Name, out _)).Select(t => t.Name).ToList();
         if (means.Count > 0 && missing.Count > 0)
         {
             Error(path, $"no mean for {string.Join(", ", missing.Take(5).Select(m => $"'{m}'"))}{(missing.Count > 5 ? $" and {missing.Count - 5} more" : "")}: give one for every term with factors, or none");

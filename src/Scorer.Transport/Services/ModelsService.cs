@@ -40,12 +40,7 @@ public sealed class ModelsService(ModelCatalog catalog, StageChanges stages) : M
             response.Models.Add(info);
         }
 
-        foreach (var failure in snapshot.Failures)
-        {
-            var error = new LoadError { File = Path.GetFileName(failure.File), At = Time(failure.At), Kind = LoadFailure.KindName(failure.Kind) };
-            error.Problems.AddRange(failure.Problems.Select(p => new Problem { Path = p.Path, Reason = p.Reason, Hint = p.Hint ?? "" }));
-            response.LoadErrors.Add(error);
-        }
+        response.LoadErrors.AddRange(snapshot.Failures.Select(LoadErrorOf));
 
         return Task.FromResult(response);
     }
@@ -75,6 +70,14 @@ public sealed class ModelsService(ModelCatalog catalog, StageChanges stages) : M
         var response = new GetHistoryResponse { Model = request.Model };
         response.Changes.AddRange((await stages.HistoryAsync(request.Model, context.CancellationToken).ConfigureAwait(false)).Select(Info));
         return response;
+    }
+
+    /// <summary>A file the registry could not load, as the API gives it (also in the page's overview).</summary>
+    public static LoadError LoadErrorOf(LoadFailure failure)
+    {
+        var error = new LoadError { File = Path.GetFileName(failure.File), At = Time(failure.At), Kind = LoadFailure.KindName(failure.Kind) };
+        error.Problems.AddRange(failure.Problems.Select(p => new Problem { Path = p.Path, Reason = p.Reason, Hint = p.Hint ?? "" }));
+        return error;
     }
 
     /// <summary>A stage as the API writes it (<see cref="ModelCatalog.StageName"/>).</summary>
