@@ -185,3 +185,63 @@ public sealed partial class DirectRestTests : IAsyncLifetime
         Assert.Equal(HttpStatusCode.OK, (await PostAsync(server, "/v1/models/birthwt/score", Body, "score-key-0123456789")).Status);
     }
 }
+
+/// <summary>The CSV result writer of the direct score endpoint (<c>Accept: text/csv</c>), checked against R.</summary>
+public sealed class CsvScoreResponseTests : IAsyncLifetime
+{
+    private readonly TestFolder _folder = new();
+    private RunningServer _server = null!;
+
+    public async Task InitializeAsync()
+    {
+        _folder.AddModel(Files.Reference("birthwt-logit.model.json"), "birthwt.json");
+        _server = await RunningServer.StartAsync(_folder);
+    }
+
+    public async Task DisposeAsync()
+    {
+        await _server.DisposeAsync();
+        _folder.Dispose();
+    }
+
+    [Fact]
+    public async Task Text_csv_gives_one_record_per_row_with_R_predict_values_and_a_failed_row_its_error_columns()
+    {
+        // Rows of MASS::birthwt and R's predict(type = "link", se.fit = TRUE) for them (tests/reference/scoring-reference.R).
+        var lines = File.ReadAllLines(Files.Reference("birthwt.rows.csv"));
+        var header = lines[0].Split(',').Select(h => h.Trim('"')).ToArray();
+        var rows = lines.Skip(1).Select(l => "{" + string.Join(",", l.Split(',').Select((v, i) =>
+            header[i] == "race" ? $"\"{header[i]}\":\"{v.Trim('"')}\"" : $"\"{header[i]}\":{v.Trim('"')}")) + "}").ToList();
+        var body = "{\"rows\":[" + string.Join(",", rows) + ",{\"age\":\"old\"}],\"level\":0.95}";
+        using var request = new HttpRequestMessage(HttpMethod.Post, "/v1/models/birthwt/score") { Content = new StringContent(body, Encoding.UTF8, "application/json") };
+        request.Headers.Accept.ParseAdd("text/csv");
+        using var response = await _server.Http.SendAsync(request);
+        Assert.Equal(HttpStatusCode.OK, response.StatusCode);
+        Assert.Equal("text/csv", response.Content.Headers.ContentType!.MediaType);
+        Assert.Equal("r-logit", response.Headers.GetValues("X-Scorer-Version").Single());
+
+        var reader = new Scorer.Tabular.CsvReader(new StringReader(await response.Content.ReadAsStringAsync()));
+        var columns = new List<string>();
+        Assert.True(reader.TryRead(columns));
+        Assert.Equal(Scorer.Transport.Rest.RestScoring.CsvColumns, columns);
+        var expected = File.ReadAllLines(Files.Reference("birthwt-logit.expected.csv")).Skip(1).Select(l => l.Split(',').Select(double.Parse).ToArray()).ToList();
+        var record = new List<string>();
+        for (var i = 0; i < rows.Count; i++)
+        {
+            Assert.True(reader.TryRead(record));
+            Assert.Matches("^[0-9a-f-]{36}$", record[0]);
+            Assert.Equal(expected[i][0], double.Parse(record[2], System.Globalization.CultureInfo.InvariantCulture), 1e-9); // eta
+            Assert.Equal(expected[i][1], double.Parse(record[3], System.Globalization.CultureInfo.InvariantCulture), 1e-9); // se
+            Assert.Equal(expected[i][2], double.Parse(record[4], System.Globalization.CultureInfo.InvariantCulture), 1e-9); // probability
+            Assert.Equal(expected[i][3], double.Parse(record[5], System.Globalization.CultureInfo.InvariantCulture), 1e-9); // lower, 95%
+            Assert.Equal(expected[i][4], double.Parse(record[6], System.Globalization.CultureInfo.InvariantCulture), 1e-9); // upper, 95%
+            Assert.Equal("", record[10]);
+        }
+
+        Assert.True(reader.TryRead(record));
+        Assert.Equal("", record[2]);
+        Assert.Equal("expected_number", record[10]); // the code the JSON error carries
+        Assert.Equal("age", record[11]);
+        Assert.False(reader.TryRead(record));
+    }
+}

@@ -110,6 +110,12 @@ public sealed class RestScoring(ScoringPipeline pipeline)
 
             var request = ReadRequest(json, modelName);
             var call = pipeline.Prepare(modelName, request.Version, request.Rows.Count, request.Keys, request.Level, request.Contributions);
+            if (WantsCsv(context.Request.Headers.Accept))
+            {
+                AnswerCsv(context, json, request, call);
+                return;
+            }
+
             context.Response.StatusCode = StatusCodes.Status200OK;
             context.Response.ContentType = "application/json; charset=utf-8";
             using var w = new Utf8JsonWriter(context.Response.BodyWriter, WriterOptions);
@@ -129,6 +135,100 @@ public sealed class RestScoring(ScoringPipeline pipeline)
             {
                 ArrayPool<byte>.Shared.Return(copy);
             }
+        }
+    }
+
+    /// <summary>The columns of a CSV score response (docs/api.md), one record per row in request order.</summary>
+    public static readonly string[] CsvColumns =
+        ["id", "key", "eta", "se", "probability", "lower", "upper", "flag", "warnings", "contributions", "error_code", "error_field", "error_reason"];
+
+    /// <summary>True when the caller asks for CSV (<c>Accept: text/csv</c>) rather than JSON.</summary>
+    private static bool WantsCsv(Microsoft.Extensions.Primitives.StringValues accept)
+    {
+        foreach (var value in accept)
+        {
+            if (value is not null && value.Split(',').Any(t => t.Split(';', 2)[0].Trim().Equals("text/csv", StringComparison.OrdinalIgnoreCase)))
+            {
+                return true;
+            }
+        }
+
+        return false;
+    }
+
+    private void AnswerCsv(HttpContext context, ReadOnlySpan<byte> json, ParsedRequest request, ScoreCall call)
+    {
+        var text = new StringWriter(CultureInfo.InvariantCulture);
+        var csv = new Scorer.Tabular.CsvWriter(text);
+        foreach (var column in CsvColumns)
+        {
+            csv.Field(column);
+        }
+
+        csv.EndRecord();
+        var rows = new JsonRows(json, request, pipeline.Limits);
+        var writer = new CsvResultWriter(csv);
+        pipeline.Score(call, ref rows, ref writer);
+        context.Response.StatusCode = StatusCodes.Status200OK;
+        context.Response.ContentType = "text/csv; charset=utf-8";
+        context.Response.Headers["X-Scorer-Model"] = call.Version.Model;
+        context.Response.Headers["X-Scorer-Version"] = call.Version.Version;
+        var bytes = Encoding.UTF8.GetBytes(text.ToString());
+        context.Response.ContentLength = bytes.Length;
+        context.Response.BodyWriter.Write(bytes);
+    }
+
+    /// <summary>
+    /// Writes each row's result as one CSV record: numbers in shortest round-trip form, empty where a value does not
+    /// apply; warnings as "code: message" joined by "; ", contributions as "term=value" joined by "; ".
+    /// </summary>
+    private readonly struct CsvResultWriter(Scorer.Tabular.CsvWriter csv) : IScoreWriter
+    {
+        public void Scored(int row, Guid id, string? key, in ScoredRow r, CompiledModel model, ReadOnlySpan<int> order, ReadOnlySpan<double> contributions,
+            ReadOnlySpan<RowWarning> warnings)
+        {
+            csv.Field(id.ToString());
+            csv.Field(key);
+            csv.Number(r.Eta);
+            csv.Number(r.Se);
+            csv.Number(r.Probability);
+            csv.Number(r.Lower);
+            csv.Number(r.Upper);
+            csv.Field(r.FlagValue is { } flag ? (flag ? "1" : "0") : null);
+            var notes = new StringBuilder();
+            foreach (var w in warnings)
+            {
+                notes.Append(notes.Length > 0 ? "; " : "").Append(RowMessages.Code(w.Kind)).Append(": ").Append(RowMessages.Describe(model, w));
+            }
+
+            csv.Field(notes.ToString());
+            notes.Clear();
+            foreach (var j in order)
+            {
+                notes.Append(notes.Length > 0 ? "; " : "").Append(model.TermNames[j]).Append('=')
+                    .Append(contributions[j].ToString("R", CultureInfo.InvariantCulture));
+            }
+
+            csv.Field(notes.ToString());
+            csv.Field(null);
+            csv.Field(null);
+            csv.Field(null);
+            csv.EndRecord();
+        }
+
+        public void Failed(int row, Guid id, string? key, string code, string field, string reason)
+        {
+            csv.Field(id.ToString());
+            csv.Field(key);
+            for (var i = 0; i < 8; i++)
+            {
+                csv.Field(null);
+            }
+
+            csv.Field(code);
+            csv.Field(field);
+            csv.Field(reason);
+            csv.EndRecord();
         }
     }
 
