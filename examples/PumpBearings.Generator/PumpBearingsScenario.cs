@@ -45,6 +45,7 @@ internal sealed class PumpBearingsScenario : Scenario
                 Kind = FeatureKind.Numeric,
                 Description = "Bearing housing temperature, degrees Celsius; a missing reading is replaced by the training mean",
                 Missing = MissingPolicy.Mean,
+                Mean = 55, // the simulated distribution's mean; the written file carries the training rows' mean (Simulation.WithRange)
             },
             new FeatureSpec { Name = "hours_since_service", Kind = FeatureKind.Numeric, Description = "Running hours since the last bearing service" },
             new FeatureSpec

@@ -107,6 +107,10 @@ internal static class Simulation
                 MaxSe = maxSe,
                 Numeric = numericBaselines.ToImmutable(),
                 Levels = levelBaselines.ToImmutable(),
+                // The training mean of each term's design column (the intercept left out): contributions are reported
+                // against a typical row (docs/model-file.md, baseline.term_means).
+                TermMeans = terms.Select((t, j) => (t, j)).Where(tj => !tj.t.IsIntercept)
+                    .ToImmutableDictionary(tj => tj.t.Name, tj => x.Column(tj.j).Sum() / n, StringComparer.Ordinal),
             },
             Fit = FitSection(fit, n, events, k),
             Extensions = ImmutableDictionary<string, JsonElement>.Empty.Add("x-simulation", SimulationSection(scenario, n)),
