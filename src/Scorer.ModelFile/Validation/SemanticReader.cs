@@ -190,6 +190,9 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
         return result.ToImmutable();
     }
 
+    /// <summary>The terms written with no factors (the intercept); a term whose factors could not be read is not one of them.</summary>
+    private readonly HashSet<string> _constantTerms = new(StringComparer.Ordinal);
+
     private ImmutableArray<TermSpec> ReadTerms(JsonElement root, ImmutableArray<FeatureSpec> features)
     {
         var result = ImmutableArray.CreateBuilder<TermSpec>();
@@ -243,6 +246,7 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
             var complete = factors.Count == declared;
             if (complete && factors.Count == 0)
             {
+                _constantTerms.Add(name ?? "");
                 if (intercept >= 0)
                 {
                     Error(path, $"a second intercept (a term with no factors); the first is $.terms[{intercept}]");
@@ -594,7 +598,7 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
             {
                 Error(at, $"'{p.Name}' is not a term of the model");
             }
-            else if (term.IsIntercept)
+            else if (_constantTerms.Contains(p.Name))
             {
                 Error(at, $"'{p.Name}' has no factors: its value is 1 in every row, so it has no mean to report against", "leave it out");
             }
@@ -608,7 +612,7 @@ internal sealed class SemanticReader(ModelFileReaderOptions options, List<ModelF
             }
         }
 
-        var missing = terms.Where(t => !t.IsIntercept && !e.TryGetProperty(t.Name, out _)).Select(t => t.Name).ToList();
+        var missing = terms.Where(t => !_constantTerms.Contains(t.Name) && !e.TryGetProperty(t.Name, out _)).Select(t => t.Name).ToList();
         if (means.Count > 0 && missing.Count > 0)
         {
             Error(path, $"no mean for {string.Join(", ", missing.Take(5).Select(m => $"'{m}'"))}{(missing.Count > 5 ? $" and {missing.Count - 5} more" : "")}: give one for every term with factors, or none");
