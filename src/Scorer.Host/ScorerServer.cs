@@ -298,17 +298,8 @@ public static class ScorerServer
         }
 
         await app.Services.GetRequiredService<IScorerStore>().MigrateAsync().ConfigureAwait(false);
-        var snapshot = await app.Services.GetRequiredService<ModelRegistry>().ReloadAsync().ConfigureAwait(false);
+        await app.Services.GetRequiredService<ModelRegistry>().ReloadAsync().ConfigureAwait(false); // logs each version loaded and each file refused
         ServerEvents.Listening(logger, options.Http, options.Grpc, options.Store.Describe(), Path.GetFullPath(options.ModelsPath));
-        foreach (var version in snapshot.Models.Values.SelectMany(m => m.Versions))
-        {
-            ServerEvents.Loaded(logger, version.Model, version.Version, Scorer.Application.Models.ModelCatalog.StageName(version.Stage));
-        }
-
-        foreach (var failure in snapshot.Failures)
-        {
-            ServerEvents.LoadFailed(logger, failure.File, string.Join("; ", failure.Problems));
-        }
 
         if (options.Keys.Count == 0)
         {
@@ -337,12 +328,6 @@ internal static partial class ServerEvents
 
     [LoggerMessage(EventId = 1002, Level = LogLevel.Information, Message = "REST on http://{Http}, gRPC (h2c) on http://{Grpc}; store {Store}; models from {Models}")]
     public static partial void Listening(Microsoft.Extensions.Logging.ILogger logger, string http, string grpc, string store, string models);
-
-    [LoggerMessage(EventId = 1003, Level = LogLevel.Information, Message = "Loaded {Model} {Version} ({Stage})")]
-    public static partial void Loaded(Microsoft.Extensions.Logging.ILogger logger, string model, string version, string stage);
-
-    [LoggerMessage(EventId = 1004, Level = LogLevel.Warning, Message = "Failed to load {File}: {Problems}")]
-    public static partial void LoadFailed(Microsoft.Extensions.Logging.ILogger logger, string file, string problems);
 
     [LoggerMessage(EventId = 1005, Level = LogLevel.Warning, Message = "NO API KEYS ARE CONFIGURED: every caller on this machine can score and change stages. Configure Scorer:Keys before binding beyond loopback.")]
     public static partial void NoKeys(Microsoft.Extensions.Logging.ILogger logger);

@@ -533,28 +533,28 @@ public sealed partial class ModelRegistry(RegistryOptions options, IStageStore s
 
     private sealed record Candidate(ModelDocument Document, CompiledModel Compiled, byte[] Bytes);
 
-    [LoggerMessage(EventId = 1, Level = LogLevel.Information, Message = "Loaded {Model} {Version} ({Stage}) from {File}")]
+    [LoggerMessage(EventId = 6101, Level = LogLevel.Information, Message = "Loaded {Model} {Version} ({Stage}) from {File}")]
     private static partial void LogLoaded(ILogger logger, string model, string version, Stage stage, string file);
 
-    [LoggerMessage(EventId = 2, Level = LogLevel.Warning, Message = "Could not load {File} ({Kind}): {Problems}")]
+    [LoggerMessage(EventId = 6102, Level = LogLevel.Warning, Message = "Could not load {File} ({Kind}): {Problems}")]
     private static partial void LogCouldNotLoad(ILogger logger, string file, string kind, string problems);
 
     /// <summary>Logged when a changed file is about to be validated and compiled, outside the lock stage changes take.</summary>
     [LoggerMessage(EventId = ReadingEventId, Level = LogLevel.Debug, Message = "Reading {File} ({Bytes} bytes)")]
     private static partial void LogReading(ILogger logger, string file, int bytes);
 
-    [LoggerMessage(EventId = 4, Level = LogLevel.Warning, Message = "Could not record {Model} {Version} from {File} in the store; retrying at the next turn")]
+    [LoggerMessage(EventId = 6104, Level = LogLevel.Warning, Message = "Could not record {Model} {Version} from {File} in the store; retrying at the next turn")]
     private static partial void LogStoreFailed(ILogger logger, Exception exception, string model, string version, string file);
 
-    [LoggerMessage(EventId = 5, Level = LogLevel.Error, Message = "Loading {File} failed")]
+    [LoggerMessage(EventId = 6105, Level = LogLevel.Error, Message = "Loading {File} failed")]
     private static partial void LogLoadException(ILogger logger, Exception exception, string file);
 
-    [LoggerMessage(EventId = 6, Level = LogLevel.Information, Message = "Stage of {Model} {Version}: {From} -> {To} (changed by another process sharing the store)")]
+    [LoggerMessage(EventId = 6106, Level = LogLevel.Information, Message = "Stage of {Model} {Version}: {From} -> {To} (changed by another process sharing the store)")]
     private static partial void LogStageFollowed(ILogger logger, string model, string version, Stage from, Stage to);
 
-    [LoggerMessage(EventId = 7, Level = LogLevel.Information, Message = "Stage of {Model} {Version}: {From} -> {To} by {Actor}")]
+    [LoggerMessage(EventId = 6107, Level = LogLevel.Information, Message = "Stage of {Model} {Version}: {From} -> {To} by {Actor}")]
     private static partial void LogStageChanged(ILogger logger, string model, string version, Stage? from, Stage to, string actor);
 
     /// <summary>The event id of the "Reading {File}" debug message.</summary>
-    public const int ReadingEventId = 3;
+    public const int ReadingEventId = 6103;
 }

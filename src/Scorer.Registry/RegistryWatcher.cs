@@ -101,6 +101,6 @@ public sealed class RegistryWatcher(ModelRegistry registry, RegistryOptions opti
 /// <summary>The log events of this file, with their event ids (docs/operations.md lists them).</summary>
 internal static partial class RegistryWatcherEvents
 {
-    [LoggerMessage(EventId = 6001, Level = LogLevel.Error, Message = "Rescan of {Folder} failed; retrying")]
+    [LoggerMessage(EventId = 6201, Level = LogLevel.Error, Message = "Rescan of {Folder} failed; retrying")]
     public static partial void RescanFailed(ILogger logger, Exception error, string folder);
 }

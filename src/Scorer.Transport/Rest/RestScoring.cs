@@ -180,7 +180,7 @@ public sealed class RestScoring(ScoringPipeline pipeline)
 
     /// <summary>
     /// Writes each row's result as one CSV record: numbers in shortest round-trip form, empty where a value does not
-    /// apply; warnings as "code: message" joined by "; ", contributions as "term=value" joined by "; ".
+    /// apply; warnings as "code: message" joined by "; ", contributions as "term: value" joined by "; ".
     /// </summary>
     private readonly struct CsvResultWriter(Scorer.Tabular.CsvWriter csv) : IScoreWriter
     {
@@ -205,7 +205,7 @@ public sealed class RestScoring(ScoringPipeline pipeline)
             notes.Clear();
             foreach (var j in order)
             {
-                notes.Append(notes.Length > 0 ? "; " : "").Append(model.TermNames[j]).Append('=')
+                notes.Append(notes.Length > 0 ? "; " : "").Append(model.TermNames[j]).Append(": ")
                     .Append(contributions[j].ToString("R", CultureInfo.InvariantCulture));
             }
 
