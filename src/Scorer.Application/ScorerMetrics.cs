@@ -18,6 +18,8 @@ public sealed class ScorerMetrics
         var factory = Metrics.WithCustomRegistry(Registry);
         RowsScored = factory.CreateCounter("scorer_rows_scored_total", "Rows scored, by model, version and stage.", "model", "version", "stage");
         RowErrors = factory.CreateCounter("scorer_row_errors_total", "Rows that could not be scored, by model and reason.", "model", "kind");
+        Refused = factory.CreateCounter("scorer_calls_refused_total",
+            "Calls refused for their API key before they ran: unauthenticated (no key, or an unknown one) or forbidden (the key lacks the role).", "reason");
         RowWarnings = factory.CreateCounter("scorer_row_warnings_total", "Rows scored with at least one warning, by model.", "model");
         Outcomes = factory.CreateCounter("scorer_outcome_reports_total", "Outcome reports, by model and result (accepted, duplicate, unknown, conflict).", "model", "result");
         Calls = factory.CreateHistogram("scorer_call_duration_seconds", "Duration of calls, by method and status.",
@@ -144,6 +146,9 @@ public sealed class ScorerMetrics
     public CollectorRegistry Registry { get; }
     public Counter RowsScored { get; }
     public Counter RowErrors { get; }
+
+    /// <summary>Calls refused for their key (reason unauthenticated or forbidden); they reach no other metric.</summary>
+    public Counter Refused { get; }
     public Counter RowWarnings { get; }
     public Histogram Calls { get; }
     public Counter Outcomes { get; }

@@ -134,6 +134,8 @@ public sealed class AuthorizationTests : IAsyncLifetime
             await models.SetStageAsync(new SetStageRequest { Model = "pima", Version = "r-logit", Stage = "live" }, Bearer(ScoreKey)));
         Assert.Equal(StatusCode.PermissionDenied, denied.StatusCode);
         Assert.Contains("lacks the 'admin' role", denied.Status.Detail, StringComparison.Ordinal);
+        var details = Grpc.Core.RpcExceptionExtensions.GetRpcStatus(denied)!.Details.Single().Unpack<Google.Rpc.BadRequest>();
+        Assert.Equal("authorization", details.FieldViolations.Single().Field); // the BadRequest details every error carries
 
         // Duplex streaming.
         using (var stream = scoring.ScoreStream(Bearer(OutcomesKey)))
@@ -173,5 +175,10 @@ public sealed class AuthorizationTests : IAsyncLifetime
         await models.SetStageAsync(new SetStageRequest { Model = "pima", Version = "r-logit", Stage = "shadow" }, Bearer(AdminKey));
         var history = await models.GetHistoryAsync(new GetHistoryRequest { Model = "pima" }, Bearer(ScoreKey));
         Assert.Equal("operator", history.Changes[^1].Actor);
+
+        // Refusals are counted, by reason: above, two without a usable key and three with a key lacking the role.
+        var metrics = await _server.Http.GetStringAsync(new Uri("/metrics", UriKind.Relative));
+        Assert.Contains("scorer_calls_refused_total{reason=\"unauthenticated\"} 2", metrics, StringComparison.Ordinal);
+        Assert.Contains("scorer_calls_refused_total{reason=\"forbidden\"} 3", metrics, StringComparison.Ordinal);
     }
 }

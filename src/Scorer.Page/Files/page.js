@@ -77,7 +77,8 @@
           if (line.startsWith('event:')) kind = line.slice(6).trim();
           else if (line.startsWith('data:')) data.push(line.slice(5).replace(/^ /, ''));
         }
-        if (data.length > 0) onEvent(kind, JSON.parse(data.join('\n')));
+        // keepalive (empty data, every 15 s) only says the stream is open.
+        if (kind !== 'keepalive' && data.length > 0 && data.join('') !== '') onEvent(kind, JSON.parse(data.join('\n')));
       }
     }
   }

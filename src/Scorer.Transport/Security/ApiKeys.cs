@@ -126,6 +126,8 @@ public sealed class ApiKeyResults : IAuthorizationMiddlewareResultHandler
         }
 
         RpcException error;
+        var metrics = context.RequestServices.GetService<ScorerMetrics>();
+        metrics?.Refused.WithLabels(authorizeResult.Forbidden ? "forbidden" : "unauthenticated").Inc();
         if (authorizeResult.Forbidden)
         {
             var role = authorizeResult.AuthorizationFailure?.FailedRequirements.OfType<RoleRequirement>().FirstOrDefault()?.Role ?? Roles.Admin;
@@ -143,6 +145,11 @@ public sealed class ApiKeyResults : IAuthorizationMiddlewareResultHandler
             context.Response.ContentType = "application/grpc";
             context.Response.Headers["grpc-status"] = ((int)error.StatusCode).ToString(System.Globalization.CultureInfo.InvariantCulture);
             context.Response.Headers["grpc-message"] = Uri.EscapeDataString(error.Status.Detail);
+            if (error.GetRpcStatus() is { } status)
+            {
+                // The google.rpc.Status with its BadRequest details, as every other error of the API carries it.
+                context.Response.Headers["grpc-status-details-bin"] = Convert.ToBase64String(Google.Protobuf.MessageExtensions.ToByteArray(status)).TrimEnd('=');
+            }
             return Task.CompletedTask;
         }
 
@@ -158,9 +165,9 @@ public static class ApiKeyRegistration
         services.AddAuthentication(ApiKeyAuthentication.SchemeName)
             .AddScheme<ApiKeyOptions, ApiKeyAuthentication>(ApiKeyAuthentication.SchemeName, o => o.Keys = keys);
         services.AddAuthorizationBuilder()
-            .AddPolicy(Roles.Score, p => p.AddAuthenticationSchemes(ApiKeyAuthentication.SchemeName).RequireAuthenticatedUser().AddRequirements(new RoleRequirement(Roles.Score)))
-            .AddPolicy(Roles.Outcomes, p => p.AddAuthenticationSchemes(ApiKeyAuthentication.SchemeName).RequireAuthenticatedUser().AddRequirements(new RoleRequirement(Roles.Outcomes)))
-            .AddPolicy(Roles.Admin, p => p.AddAuthenticationSchemes(ApiKeyAuthentication.SchemeName).RequireAuthenticatedUser().AddRequirements(new RoleRequirement(Roles.Admin)));
+            .AddPolicy(Roles.Score, p => p.RequireAuthenticatedUser().AddRequirements(new RoleRequirement(Roles.Score)))
+            .AddPolicy(Roles.Outcomes, p => p.RequireAuthenticatedUser().AddRequirements(new RoleRequirement(Roles.Outcomes)))
+            .AddPolicy(Roles.Admin, p => p.RequireAuthenticatedUser().AddRequirements(new RoleRequirement(Roles.Admin)));
         services.AddSingleton<IAuthorizationHandler>(new RoleRequirement(Roles.Score));
         services.AddSingleton<IAuthorizationMiddlewareResultHandler, ApiKeyResults>();
         return services;
