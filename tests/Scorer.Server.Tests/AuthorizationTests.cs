@@ -140,11 +140,8 @@ public sealed class AuthorizationTests : IAsyncLifetime
         // Duplex streaming.
         using (var stream = scoring.ScoreStream(Bearer(OutcomesKey)))
         {
-            var refused = await Assert.ThrowsAsync<RpcException>(async () =>
-            {
-                await stream.RequestStream.WriteAsync(request);
-                await stream.ResponseStream.MoveNext();
-            });
+            // Refused at the call's headers: nothing is written (a write could race the refusal), the answer is awaited.
+            var refused = await Assert.ThrowsAsync<RpcException>(async () => await stream.ResponseStream.MoveNext());
             Assert.Equal(StatusCode.PermissionDenied, refused.StatusCode);
         }
 
@@ -152,12 +149,7 @@ public sealed class AuthorizationTests : IAsyncLifetime
         var outcomes = new Outcomes.OutcomesClient(_server.Channel);
         using (var stream = outcomes.RecordOutcomesStream(Bearer(ScoreKey)))
         {
-            var refused = await Assert.ThrowsAsync<RpcException>(async () =>
-            {
-                await stream.RequestStream.WriteAsync(new RecordOutcomesRequest { Model = "pima" });
-                await stream.RequestStream.CompleteAsync();
-                await stream;
-            });
+            var refused = await Assert.ThrowsAsync<RpcException>(async () => await stream.ResponseAsync);
             Assert.Equal(StatusCode.PermissionDenied, refused.StatusCode);
             Assert.Contains("lacks the 'outcomes' role", refused.Status.Detail, StringComparison.Ordinal);
         }

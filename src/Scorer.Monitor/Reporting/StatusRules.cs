@@ -117,8 +117,13 @@ public static class StatusRules
                 }
                 else if (slope.Upper < 1 || slope.Lower > 1)
                 {
-                    watch = true;
-                    reasons.Add($"Calibration slope {F(slope.Estimate)} ({level} interval {F(slope.Lower)}–{F(slope.Upper)}) excludes 1, within the tolerance ±{F(options.SlopeTolerance)}.");
+                    // Practical tolerance first, evidence second: an interval wholly inside the tolerance shows the
+                    // departure is too small to matter, however many outcomes made it narrow.
+                    var inside = slope.Lower > lo && slope.Upper < hi;
+                    watch |= !inside;
+                    reasons.Add(inside
+                        ? $"Calibration slope {F(slope.Estimate)} ({level} interval {F(slope.Lower)}–{F(slope.Upper)}) excludes 1 but lies wholly within {F(lo)}–{F(hi)}: a departure within the tolerance."
+                        : $"Calibration slope {F(slope.Estimate)} ({level} interval {F(slope.Lower)}–{F(slope.Upper)}) excludes 1 and reaches the tolerance ±{F(options.SlopeTolerance)}: it may lie outside it.");
                 }
             }
 
@@ -133,8 +138,11 @@ public static class StatusRules
                 }
                 else if (oe.Upper < 1 || oe.Lower > 1)
                 {
-                    watch = true;
-                    reasons.Add($"Observed/expected {F(oe.Estimate)} ({level} interval {F(oe.Lower)}–{F(oe.Upper)}) excludes 1, within the tolerance ±{F(options.ObservedExpectedTolerance)}.");
+                    var inside = oe.Lower > lo && oe.Upper < hi;
+                    watch |= !inside;
+                    reasons.Add(inside
+                        ? $"Observed/expected {F(oe.Estimate)} ({level} interval {F(oe.Lower)}–{F(oe.Upper)}) excludes 1 but lies wholly within {F(lo)}–{F(hi)}: a departure within the tolerance."
+                        : $"Observed/expected {F(oe.Estimate)} ({level} interval {F(oe.Lower)}–{F(oe.Upper)}) excludes 1 and reaches the tolerance ±{F(options.ObservedExpectedTolerance)}: it may lie outside it.");
                 }
             }
         }

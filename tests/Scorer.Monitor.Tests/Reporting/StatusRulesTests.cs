@@ -99,14 +99,32 @@ public sealed class StatusRulesTests
     }
 
     [Fact]
-    public void A_slope_interval_that_touches_the_tolerance_or_only_excludes_1_is_watch()
+    public void A_slope_interval_that_excludes_1_and_reaches_the_tolerance_is_watch()
     {
-        // Upper end exactly 0.8 = 1 − 0.2: not wholly outside; it excludes 1.
+        // Upper end exactly 0.8 = 1 − 0.2: not wholly outside; it excludes 1 and reaches the tolerance.
         var j = Judge(Report(slope: new FittedValue(0.7, 0.05, 0.6, 0.8)));
         Assert.Equal(MonitorStatus.Watch, j.Status);
-        Assert.Contains(j.Reasons, r => r.Contains("excludes 1, within the tolerance ±0.2", StringComparison.Ordinal));
-        Assert.Equal(MonitorStatus.Watch, Judge(Report(slope: new FittedValue(1.05, 0.02, 1.01, 1.09))).Status);
+        Assert.Contains(j.Reasons, r => r.Contains("excludes 1 and reaches the tolerance ±0.2", StringComparison.Ordinal));
+        Assert.Equal(MonitorStatus.Watch, Judge(Report(slope: new FittedValue(1.15, 0.03, 1.09, 1.21))).Status); // crosses 1.2
         Assert.Equal(MonitorStatus.Fine, Judge(Report(slope: new FittedValue(1.05, 0.02, 1.0, 1.09))).Status); // reaches 1
+    }
+
+    [Fact]
+    public void An_interval_that_excludes_1_but_lies_wholly_within_the_tolerance_is_fine_however_narrow()
+    {
+        // Millions of outcomes make any real model's intervals exclude 1; within the tolerance that is no problem.
+        var slope = Judge(Report(slope: new FittedValue(1.05, 0.002, 1.046, 1.054)));
+        Assert.Equal(MonitorStatus.Fine, slope.Status);
+        Assert.Contains(slope.Reasons, r => r.Contains("excludes 1 but lies wholly within 0.8–1.2", StringComparison.Ordinal));
+        var oe = Judge(Report(oe: new Interval(0.93, 0.925, 0.935)));
+        Assert.Equal(MonitorStatus.Fine, oe.Status);
+        Assert.Contains(oe.Reasons, r => r.Contains("excludes 1 but lies wholly within 0.8–1.2", StringComparison.Ordinal));
+
+        // Just inside and just reaching the tolerance's end, on both sides.
+        Assert.Equal(MonitorStatus.Fine, Judge(Report(oe: new Interval(1.1, 1.01, 1.1999))).Status);
+        Assert.Equal(MonitorStatus.Watch, Judge(Report(oe: new Interval(1.1, 1.01, 1.2))).Status);
+        Assert.Equal(MonitorStatus.Fine, Judge(Report(oe: new Interval(0.9, 0.8001, 0.99))).Status);
+        Assert.Equal(MonitorStatus.Watch, Judge(Report(oe: new Interval(0.9, 0.8, 0.99))).Status);
     }
 
     [Fact]
@@ -182,5 +200,69 @@ public sealed class StatusRulesTests
         var j = Judge(report);
         Assert.Equal(MonitorStatus.Recalibrate, j.Status);
         Assert.Equal("Recalibration may suffice: calibration does not hold. Request a recalibrated candidate and compare it in shadow.", j.Advice);
+    }
+}
+
+/// <summary>
+/// The calibration rules on seeded streams of invented predictions, from a thousand to ten million outcomes: a stream
+/// drawn from its own probabilities stays fine at every size (statistical significance alone marks nothing), and
+/// streams with O/E at 1.3 or the slope at 0.7 are caught once there is evidence. The statistics are the monitor's own
+/// (checked against R elsewhere); these tests prove the rules, not the numbers.
+/// </summary>
+public sealed class StatusAtVolumeTests
+{
+    private static readonly MonitorOptions Defaults = new();
+
+    /// <summary>n predictions with η ~ N(−1.5, 1), and outcomes drawn from p' = g(η), g the truth the test names.</summary>
+    private static StatusJudgement Stream(int n, int seed, Func<double, double> truth)
+    {
+        var random = new Random(seed);
+        var p = new double[n];
+        var y = new byte[n];
+        for (var i = 0; i < n; i++)
+        {
+            var eta = -1.5 + (Math.Sqrt(-2 * Math.Log(1 - random.NextDouble())) * Math.Cos(2 * Math.PI * random.NextDouble()));
+            p[i] = 1 / (1 + Math.Exp(-eta));
+            y[i] = random.NextDouble() < truth(eta) ? (byte)1 : (byte)0;
+        }
+
+        var report = CalibrationStatistics.Compute(p, y);
+        return StatusRules.Judge("stream", "30d", report, new DriftView(null, new Dictionary<string, double>(), 0), null, DateTimeOffset.UnixEpoch, Defaults);
+    }
+
+    private static double Logistic(double eta) => 1 / (1 + Math.Exp(-eta));
+
+    [Theory]
+    [InlineData(1_000)]
+    [InlineData(1_000_000)]
+    [InlineData(10_000_000)]
+    public void A_stream_drawn_from_its_own_probabilities_stays_fine_however_many_outcomes_it_has(int n)
+    {
+        var judgement = Stream(n, 11, Logistic);
+        Assert.True(judgement.Status == MonitorStatus.Fine, string.Join(" ", judgement.Reasons));
+    }
+
+    [Theory]
+    [InlineData(1_000_000)]
+    [InlineData(10_000_000)]
+    public void A_model_off_by_3_percent_stays_fine_although_its_narrow_interval_excludes_1(int n)
+    {
+        var judgement = Stream(n, 14, eta => Math.Min(1, 1.03 * Logistic(eta)));
+        Assert.True(judgement.Status == MonitorStatus.Fine, string.Join(" ", judgement.Reasons));
+        Assert.Contains(judgement.Reasons, r => r.StartsWith("Observed/expected", StringComparison.Ordinal) && r.Contains("excludes 1 but lies wholly within", StringComparison.Ordinal));
+    }
+
+    [Theory]
+    [InlineData(100_000)]
+    [InlineData(1_000_000)]
+    public void A_stream_with_observed_expected_at_1_3_or_the_slope_at_0_7_is_caught_as_recalibrate(int n)
+    {
+        var moreEvents = Stream(n, 12, eta => Math.Min(1, 1.3 * Logistic(eta)));
+        Assert.Equal(MonitorStatus.Recalibrate, moreEvents.Status);
+        Assert.Contains(moreEvents.Reasons, r => r.StartsWith("Observed/expected", StringComparison.Ordinal));
+
+        var tooExtreme = Stream(n, 13, eta => Logistic(-1.5 * 0.3 + (0.7 * eta)));
+        Assert.Equal(MonitorStatus.Recalibrate, tooExtreme.Status);
+        Assert.Contains(tooExtreme.Reasons, r => r.StartsWith("Calibration slope", StringComparison.Ordinal) && r.Contains("too extreme", StringComparison.Ordinal));
     }
 }
