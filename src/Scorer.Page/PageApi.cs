@@ -402,6 +402,11 @@ public sealed class PageApi
                     w.WriteNumber("index", s.Index);
                     w.WriteString("time", s.Time);
                     w.WriteNumber("statistic", s.Statistic);
+                    if (!double.IsNaN(s.Threshold))
+                    {
+                        w.WriteNumber("threshold", s.Threshold); // in force when it signalled
+                    }
+
                     w.WriteEndObject();
                 }
 

@@ -31,7 +31,7 @@ public sealed class MonitorChartsTests : IDisposable
         Assert.Equal(HttpStatusCode.OK, response.StatusCode);
     }
 
-    private async Task<RunningServer> StartPimaAsync()
+    private async Task<RunningServer> StartPimaAsync(string falseAlarmDays = "0")
     {
         // The model R fit on Pima.tr, with its outcome horizon cut to 2 s so that outcomes mature within the test.
         var model = JsonNode.Parse(File.ReadAllText(Files.Reference("pima-logit.model.json")))!;
@@ -41,18 +41,25 @@ public sealed class MonitorChartsTests : IDisposable
         {
             ["Scorer:Monitor:PollInterval"] = "00:00:00.050",
             ["Scorer:Monitor:ReportInterval"] = "00:00:00.200",
+            // 0: the thresholds from CusumRunLength alone, so the run length these tests check is the configured one.
+            ["Scorer:Monitor:CusumFalseAlarmDays"] = falseAlarmDays,
         });
     }
 
-    private static async Task ScoreAndLabelAsync(RunningServer server, bool flipped)
+    private static async Task ScoreAndLabelAsync(RunningServer server, bool flipped, int rounds = 1)
     {
         var lines = File.ReadAllLines(Files.Reference("pima.rows.csv"));
         var header = lines[0].Split(',').Select(h => h.Trim('"')).ToArray();
         var rows = lines.Skip(1).Select(l => "{" + string.Join(",", l.Split(',').Select((v, i) => $"\"{header[i]}\":{v}")) + "}").ToList();
-        await PostAsync(server, "/v1/models/pima/score",
-            "{\"rows\":[" + string.Join(",", rows) + "],\"keys\":[" + string.Join(",", Enumerable.Range(0, rows.Count).Select(i => $"\"te-{i}\"")) + "]}");
+        for (var round = 0; round < rounds; round++)
+        {
+            // The same keys each round: one outcome report by key labels every prediction carrying it.
+            await PostAsync(server, "/v1/models/pima/score",
+                "{\"rows\":[" + string.Join(",", rows) + "],\"keys\":[" + string.Join(",", Enumerable.Range(0, rows.Count).Select(i => $"\"te-{i}\"")) + "]}");
+        }
+
         var store = server.Service<IScorerStore>();
-        Assert.True(await Files.EventuallyAsync(async () => await store.CountPredictionsAsync("pima") == rows.Count, TimeSpan.FromSeconds(10)));
+        Assert.True(await Files.EventuallyAsync(async () => await store.CountPredictionsAsync("pima") == rows.Count * rounds, TimeSpan.FromSeconds(10)));
         var y = File.ReadAllLines(Files.Reference("pima.outcomes.csv")).Skip(1).Select(int.Parse).ToList();
         await PostAsync(server, "/v1/models/pima/outcomes",
             "{\"outcomes\":[" + string.Join(",", y.Select((v, i) => $"{{\"key\":\"te-{i}\",\"outcome\":{(flipped ? 1 - v : v)}}}")) + "]}");
@@ -87,6 +94,44 @@ public sealed class MonitorChartsTests : IDisposable
         Assert.Equal(2.0, report.GetProperty("cusum").GetProperty("up").GetProperty("oddsRatio").GetDouble());
         Assert.Equal(0.5, report.GetProperty("cusum").GetProperty("down").GetProperty("oddsRatio").GetDouble());
         Assert.True(report.TryGetProperty("ewma", out _));
+    }
+
+    [Fact]
+    public async Task With_a_false_alarm_budget_in_days_the_thresholds_follow_the_outcome_rate_and_never_fall_below_the_floor()
+    {
+        // Three rounds of MASS's Pima.te (996 outcomes), all predicted within seconds: the rate is measured over at least
+        // a day (FalseAlarmBudget.MinRateSpan), so the recent outcomes count as that many per day. The charts look at the
+        // rate every CusumMinSample (200) outcomes and set the thresholds again when the budget's run length moved by a
+        // quarter: at outcome 400 (146,000), 600 (219,000) and 800 (800 a day × 365 days = 292,000); at 1,000 they
+        // would look again, but there are 996.
+        await using var server = await StartPimaAsync(falseAlarmDays: "365");
+        await ScoreAndLabelAsync(server, flipped: false, rounds: 3);
+        JsonElement report = default;
+        Assert.True(await Files.EventuallyAsync(async () =>
+        {
+            report = await GetJsonAsync(server, "/v1/models/pima/monitor?window=all");
+            return report.TryGetProperty("cusum", out var c) && c.TryGetProperty("up", out var up) && up.GetProperty("steps").GetInt64() == 996;
+        }, TimeSpan.FromSeconds(30)), report.ToString());
+        foreach (var chart in new[] { "up", "down" })
+        {
+            // The bisection lands within about 1% of its target (see the test above).
+            Assert.Equal(292_000, report.GetProperty("cusum").GetProperty(chart).GetProperty("inControlRunLength").GetDouble(), 292_000 * 2e-2);
+        }
+    }
+
+    [Fact]
+    public async Task A_budget_in_days_below_the_floor_at_the_observed_rate_keeps_the_floor()
+    {
+        // 332 outcomes a day for 30 days is 9,960 outcomes per false alarm: below CusumRunLength, which stays.
+        await using var server = await StartPimaAsync(falseAlarmDays: "30");
+        await ScoreAndLabelAsync(server, flipped: false);
+        JsonElement report = default;
+        Assert.True(await Files.EventuallyAsync(async () =>
+        {
+            report = await GetJsonAsync(server, "/v1/models/pima/monitor?window=all");
+            return report.TryGetProperty("cusum", out var c) && c.TryGetProperty("up", out var up) && up.GetProperty("steps").GetInt64() == 332;
+        }, TimeSpan.FromSeconds(30)), report.ToString());
+        Assert.Equal(100_000, report.GetProperty("cusum").GetProperty("up").GetProperty("inControlRunLength").GetDouble(), 100_000 * 2e-2);
     }
 
     [Fact]

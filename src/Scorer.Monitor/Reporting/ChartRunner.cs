@@ -11,7 +11,8 @@ using Scorer.Store;
 namespace Scorer.Monitor.Reporting;
 
 /// <summary>One signal of a chart: the 1-based position of the prediction among the chart's outcomes, its time, the statistic.</summary>
-public sealed record ChartSignal(long Index, DateTimeOffset Time, double Statistic, Guid PredictionId);
+/// <remarks><see cref="Threshold"/>: the threshold in force when the chart signalled (the thresholds follow the outcome rate); NaN in states saved before it was kept.</remarks>
+public sealed record ChartSignal(long Index, DateTimeOffset Time, double Statistic, Guid PredictionId, double Threshold = double.NaN);
 
 /// <summary>A CUSUM chart as it stands.</summary>
 public sealed record CusumView(double OddsRatio, double Value, double Threshold, double InControlRunLength, double DetectionDelay, long Steps,
@@ -221,7 +222,9 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
         DateTimeOffset CursorTime,
         Guid CursorId,
         long Outcomes,
-        long SinceCheck);
+        long SinceCheck,
+        DateTimeOffset[]? RecentTimes = null,
+        double? Target = null);
 
     /// <summary>An outcome taken in before the charts had enough to set their thresholds.</summary>
     internal readonly record struct PendingOutcome(double P, byte Y, DateTimeOffset At, Guid Id);
@@ -238,6 +241,8 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
         private readonly Lock _lock = new();
         private readonly List<PendingOutcome> _pending = [];
         private readonly Queue<double> _recent = new();
+        private readonly Queue<DateTimeOffset> _recentTimes = new(); // the prediction times of _recent, for the outcome rate
+        private double _target; // the run length the thresholds were last set for
         private readonly List<ChartSignal> _upSignals = [];
         private readonly List<ChartSignal> _downSignals = [];
         private ObservedExpectedEwma _ewma = new(options.EwmaLambda, options.EwmaLimit);
@@ -276,7 +281,7 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
             lock (_lock)
             {
                 var state = new ChartsState(_up?.Save(), _down?.Save(), _upChoice, _downChoice, _ewma.Save(), [.. _recent], [.. _pending], [.. _upSignals],
-                    [.. _downSignals], _sampleEdges, _sampleProportions, _cursorTime, _cursorId, _outcomes, _sinceCheck);
+                    [.. _downSignals], _sampleEdges, _sampleProportions, _cursorTime, _cursorId, _outcomes, _sinceCheck, [.. _recentTimes], _target);
                 return JsonSerializer.Serialize(state, StateJson);
             }
         }
@@ -298,10 +303,17 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
                 _cursorId = state.CursorId,
                 _outcomes = state.Outcomes,
                 _sinceCheck = state.SinceCheck,
+                _target = state.Target ?? state.UpChoice?.InControlRunLength ?? 0,
             };
             foreach (var p in state.Recent)
             {
                 charts._recent.Enqueue(p);
+            }
+
+            // A state saved before the times were kept: its outcomes count as of the cursor's time.
+            foreach (var t in state.RecentTimes ?? Enumerable.Repeat(state.CursorTime, state.Recent.Length).ToArray())
+            {
+                charts._recentTimes.Enqueue(t);
             }
 
             charts._pending.AddRange(state.Pending);
@@ -345,9 +357,11 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
                 _outcomes++;
                 _ewma.Add(p, y);
                 _recent.Enqueue(p);
+                _recentTimes.Enqueue(at);
                 while (_recent.Count > options.CusumSample)
                 {
                     _recent.Dequeue();
+                    _recentTimes.Dequeue();
                 }
 
                 if (_up is null)
@@ -369,9 +383,15 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
                 }
 
                 Step(model, version, p, y, at, id, onSignal);
-                if (++_sinceCheck >= 1_000)
+                if (++_sinceCheck % options.CusumMinSample == 0 && FalseAlarmBudget.Moved(_target, Target()))
+                {
+                    SetThresholds(); // the outcome rate moved the budget's run length by a quarter
+                }
+
+                if (_sinceCheck >= 1_000)
                 {
                     _sinceCheck = 0;
+                    // Set again when the risk mix moved.
                     var shift = PopulationStability.IndexFromCounts(_sampleProportions, PopulationStability.Counts(_sampleEdges, [.. _recent]));
                     if (shift > options.CusumResampleShift)
                     {
@@ -385,25 +405,35 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
         {
             if (_up!.Add(p, y, out var upStatistic))
             {
-                var signal = new ChartSignal(_up.Steps, at, upStatistic, id);
+                var signal = new ChartSignal(_up.Steps, at, upStatistic, id, _up.Threshold);
                 _upSignals.Add(signal);
                 onSignal(model, version, "up", signal);
             }
 
             if (_down!.Add(p, y, out var downStatistic))
             {
-                var signal = new ChartSignal(_down.Steps, at, downStatistic, id);
+                var signal = new ChartSignal(_down.Steps, at, downStatistic, id, _down.Threshold);
                 _downSignals.Add(signal);
                 onSignal(model, version, "down", signal);
             }
         }
 
-        /// <summary>Thresholds for the configured run length from the recent probabilities; the charts keep their values.</summary>
+        /// <summary>
+        /// The run length the thresholds are set for: one false alarm per <see cref="MonitorOptions.CusumFalseAlarmDays"/>
+        /// at the outcome rate of the recent outcomes (their prediction times), at least <see cref="MonitorOptions.CusumRunLength"/>.
+        /// </summary>
+        private double Target() => _recentTimes.Count < 2
+            ? options.CusumRunLength
+            : FalseAlarmBudget.RunLength(options.CusumRunLength, options.CusumFalseAlarmDays,
+                FalseAlarmBudget.RatePerDay(_recentTimes.Count, _recentTimes.Min(), _recentTimes.Max()));
+
+        /// <summary>Thresholds for the budget's run length from the recent probabilities; the charts keep their values.</summary>
         private void SetThresholds()
         {
             var sample = _recent.ToArray();
-            _upChoice = RunLength.ThresholdFor(sample, options.CusumUpOddsRatio, options.CusumRunLength);
-            _downChoice = RunLength.ThresholdFor(sample, options.CusumDownOddsRatio, options.CusumRunLength);
+            _target = Target();
+            _upChoice = RunLength.ThresholdFor(sample, options.CusumUpOddsRatio, _target);
+            _downChoice = RunLength.ThresholdFor(sample, options.CusumDownOddsRatio, _target);
             if (_up is null)
             {
                 _up = new RiskAdjustedCusum(options.CusumUpOddsRatio, _upChoice.Threshold);

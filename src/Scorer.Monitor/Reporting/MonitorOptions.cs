@@ -51,8 +51,19 @@ public sealed record MonitorOptions
     /// <summary>Odds ratio the downward CUSUM looks for. Default 0.5.</summary>
     public double CusumDownOddsRatio { get; init; } = 0.5;
 
-    /// <summary>In-control average run length the CUSUM thresholds are set for: labelled predictions per false alarm. Default 100,000.</summary>
+    /// <summary>
+    /// The least in-control average run length the CUSUM thresholds are set for: labelled predictions per false alarm.
+    /// Default 100,000. The thresholds are set for the larger of this and <see cref="CusumFalseAlarmDays"/> at the
+    /// observed outcome rate.
+    /// </summary>
     public double CusumRunLength { get; init; } = 100_000;
+
+    /// <summary>
+    /// The charts' false-alarm budget in time: one false alarm per chart per this many days of prediction time at the
+    /// observed outcome rate (over the last <see cref="CusumSample"/> outcomes). Default 365; 0 sets the thresholds from
+    /// <see cref="CusumRunLength"/> alone.
+    /// </summary>
+    public double CusumFalseAlarmDays { get; init; } = 365;
 
     /// <summary>How many of the most recent labelled probabilities the thresholds are computed from. Default 2,000.</summary>
     public int CusumSample { get; init; } = 2_000;
@@ -130,6 +141,11 @@ public sealed record MonitorOptions
         if (CusumRunLength < 10)
         {
             problems.Add("Scorer:Monitor:CusumRunLength must be at least 10.");
+        }
+
+        if (!(CusumFalseAlarmDays >= 0) || double.IsInfinity(CusumFalseAlarmDays))
+        {
+            problems.Add("Scorer:Monitor:CusumFalseAlarmDays must be 0 (off) or a positive number of days.");
         }
 
         if (EwmaLambda is <= 0 or >= 1)

@@ -157,7 +157,7 @@ public static class StatusRules
                     watch = true;
                     var last = recent[^1];
                     reasons.Add($"The {name} CUSUM (odds ratio {F(chart!.OddsRatio)}) signalled {recent.Count} time{(recent.Count == 1 ? "" : "s")} over {window}, last at outcome "
-                        + $"{last.Index} ({last.Time:yyyy-MM-dd HH:mm} UTC, statistic {F(last.Statistic)} ≥ threshold {F(chart.Threshold)}): {meaning}.");
+                        + $"{last.Index} ({last.Time:yyyy-MM-dd HH:mm} UTC, statistic {F(last.Statistic)} ≥ threshold {F(double.IsNaN(last.Threshold) ? chart.Threshold : last.Threshold)}): {meaning}.");
                 }
             }
 

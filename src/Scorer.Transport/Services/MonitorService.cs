@@ -204,6 +204,17 @@ public sealed class MonitorService(MonitorReporter reporter, MonitorWatch watch,
     private static PairedDifference Difference(PairedLossComparison c) =>
         new() { Live = c.MeanA, Shadow = c.MeanB, Difference = c.Difference, Lower = c.Lower, Upper = c.Upper, P = c.P };
 
+    private static CusumSignal Signal(ChartSignal x)
+    {
+        var signal = new CusumSignal { Index = x.Index, Time = Timestamp.FromDateTimeOffset(x.Time), Statistic = x.Statistic };
+        if (!double.IsNaN(x.Threshold))
+        {
+            signal.Threshold = x.Threshold;
+        }
+
+        return signal;
+    }
+
     private static Estimate Wald(double estimate, double se, double z) =>
         new() { Estimate_ = estimate, Se = se, Lower = estimate - (z * se), Upper = estimate + (z * se) };
 
@@ -217,6 +228,6 @@ public sealed class MonitorService(MonitorReporter reporter, MonitorWatch watch,
         InControlRunLength = v.InControlRunLength,
         DetectionDelay = v.DetectionDelay,
         Steps = v.Steps,
-        Signals = { v.Signals.Select(x => new CusumSignal { Index = x.Index, Time = Timestamp.FromDateTimeOffset(x.Time), Statistic = x.Statistic }) },
+        Signals = { v.Signals.Select(Signal) },
     };
 }

@@ -197,3 +197,38 @@ public class RiskAdjustedCusumTests
         Assert.Equal(4.0, chart.Threshold);
     }
 }
+
+/// <summary>The false-alarm budget in time (Scorer:Monitor:CusumFalseAlarmDays): arithmetic of the rule, with its floor and boundaries.</summary>
+public sealed class FalseAlarmBudgetTests
+{
+    private static readonly DateTimeOffset T0 = new(2026, 1, 1, 0, 0, 0, TimeSpan.Zero);
+
+    [Fact]
+    public void The_rate_is_outcomes_per_day_of_prediction_time_measured_over_at_least_a_day()
+    {
+        Assert.Equal(5_000, FalseAlarmBudget.RatePerDay(10_000, T0, T0.AddDays(2)), 1e-9);
+        Assert.Equal(500, FalseAlarmBudget.RatePerDay(500, T0, T0.AddSeconds(3)), 1e-9); // a burst counts over a day
+        Assert.Equal(500, FalseAlarmBudget.RatePerDay(500, T0, T0), 1e-9);
+    }
+
+    [Fact]
+    public void The_run_length_is_rate_times_days_never_below_the_floor_and_the_floor_alone_when_off()
+    {
+        // A million outcomes a day and one false alarm a year: 365 million outcomes per false alarm.
+        Assert.Equal(365e6, FalseAlarmBudget.RunLength(100_000, 365, 1e6), 1e-3);
+        Assert.Equal(100_000, FalseAlarmBudget.RunLength(100_000, 365, 100)); // 36,500 is below the floor
+        Assert.Equal(100_000, FalseAlarmBudget.RunLength(100_000, 0, 1e6)); // off
+        Assert.Throws<ArgumentOutOfRangeException>(() => FalseAlarmBudget.RunLength(5, 365, 1));
+        Assert.Throws<ArgumentOutOfRangeException>(() => FalseAlarmBudget.RunLength(100_000, -1, 1));
+    }
+
+    [Fact]
+    public void The_thresholds_are_set_again_only_when_the_run_length_moved_by_more_than_a_quarter()
+    {
+        Assert.False(FalseAlarmBudget.Moved(100_000, 125_000));
+        Assert.True(FalseAlarmBudget.Moved(100_000, 125_001));
+        Assert.False(FalseAlarmBudget.Moved(100_000, 80_000));
+        Assert.True(FalseAlarmBudget.Moved(100_000, 79_999));
+        Assert.True(FalseAlarmBudget.Moved(0, 100_000)); // never set
+    }
+}
