@@ -65,18 +65,25 @@ public sealed class MonitorChartsTests : IDisposable
             "{\"outcomes\":[" + string.Join(",", y.Select((v, i) => $"{{\"key\":\"te-{i}\",\"outcome\":{(flipped ? 1 - v : v)}}}")) + "]}");
     }
 
+    /// <summary>The report over all outcomes once the charts have taken in <paramref name="steps"/> outcomes.</summary>
+    private static async Task<JsonElement> ReportWhenChartsTookAsync(RunningServer server, long steps)
+    {
+        JsonElement report = default;
+        Assert.True(await Files.EventuallyAsync(async () =>
+        {
+            report = await GetJsonAsync(server, "/v1/models/pima/monitor?window=all");
+            return report.TryGetProperty("cusum", out var c) && c.TryGetProperty("up", out var up) && up.GetProperty("steps").GetInt64() == steps;
+        }, TimeSpan.FromSeconds(30)), $"the charts did not take in {steps} outcomes: {report}");
+        return report;
+    }
+
     [Fact]
     public async Task Matured_outcomes_enter_both_cusum_charts_with_thresholds_set_for_the_configured_run_length()
     {
         await using var server = await StartPimaAsync();
         await ScoreAndLabelAsync(server, flipped: false);
 
-        JsonElement report = default;
-        Assert.True(await Files.EventuallyAsync(async () =>
-        {
-            report = await GetJsonAsync(server, "/v1/models/pima/monitor?window=all");
-            return report.TryGetProperty("cusum", out var c) && c.TryGetProperty("up", out var up) && up.GetProperty("steps").GetInt64() == 332;
-        }, TimeSpan.FromSeconds(30)), report.ToString());
+        var report = await ReportWhenChartsTookAsync(server, 332);
 
         foreach (var chart in new[] { "up", "down" })
         {
@@ -106,12 +113,7 @@ public sealed class MonitorChartsTests : IDisposable
         // would look again, but there are 996.
         await using var server = await StartPimaAsync(falseAlarmDays: "365");
         await ScoreAndLabelAsync(server, flipped: false, rounds: 3);
-        JsonElement report = default;
-        Assert.True(await Files.EventuallyAsync(async () =>
-        {
-            report = await GetJsonAsync(server, "/v1/models/pima/monitor?window=all");
-            return report.TryGetProperty("cusum", out var c) && c.TryGetProperty("up", out var up) && up.GetProperty("steps").GetInt64() == 996;
-        }, TimeSpan.FromSeconds(30)), report.ToString());
+        var report = await ReportWhenChartsTookAsync(server, 996);
         foreach (var chart in new[] { "up", "down" })
         {
             // The bisection lands within about 1% of its target (see the test above).
@@ -125,12 +127,7 @@ public sealed class MonitorChartsTests : IDisposable
         // 332 outcomes a day for 30 days is 9,960 outcomes per false alarm: below CusumRunLength, which stays.
         await using var server = await StartPimaAsync(falseAlarmDays: "30");
         await ScoreAndLabelAsync(server, flipped: false);
-        JsonElement report = default;
-        Assert.True(await Files.EventuallyAsync(async () =>
-        {
-            report = await GetJsonAsync(server, "/v1/models/pima/monitor?window=all");
-            return report.TryGetProperty("cusum", out var c) && c.TryGetProperty("up", out var up) && up.GetProperty("steps").GetInt64() == 332;
-        }, TimeSpan.FromSeconds(30)), report.ToString());
+        var report = await ReportWhenChartsTookAsync(server, 332);
         Assert.Equal(100_000, report.GetProperty("cusum").GetProperty("up").GetProperty("inControlRunLength").GetDouble(), 100_000 * 2e-2);
     }
 
