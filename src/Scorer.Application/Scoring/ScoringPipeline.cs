@@ -163,7 +163,8 @@ public sealed class ScoringPipeline(ModelCatalog catalog, PredictionLog log, Sha
                 }
 
                 var row = values.AsSpan(0, count);
-                var r = model.Score(row, call.Settings, contributions.AsSpan(0, model.TermCount), warnings.AsSpan(0, model.MaxWarningsPerRow));
+                var r = model.Score(row, call.Settings, call.Contributions >= 0 ? contributions.AsSpan(0, model.TermCount) : default,
+                    warnings.AsSpan(0, model.MaxWarningsPerRow)); // contributions only when asked for
                 if (r.Failed)
                 {
                     Fail(ref writer, version, i, id, key, RowMessages.Code(r.Error.Kind), RowMessages.Field(model, r.Error), RowMessages.Describe(model, r.Error));

@@ -28,7 +28,6 @@ namespace Scorer.Transport.Rest;
 /// </remarks>
 public sealed class LabelledExport(ModelCatalog catalog, ILabelledStore store)
 {
-    public const string Method = "/scorer.v1.Outcomes/ExportLabelled";
 
     /// <summary>Rows read from the store at a time, and written out before the next read.</summary>
     public const int PageRows = 5_000;

@@ -147,9 +147,15 @@ public sealed class RestScoring(ScoringPipeline pipeline)
     {
         foreach (var value in accept)
         {
-            if (value is not null && value.Split(',').Any(t => t.Split(';', 2)[0].Trim().Equals("text/csv", StringComparison.OrdinalIgnoreCase)))
+            // Each media range of the header, without its parameters; no allocation (the header comes with every call).
+            foreach (var range in value.AsSpan().Split(','))
             {
-                return true;
+                var type = value.AsSpan()[range];
+                var semicolon = type.IndexOf(';');
+                if ((semicolon < 0 ? type : type[..semicolon]).Trim().Equals("text/csv", StringComparison.OrdinalIgnoreCase))
+                {
+                    return true;
+                }
             }
         }
 

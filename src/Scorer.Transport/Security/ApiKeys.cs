@@ -57,7 +57,20 @@ public sealed class RoleRequirement(string role) : AuthorizationHandler<RoleRequ
 /// <summary>The configured keys, for <see cref="ApiKeyAuthentication"/>.</summary>
 public sealed class ApiKeyOptions : AuthenticationSchemeOptions
 {
-    public IReadOnlyList<ApiKey> Keys { get; set; } = [];
+    private IReadOnlyList<ApiKey> _keys = [];
+
+    public IReadOnlyList<ApiKey> Keys
+    {
+        get => _keys;
+        set
+        {
+            _keys = value;
+            KeyBytes = [.. value.Select(k => Encoding.UTF8.GetBytes(k.Key))];
+        }
+    }
+
+    /// <summary>Each key's UTF-8 bytes, made once, in the order of <see cref="Keys"/>.</summary>
+    internal byte[][] KeyBytes { get; private set; } = [];
 }
 
 /// <summary>
@@ -90,7 +103,12 @@ public sealed class ApiKeyAuthentication(IOptionsMonitor<ApiKeyOptions> options,
         }
 
         var presented = Encoding.UTF8.GetBytes(header[7..].Trim());
-        var key = keys.FirstOrDefault(k => CryptographicOperations.FixedTimeEquals(Encoding.UTF8.GetBytes(k.Key), presented));
+        ApiKey? key = null;
+        for (var i = 0; i < keys.Count && key is null; i++)
+        {
+            key = CryptographicOperations.FixedTimeEquals(Options.KeyBytes[i], presented) ? keys[i] : null;
+        }
+
         if (key is null)
         {
             Context.Items[RefusalItem] = "the API key is not known";
@@ -168,7 +186,7 @@ public static class ApiKeyRegistration
             .AddPolicy(Roles.Score, p => p.RequireAuthenticatedUser().AddRequirements(new RoleRequirement(Roles.Score)))
             .AddPolicy(Roles.Outcomes, p => p.RequireAuthenticatedUser().AddRequirements(new RoleRequirement(Roles.Outcomes)))
             .AddPolicy(Roles.Admin, p => p.RequireAuthenticatedUser().AddRequirements(new RoleRequirement(Roles.Admin)));
-        services.AddSingleton<IAuthorizationHandler>(new RoleRequirement(Roles.Score));
+        // RoleRequirement is its own handler: the framework's pass-through handler runs it for each policy.
         services.AddSingleton<IAuthorizationMiddlewareResultHandler, ApiKeyResults>();
         return services;
     }

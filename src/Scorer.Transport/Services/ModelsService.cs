@@ -26,7 +26,7 @@ public sealed class ModelsService(ModelCatalog catalog, StageChanges stages) : M
                 var version = new V1.VersionInfo
                 {
                     Version = v.Version,
-                    Stage = StageName(v.Stage),
+                    Stage = ModelCatalog.StageName(v.Stage),
                     Link = ModelFileWriter.LinkName(v.Document.Link),
                     File = Path.GetFileName(v.File),
                     Sha256 = v.Sha256,
@@ -80,9 +80,6 @@ public sealed class ModelsService(ModelCatalog catalog, StageChanges stages) : M
         return error;
     }
 
-    /// <summary>A stage as the API writes it (<see cref="ModelCatalog.StageName"/>).</summary>
-    public static string StageName(Stage stage) => ModelCatalog.StageName(stage);
-
     private StageResponse Response(string model, IReadOnlyList<StageChange> changes)
     {
         var response = new StageResponse { Model = model, Live = stages.Live(model) ?? "" };
@@ -93,8 +90,8 @@ public sealed class ModelsService(ModelCatalog catalog, StageChanges stages) : M
     private static StageChangeInfo Info(StageChange c) => new()
     {
         Version = c.Version,
-        From = c.From is { } f ? StageName(f) : "",
-        To = StageName(c.To),
+        From = c.From is { } f ? ModelCatalog.StageName(f) : "",
+        To = ModelCatalog.StageName(c.To),
         Actor = c.Actor,
         At = Time(c.At),
     };
