@@ -23,6 +23,9 @@ internal static class LogisticFit
     private const int MaxHalvings = 60;
     private const double StepTolerance = 1e-12;
 
+    /// <summary>Rows summed in vector lanes before their sums join the totals (see Evaluate).</summary>
+    private const int BlockRows = 4096;
+
     /// <summary>logit(p) = ln p − ln(1 − p), with ln(1 − p) by log1p and p clamped as <see cref="LogitClamp"/> says.</summary>
     public static double Logit(double p)
     {
@@ -164,39 +167,46 @@ internal static class LogisticFit
             var zero = Vector256<double>.Zero;
             var cv = Vector256.Create(c);
             var bv = Vector256.Create(b);
-            Vector256<double> vl = zero, vg0 = zero, vg1 = zero, vh00 = zero, vh01 = zero, vh11 = zero;
             ref var xr = ref MemoryMarshal.GetReference(x);
             ref var yr = ref MemoryMarshal.GetReference(outcome);
-            for (; i <= x.Length - Vector256<double>.Count; i += Vector256<double>.Count)
+            // Blocks of BlockRows rows summed in vector lanes, then the blocks' sums added up: the rounding error grows
+            // with the block length plus the number of blocks, not with n (a plain running sum over millions of rows in
+            // ascending order of p, many of them tied, drifts by enough to keep Newton's steps from ever settling).
+            while (i <= x.Length - Vector256<double>.Count)
             {
-                var xi = Vector256.LoadUnsafe(ref xr, (nuint)i);
-                var yi = Vector256.LoadUnsafe(ref yr, (nuint)i);
-                var eta = Vector256.FusedMultiplyAdd(bv, xi, cv);
-                var e = Vector256.Exp(-Vector256.Abs(eta));
-                var large = one / (one + e);
-                var small = e * large;
-                var u = one + e;
-                var log1pE = Vector256.ConditionalSelect(Vector256.Equals(u, one), e, Vector256.Log(u) * e / (u - one));
-                var positive = Vector256.GreaterThanOrEqual(eta, zero);
-                var mu = Vector256.ConditionalSelect(positive, large, small);
-                var complement = Vector256.ConditionalSelect(positive, small, large);
-                var isEvent = Vector256.Equals(yi, one);
-                vl -= Vector256.Max(Vector256.ConditionalSelect(isEvent, -eta, eta), zero) + log1pE;
-                var residual = Vector256.ConditionalSelect(isEvent, complement, -mu);
-                var w = mu * complement;
-                vg0 += residual;
-                vg1 += residual * xi;
-                vh00 += w;
-                vh01 += w * xi;
-                vh11 += w * xi * xi;
-            }
+                var blockEnd = Math.Min(x.Length - Vector256<double>.Count, i + BlockRows);
+                Vector256<double> vl = zero, vg0 = zero, vg1 = zero, vh00 = zero, vh01 = zero, vh11 = zero;
+                for (; i <= blockEnd; i += Vector256<double>.Count)
+                {
+                    var xi = Vector256.LoadUnsafe(ref xr, (nuint)i);
+                    var yi = Vector256.LoadUnsafe(ref yr, (nuint)i);
+                    var eta = Vector256.FusedMultiplyAdd(bv, xi, cv);
+                    var e = Vector256.Exp(-Vector256.Abs(eta));
+                    var large = one / (one + e);
+                    var small = e * large;
+                    var u = one + e;
+                    var log1pE = Vector256.ConditionalSelect(Vector256.Equals(u, one), e, Vector256.Log(u) * e / (u - one));
+                    var positive = Vector256.GreaterThanOrEqual(eta, zero);
+                    var mu = Vector256.ConditionalSelect(positive, large, small);
+                    var complement = Vector256.ConditionalSelect(positive, small, large);
+                    var isEvent = Vector256.Equals(yi, one);
+                    vl -= Vector256.Max(Vector256.ConditionalSelect(isEvent, -eta, eta), zero) + log1pE;
+                    var residual = Vector256.ConditionalSelect(isEvent, complement, -mu);
+                    var w = mu * complement;
+                    vg0 += residual;
+                    vg1 += residual * xi;
+                    vh00 += w;
+                    vh01 += w * xi;
+                    vh11 += w * xi * xi;
+                }
 
-            logLik = Vector256.Sum(vl);
-            g0 = Vector256.Sum(vg0);
-            g1 = Vector256.Sum(vg1);
-            h00 = Vector256.Sum(vh00);
-            h01 = Vector256.Sum(vh01);
-            h11 = Vector256.Sum(vh11);
+                logLik += Vector256.Sum(vl);
+                g0 += Vector256.Sum(vg0);
+                g1 += Vector256.Sum(vg1);
+                h00 += Vector256.Sum(vh00);
+                h01 += Vector256.Sum(vh01);
+                h11 += Vector256.Sum(vh11);
+            }
         }
 
         for (; i < x.Length; i++)
