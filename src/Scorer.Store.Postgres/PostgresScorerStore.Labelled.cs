@@ -108,23 +108,36 @@ public sealed partial class PostgresScorerStore
     /// Stamps are xid8 values (epoch and transaction id, never wrapping), carried as longs.
     /// </para>
     /// </remarks>
-    public async Task<LabelledChanges> GetLabelledChangesAsync(string model, string version, long cursor, CancellationToken cancellationToken = default)
+    public async Task<LabelledChanges> GetLabelledChangesAsync(string model, string version, long cursor, int? limit = null, CancellationToken cancellationToken = default)
     {
         ArgumentException.ThrowIfNullOrEmpty(model);
         ArgumentException.ThrowIfNullOrEmpty(version);
         ArgumentOutOfRangeException.ThrowIfNegative(cursor);
+        if (limit is { } l)
+        {
+            ArgumentOutOfRangeException.ThrowIfLessThan(l, 1, nameof(limit));
+        }
+
         await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
         var read = new NpgsqlBatch(connection);
         await using (read.ConfigureAwait(false))
         {
             // No explicit transaction: the batch is one implicit transaction, and the lock lasts until it ends.
             read.BatchCommands.Add(OutcomeLock(model, shared: true));
+            // A page ends with the whole of the transaction that holds its limit-th change (one xid each).
+            var page = limit is null ? "" : "AND change <= COALESCE((SELECT change FROM outcomes WHERE model = $1 AND version = $2 AND change >= $3::text::xid8 "
+                + "ORDER BY change OFFSET $4 LIMIT 1), change) ";
             var changes = new NpgsqlBatchCommand(
-                "SELECT prediction_id, scored_at, probability, outcome, change::text::bigint FROM outcomes "
-                + "WHERE model = $1 AND version = $2 AND change >= $3::text::xid8 ORDER BY change");
+                "SELECT prediction_id, scored_at, probability, outcome, change::text::bigint, revised FROM outcomes "
+                + $"WHERE model = $1 AND version = $2 AND change >= $3::text::xid8 {page}ORDER BY change");
             changes.Parameters.Add(Text(model));
             changes.Parameters.Add(Text(version));
             changes.Parameters.Add(Text(cursor.ToString(CultureInfo.InvariantCulture)));
+            if (limit is { } offset)
+            {
+                changes.Parameters.Add(Bigint(offset - 1));
+            }
+
             read.BatchCommands.Add(changes);
             var points = new List<LabelledPoint>();
             var next = cursor;
@@ -132,12 +145,39 @@ public sealed partial class PostgresScorerStore
             await reader.NextResultAsync(cancellationToken).ConfigureAwait(false);
             while (await reader.ReadAsync(cancellationToken).ConfigureAwait(false))
             {
-                points.Add(new LabelledPoint(reader.GetGuid(0), PostgresValues.FromTimestamp(reader.GetDateTime(1)), reader.GetDouble(2), (byte)reader.GetInt16(3)));
+                points.Add(new LabelledPoint(reader.GetGuid(0), PostgresValues.FromTimestamp(reader.GetDateTime(1)), reader.GetDouble(2), (byte)reader.GetInt16(3),
+                    reader.GetBoolean(5)));
                 next = reader.GetInt64(4) + 1;
             }
 
             return new LabelledChanges(points, next);
         }
+    }
+
+    /// <inheritdoc />
+    public async Task<IReadOnlyList<LabelledPoint>> GetLabelledUpToAsync(string model, string version, DateTimeOffset from, DateTimeOffset to, long cursor,
+        CancellationToken cancellationToken = default)
+    {
+        ArgumentException.ThrowIfNullOrEmpty(model);
+        ArgumentException.ThrowIfNullOrEmpty(version);
+        await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
+        await using var command = Command(connection, null,
+            "SELECT prediction_id, scored_at, probability, outcome, revised FROM outcomes "
+            + "WHERE model = $1 AND version = $2 AND scored_at >= $3 AND scored_at < $4 AND change < $5::text::xid8");
+        command.Parameters.Add(Text(model));
+        command.Parameters.Add(Text(version));
+        command.Parameters.Add(Timestamp(from));
+        command.Parameters.Add(Timestamp(to));
+        command.Parameters.Add(Text(cursor.ToString(CultureInfo.InvariantCulture)));
+        var points = new List<LabelledPoint>();
+        await using var reader = await command.ExecuteReaderAsync(cancellationToken).ConfigureAwait(false);
+        while (await reader.ReadAsync(cancellationToken).ConfigureAwait(false))
+        {
+            points.Add(new LabelledPoint(reader.GetGuid(0), PostgresValues.FromTimestamp(reader.GetDateTime(1)), reader.GetDouble(2), (byte)reader.GetInt16(3),
+                reader.GetBoolean(4)));
+        }
+
+        return points;
     }
 
     /// <inheritdoc />

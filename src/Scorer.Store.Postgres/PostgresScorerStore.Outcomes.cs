@@ -27,7 +27,7 @@ public sealed partial class PostgresScorerStore
         + "AS u(id, version, stage, scored_at, eta, probability, outcome, observed_at, live_id)";
 
     private const string UpdateOutcomesSql =
-        "UPDATE outcomes o SET outcome = u.outcome, observed_at = u.observed_at, recorded_at = $1, implicit = false, change = pg_current_xact_id() "
+        "UPDATE outcomes o SET outcome = u.outcome, observed_at = u.observed_at, recorded_at = $1, implicit = false, change = pg_current_xact_id(), revised = true "
         + "FROM unnest($2::uuid[], $3::smallint[], $4::timestamptz[]) AS u(id, outcome, observed_at) WHERE o.prediction_id = u.id";
 
     private const string InsertConflictsSql =

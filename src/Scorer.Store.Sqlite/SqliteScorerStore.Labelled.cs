@@ -109,17 +109,30 @@ public sealed partial class SqliteScorerStore
     }
 
     /// <inheritdoc />
-    public async Task<LabelledChanges> GetLabelledChangesAsync(string model, string version, long cursor, CancellationToken cancellationToken = default)
+    public async Task<LabelledChanges> GetLabelledChangesAsync(string model, string version, long cursor, int? limit = null, CancellationToken cancellationToken = default)
     {
         ArgumentException.ThrowIfNullOrEmpty(model);
         ArgumentException.ThrowIfNullOrEmpty(version);
         ArgumentOutOfRangeException.ThrowIfNegative(cursor);
+        if (limit is { } l)
+        {
+            ArgumentOutOfRangeException.ThrowIfLessThan(l, 1, nameof(limit));
+        }
+
         await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
+        // A page ends with the whole of the transaction that holds its limit-th change (one change number each).
+        var page = limit is null ? "" : "AND change <= COALESCE((SELECT change FROM outcomes WHERE model = $model AND version = $version AND change > $cursor "
+            + "ORDER BY change LIMIT 1 OFFSET $offset), change) ";
         using var command = Command(connection, null,
-            "SELECT prediction_id, scored_at, probability, outcome, change FROM outcomes WHERE model = $model AND version = $version AND change > $cursor ORDER BY change;");
+            $"SELECT prediction_id, scored_at, probability, outcome, change, revised FROM outcomes WHERE model = $model AND version = $version AND change > $cursor {page}ORDER BY change;");
         command.Parameters.AddWithValue("$model", model);
         command.Parameters.AddWithValue("$version", version);
         command.Parameters.AddWithValue("$cursor", cursor);
+        if (limit is { } offset)
+        {
+            command.Parameters.AddWithValue("$offset", offset - 1);
+        }
+
         var points = new List<LabelledPoint>();
         var last = cursor;
         using (var reader = command.ExecuteReader())
@@ -129,13 +142,40 @@ public sealed partial class SqliteScorerStore
                 cancellationToken.ThrowIfCancellationRequested();
                 // GetFieldValue<byte[]>, not GetBytes: the driver's GetBytes opens a blob handle per call (measured 4.5 µs a row).
                 points.Add(new LabelledPoint(StoredValues.ToGuid(reader.GetFieldValue<byte[]>(0)), StoreTime.FromUnixMicroseconds(reader.GetInt64(1)), reader.GetDouble(2),
-                    (byte)reader.GetInt64(3)));
+                    (byte)reader.GetInt64(3), reader.GetInt64(5) == 1));
                 last = reader.GetInt64(4);
             }
         }
 
         // Changes are numbered in commit order (NextChange), so every later commit carries a number above the last one read.
         return new LabelledChanges(points, last);
+    }
+
+    /// <inheritdoc />
+    public async Task<IReadOnlyList<LabelledPoint>> GetLabelledUpToAsync(string model, string version, DateTimeOffset from, DateTimeOffset to, long cursor,
+        CancellationToken cancellationToken = default)
+    {
+        ArgumentException.ThrowIfNullOrEmpty(model);
+        ArgumentException.ThrowIfNullOrEmpty(version);
+        await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
+        using var command = Command(connection, null,
+            "SELECT prediction_id, scored_at, probability, outcome, revised FROM outcomes WHERE model = $model AND version = $version "
+            + "AND scored_at >= $from AND scored_at < $to AND change <= $cursor;");
+        command.Parameters.AddWithValue("$model", model);
+        command.Parameters.AddWithValue("$version", version);
+        command.Parameters.AddWithValue("$from", StoreTime.ToUnixMicroseconds(from));
+        command.Parameters.AddWithValue("$to", StoreTime.ToUnixMicroseconds(to));
+        command.Parameters.AddWithValue("$cursor", cursor);
+        var points = new List<LabelledPoint>();
+        using var reader = command.ExecuteReader();
+        while (reader.Read())
+        {
+            cancellationToken.ThrowIfCancellationRequested();
+            points.Add(new LabelledPoint(StoredValues.ToGuid(reader.GetFieldValue<byte[]>(0)), StoreTime.FromUnixMicroseconds(reader.GetInt64(1)), reader.GetDouble(2),
+                (byte)reader.GetInt64(3), reader.GetInt64(4) == 1));
+        }
+
+        return points;
     }
 
     /// <summary>A labelled prediction from the columns prediction_id, version, stage, scored_at, eta, probability, outcome, implicit, recorded_at.</summary>

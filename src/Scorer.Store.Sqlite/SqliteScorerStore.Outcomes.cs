@@ -107,7 +107,7 @@ public sealed partial class SqliteScorerStore
                 if (applied.Updates.Count > 0)
                 {
                     using var update = Command(connection, transaction,
-                        "UPDATE outcomes SET outcome = $outcome, observed_at = $observedAt, recorded_at = $now, implicit = 0, change = $change WHERE prediction_id = $id;");
+                        "UPDATE outcomes SET outcome = $outcome, observed_at = $observedAt, recorded_at = $now, implicit = 0, change = $change, revised = 1 WHERE prediction_id = $id;");
                     update.Parameters.AddWithValue("$change", change);
                     var updateOutcome = update.Parameters.Add("$outcome", SqliteType.Integer);
                     var updateObserved = update.Parameters.Add("$observedAt", SqliteType.Integer);

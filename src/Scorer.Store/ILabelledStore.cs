@@ -14,9 +14,20 @@ public interface ILabelledStore
     /// The labelled predictions of a model version recorded or changed after <paramref name="cursor"/> (0: from the
     /// beginning), with the cursor to pass next time. Never skips a committed change, whichever process or replica made
     /// it and however long its transaction took: a reader that passes each returned cursor back sees every change once
-    /// or more, and the last time it sees a prediction it sees its current outcome.
+    /// or more, and the last time it sees a prediction it sees its current outcome. With a <paramref name="limit"/>, one
+    /// page: the changes of the first transactions after the cursor up to and including the one holding the limit-th
+    /// change (a transaction's changes are never split), so a reader far behind catches up page by page.
     /// </summary>
-    Task<LabelledChanges> GetLabelledChangesAsync(string model, string version, long cursor, CancellationToken cancellationToken = default);
+    Task<LabelledChanges> GetLabelledChangesAsync(string model, string version, long cursor, int? limit = null, CancellationToken cancellationToken = default);
+
+    /// <summary>
+    /// The labelled predictions of a model version scored in [from, to) as the change feed had given them up to
+    /// <paramref name="cursor"/> (a cursor the feed returned): the rows whose last change the feed delivered before that
+    /// cursor, with their current outcome. A summary rebuilt from them and then brought forward by the feed from the
+    /// same cursor counts every row once.
+    /// </summary>
+    Task<IReadOnlyList<LabelledPoint>> GetLabelledUpToAsync(string model, string version, DateTimeOffset from, DateTimeOffset to, long cursor,
+        CancellationToken cancellationToken = default);
 
     /// <summary>
     /// One page of the labelled predictions of a model (optionally one version) scored in [from, to) with their logged

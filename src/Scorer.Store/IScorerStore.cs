@@ -75,8 +75,12 @@ public sealed record PairedOutcome(double LiveProbability, double ShadowProbabil
 public sealed record LabelledPrediction(Guid Id, string Version, Stage Stage, DateTimeOffset ScoredAt, double Eta, double Probability, byte Outcome, bool Implicit,
     DateTimeOffset RecordedAt);
 
-/// <summary>A labelled prediction reduced to what the monitor's statistics need, as the monitor's row cache keeps it.</summary>
-public readonly record struct LabelledPoint(Guid Id, DateTimeOffset ScoredAt, double Probability, byte Outcome);
+/// <summary>
+/// A labelled prediction reduced to what the monitor's statistics need, as the monitor's row cache keeps it. Revised:
+/// its outcome was changed after it was first recorded (so a reader of the change feed may have seen it before, with
+/// the other outcome).
+/// </summary>
+public readonly record struct LabelledPoint(Guid Id, DateTimeOffset ScoredAt, double Probability, byte Outcome, bool Revised = false);
 
 /// <summary>
 /// What changed in a version's labelled predictions since a cursor: every prediction whose outcome was recorded or
@@ -103,7 +107,7 @@ public sealed class LeaseLostException(string lease) : Exception($"The lease '{l
 /// <see cref="IDriftCountStore"/> (drift counts) and <see cref="ILeaseStore"/> (leases and the charts' saved state).
 /// A driver's <c>Add…Store</c> extension registers one instance as this interface and as each of those.
 /// </remarks>
-public interface IScorerStore : IStageStore, IPredictionLogStore, IOutcomeStore, ILabelledStore, IDriftCountStore, ILeaseStore, IAsyncDisposable
+public interface IScorerStore : IStageStore, IPredictionLogStore, IOutcomeStore, ILabelledStore, IDriftCountStore, ILeaseStore, ISummaryStore, IAsyncDisposable
 {
     /// <summary>Creates or upgrades the schema (numbered migrations, applied in order, once each).</summary>
     Task MigrateAsync(CancellationToken cancellationToken = default);

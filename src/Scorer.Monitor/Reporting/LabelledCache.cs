@@ -32,7 +32,7 @@ public sealed class LabelledCache(ILabelledStore store)
         await rows.Gate.WaitAsync(cancellationToken).ConfigureAwait(false);
         try
         {
-            var changes = await store.GetLabelledChangesAsync(model, version, rows.Cursor, cancellationToken).ConfigureAwait(false);
+            var changes = await store.GetLabelledChangesAsync(model, version, rows.Cursor, cancellationToken: cancellationToken).ConfigureAwait(false);
             rows.Apply(changes);
             return rows.Select(from.UtcTicks, to.UtcTicks);
         }
@@ -57,7 +57,7 @@ public sealed class LabelledCache(ILabelledStore store)
         await rows.Gate.WaitAsync(cancellationToken).ConfigureAwait(false);
         try
         {
-            var changes = await store.GetLabelledChangesAsync(model, version, rows.Cursor, cancellationToken).ConfigureAwait(false);
+            var changes = await store.GetLabelledChangesAsync(model, version, rows.Cursor, cancellationToken: cancellationToken).ConfigureAwait(false);
             rows.Apply(changes);
             return rows.SelectBuckets(from.UtcTicks, to.UtcTicks, layout);
         }
