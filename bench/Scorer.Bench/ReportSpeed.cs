@@ -93,7 +93,7 @@ internal static class ReportSpeed
 
         Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"  setup (positives by id, implicit negatives): {setup.Elapsed.TotalSeconds:F1} s"));
 
-        var cache = new LabelledCache(store);
+        var cache = new LabelledCache(store, new MonitorOptions());
         var load = Stopwatch.StartNew();
         using (var first = await cache.WindowAsync(model, version, From, To))
         {

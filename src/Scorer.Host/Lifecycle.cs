@@ -12,7 +12,7 @@ namespace Scorer.Host;
 /// service (<c>AddSqliteStore</c>, <c>AddPostgresStore</c>).
 /// </summary>
 internal sealed partial class Lifecycle(RegistryWatcher watcher, ShadowScorer shadows, PredictionLog log, ILeaseStore leases,
-    IEnumerable<IStageChangeSignal> stageSignals, ChartRunner charts, DriftTracker drift, MonitorLoop monitor, StatusWebhook webhook, TimeProvider time,
+    IEnumerable<IStageChangeSignal> stageSignals, ChartRunner charts, SummaryWriter summaries, DriftTracker drift, MonitorLoop monitor, StatusWebhook webhook, TimeProvider time,
     ILogger<Lifecycle> logger)
     : IHostedService
 {
@@ -26,6 +26,7 @@ internal sealed partial class Lifecycle(RegistryWatcher watcher, ShadowScorer sh
     {
         watcher.Start();
         _loops.Add(Task.Run(() => charts.RunAsync(_stopping.Token), CancellationToken.None));
+        _loops.Add(Task.Run(() => summaries.RunAsync(_stopping.Token), CancellationToken.None));
         _loops.Add(Task.Run(() => monitor.RunAsync(_stopping.Token), CancellationToken.None));
         _loops.Add(Task.Run(() => FlushDriftAsync(_stopping.Token), CancellationToken.None));
         foreach (var signal in stageSignals)
@@ -77,6 +78,7 @@ internal sealed partial class Lifecycle(RegistryWatcher watcher, ShadowScorer sh
         await webhook.DisposeAsync().ConfigureAwait(false);
         await drift.FlushAsync(CancellationToken.None).ConfigureAwait(false); // what was counted since the last tick
         await leases.ReleaseLeaseAsync(ChartRunner.Lease, CancellationToken.None).ConfigureAwait(false); // another replica takes the charts at once
+        await leases.ReleaseLeaseAsync(SummaryWriter.Lease, CancellationToken.None).ConfigureAwait(false);
 
         await watcher.DisposeAsync().ConfigureAwait(false);
         await shadows.DisposeAsync().ConfigureAwait(false);

@@ -122,6 +122,8 @@ public static class ScorerServer
         builder.Services.AddSingleton(options.Outcomes);
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.ChartRunner>();
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.LabelledCache>();
+        builder.Services.AddSingleton<Scorer.Monitor.Reporting.SummaryReader>();
+        builder.Services.AddSingleton<Scorer.Monitor.Reporting.SummaryWriter>();
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.MonitorReporter>();
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.DriftTracker>();
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.MonitorLoop>();

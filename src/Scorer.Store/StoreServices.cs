@@ -9,7 +9,7 @@ public static class StoreServices
     /// Registers the store <paramref name="create"/> makes as one singleton of <typeparamref name="TStore"/>, and the same
     /// instance as <see cref="IScorerStore"/> and as each narrow contract (<see cref="IStageStore"/>,
     /// <see cref="IPredictionLogStore"/>, <see cref="IOutcomeStore"/>, <see cref="ILabelledStore"/>,
-    /// <see cref="IDriftCountStore"/>, <see cref="ILeaseStore"/>). A store is registered once: a second throws
+    /// <see cref="IDriftCountStore"/>, <see cref="ILeaseStore"/>, <see cref="ISummaryStore"/>). A store is registered once: a second throws
     /// <see cref="InvalidOperationException"/>.
     /// </summary>
     public static IServiceCollection AddStore<TStore>(IServiceCollection services, Func<IServiceProvider, TStore> create)
@@ -30,6 +30,7 @@ public static class StoreServices
         services.AddSingleton<ILabelledStore>(sp => sp.GetRequiredService<TStore>());
         services.AddSingleton<IDriftCountStore>(sp => sp.GetRequiredService<TStore>());
         services.AddSingleton<ILeaseStore>(sp => sp.GetRequiredService<TStore>());
+        services.AddSingleton<ISummaryStore>(sp => sp.GetRequiredService<TStore>());
         return services;
     }
 }

@@ -80,6 +80,7 @@ public sealed class MonitorApiTests : IAsyncLifetime
         Assert.Equal(e.GetProperty("events").GetDouble(), report.GetProperty("events").GetDouble());
         Assert.Equal(0, report.GetProperty("immature").GetInt32());
         Assert.False(report.GetProperty("provisional").GetBoolean());
+        Assert.Equal("exact", report.GetProperty("method").GetString()); // 332 rows, far below Scorer:Monitor:ExactRows
         Close(e, "brier", report.GetProperty("brier"));                         // sklearn brier_score_loss
         Close(e, "log_loss", report.GetProperty("logLoss"));                    // sklearn log_loss
         Close(e, "ece", report.GetProperty("ece"));                             // formula (Naeini et al. 2015) over sklearn's bins

@@ -17,8 +17,11 @@ namespace Scorer.Monitor.Reporting;
 /// last one, plus one sequential merge (linear in the version's rows) when something new arrived. Every replica keeps its own cache from the same
 /// store, so every replica reports the same numbers.
 /// </remarks>
-public sealed class LabelledCache(ILabelledStore store)
+public sealed class LabelledCache(ILabelledStore store, MonitorOptions options)
 {
+    /// <summary>Changes read from the feed per page while catching up.</summary>
+    private const int PageRows = 50_000;
+
     private readonly ConcurrentDictionary<(string Model, string Version), VersionRows> _versions = new();
 
     /// <summary>
@@ -32,8 +35,7 @@ public sealed class LabelledCache(ILabelledStore store)
         await rows.Gate.WaitAsync(cancellationToken).ConfigureAwait(false);
         try
         {
-            var changes = await store.GetLabelledChangesAsync(model, version, rows.Cursor, cancellationToken: cancellationToken).ConfigureAwait(false);
-            rows.Apply(changes);
+            await CatchUpAsync(rows, model, version, cancellationToken).ConfigureAwait(false);
             return rows.Select(from.UtcTicks, to.UtcTicks);
         }
         finally
@@ -57,8 +59,7 @@ public sealed class LabelledCache(ILabelledStore store)
         await rows.Gate.WaitAsync(cancellationToken).ConfigureAwait(false);
         try
         {
-            var changes = await store.GetLabelledChangesAsync(model, version, rows.Cursor, cancellationToken: cancellationToken).ConfigureAwait(false);
-            rows.Apply(changes);
+            await CatchUpAsync(rows, model, version, cancellationToken).ConfigureAwait(false);
             return rows.SelectBuckets(from.UtcTicks, to.UtcTicks, layout);
         }
         finally
@@ -66,6 +67,22 @@ public sealed class LabelledCache(ILabelledStore store)
             rows.Gate.Release();
         }
     }
+
+    /// <summary>Reads the feed page by page to its end, evicting the oldest rows beyond the bound after each page.</summary>
+    private async Task CatchUpAsync(VersionRows rows, string model, string version, CancellationToken cancellationToken)
+    {
+        LabelledChanges changes;
+        do
+        {
+            changes = await store.GetLabelledChangesAsync(model, version, rows.Cursor, PageRows, cancellationToken).ConfigureAwait(false);
+            rows.Apply(changes);
+            rows.Evict(options.ExactRows);
+        }
+        while (changes.Points.Count >= PageRows);
+    }
+
+    /// <summary>The rows held, over every version, for the memory metrics.</summary>
+    public long Rows => _versions.Values.Sum(v => (long)v.Count);
 
     /// <summary>Forgets versions no longer reported on (retired or unloaded).</summary>
     public void Retain(Func<string, string, bool> keep)
@@ -90,11 +107,79 @@ public sealed class LabelledCache(ILabelledStore store)
         public readonly SemaphoreSlim Gate = new(1, 1);
         public long Cursor;
         public long Applied;
-        private readonly Dictionary<Guid, int> _slots = [];
+        private Dictionary<Guid, int> _slots = [];
         private Columns _rows = new(0);
         private Columns _spare = new(0);
         private int[] _position = [];
         private int _count;
+
+        /// <summary>Rows scored before this (ticks) were evicted: a window is complete here only if it starts at or after it.</summary>
+        public long EvictedBefore = long.MinValue;
+
+        public int Count => Volatile.Read(ref _count);
+
+        /// <summary>
+        /// When more than <paramref name="keep"/> + a quarter rows are held, drops the oldest by prediction time down to
+        /// about <paramref name="keep"/> (rows tied with the newest dropped time are dropped too), in one pass that keeps
+        /// the p order, and renumbers the slots.
+        /// </summary>
+        public void Evict(int keep)
+        {
+            if (_count <= keep + keep / 4)
+            {
+                return;
+            }
+
+            var ticks = new long[_count];
+            Array.Copy(_rows.Ticks, ticks, _count);
+            Array.Sort(ticks);
+            // Keep rows scored after the newest of the (count − keep) oldest.
+            var cut = ticks[_count - keep - 1];
+            var remap = new int[_count];
+            Array.Fill(remap, -1);
+            var rows = _rows;
+            var k = 0;
+            for (var i = 0; i < _count; i++)
+            {
+                if (rows.Ticks[i] <= cut)
+                {
+                    continue;
+                }
+
+                remap[rows.Slot[i]] = k;
+                rows.P[k] = rows.P[i];
+                rows.Ticks[k] = rows.Ticks[i];
+                rows.Y[k] = rows.Y[i];
+                rows.Slot[k] = k;
+                _position[k] = k;
+                k++;
+            }
+
+            var slots = new Dictionary<Guid, int>(k);
+            foreach (var (id, slot) in _slots)
+            {
+                if (remap[slot] >= 0)
+                {
+                    slots.Add(id, remap[slot]);
+                }
+            }
+
+            _slots = slots;
+            _count = k;
+            EvictedBefore = Math.Max(EvictedBefore, cut + 1);
+            var capacity = keep + keep / 4 + PageRows;
+            if (_rows.Capacity > 2 * capacity)
+            {
+                var smaller = new Columns(capacity);
+                Array.Copy(rows.P, smaller.P, k);
+                Array.Copy(rows.Ticks, smaller.Ticks, k);
+                Array.Copy(rows.Y, smaller.Y, k);
+                Array.Copy(rows.Slot, smaller.Slot, k);
+                _rows = smaller;
+                _spare = new Columns(0);
+                Array.Resize(ref _position, capacity);
+            }
+        }
 
         public void Apply(LabelledChanges changes)
         {
@@ -206,7 +291,7 @@ public sealed class LabelledCache(ILabelledStore store)
                 }
             }
 
-            return new LabelledWindow(p, y, n, (Applied, n, members));
+            return new LabelledWindow(p, y, n, (Applied, n, members), fromTicks >= EvictedBefore);
         }
 
         public (double[] Probability, byte[] Outcome)[] SelectBuckets(long fromTicks, long toTicks,
@@ -273,8 +358,9 @@ public sealed class LabelledWindow : IDisposable
     private double[]? _p;
     private byte[]? _y;
 
-    internal LabelledWindow(double[] p, byte[] y, int count, (long Applied, int Count, ulong Members) fingerprint)
+    internal LabelledWindow(double[] p, byte[] y, int count, (long Applied, int Count, ulong Members) fingerprint, bool complete)
     {
+        Complete = complete;
         _p = p;
         _y = y;
         Count = count;
@@ -282,6 +368,9 @@ public sealed class LabelledWindow : IDisposable
     }
 
     public int Count { get; }
+
+    /// <summary>Whether the cache holds every labelled prediction of the window (none was evicted from it).</summary>
+    public bool Complete { get; }
 
     /// <summary>
     /// Which rows, with which outcomes, the window holds: the same fingerprint means the same rows and outcomes (the

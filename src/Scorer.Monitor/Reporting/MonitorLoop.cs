@@ -57,7 +57,9 @@ public sealed class MonitorLoop(ModelRegistry registry, MonitorReporter reporter
             }
         }
 
-        labelled.Retain((model, version) => current.Find(model)?.Find(version) is { Stage: not Stage.Retired });
+        bool Serving(string model, string version) => current.Find(model)?.Find(version) is { Stage: not Stage.Retired };
+        labelled.Retain(Serving);
+        reporter.Retain(Serving);
 
         foreach (var version in current.Models.Values.SelectMany(m => m.Versions).Where(v => v.Stage != Stage.Retired))
         {

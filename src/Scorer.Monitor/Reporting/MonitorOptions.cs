@@ -89,6 +89,22 @@ public sealed record MonitorOptions
     /// <summary>How often the charts and the implicit negatives catch up with the store. Default 1 s.</summary>
     public TimeSpan PollInterval { get; init; } = TimeSpan.FromSeconds(1);
 
+    /// <summary>
+    /// A window with at most this many labelled predictions (all of them in the row cache) is reported exactly over its
+    /// rows; a larger one, or one reaching back past what the cache holds, is merged from the stored summaries. The row
+    /// cache holds at most this many rows per version (plus a quarter before it evicts the oldest). Default 1,000,000.
+    /// </summary>
+    public int ExactRows { get; init; } = 1_000_000;
+
+    /// <summary>Summary buckets are an hour long for predictions younger than this, a (UTC) day long after. Default 2 days.</summary>
+    public TimeSpan HourlyBucketsFor { get; init; } = TimeSpan.FromDays(2);
+
+    /// <summary>Summary buckets older than this are deleted (null: kept, a day each, for the "all" window). Default null.</summary>
+    public TimeSpan? SummaryRetention { get; init; }
+
+    /// <summary>Changes of the labelled feed the summaries take in per page (one save each). Default 50,000.</summary>
+    public int SummaryPageRows { get; init; } = 50_000;
+
     public double AucFloorOf(string model) => AucFloors.TryGetValue(model, out var floor) ? floor : AucFloor;
 
     /// <summary>Every problem of the settings, each naming the setting.</summary>
@@ -121,6 +137,16 @@ public sealed record MonitorOptions
         if (ReportInterval < TimeSpan.FromMilliseconds(100) || PollInterval < TimeSpan.FromMilliseconds(10))
         {
             problems.Add("Scorer:Monitor:ReportInterval must be at least 100 ms and Scorer:Monitor:PollInterval at least 10 ms.");
+        }
+
+        if (ExactRows < 0 || SummaryPageRows < 1)
+        {
+            problems.Add("Scorer:Monitor:ExactRows must be 0 or more and Scorer:Monitor:SummaryPageRows at least 1.");
+        }
+
+        if (HourlyBucketsFor < TimeSpan.Zero || SummaryRetention is { } r && r <= TimeSpan.Zero)
+        {
+            problems.Add("Scorer:Monitor:HourlyBucketsFor must not be negative and Scorer:Monitor:SummaryRetention must be positive when given.");
         }
 
         if (Webhook is { } hook && !(hook.IsAbsoluteUri && (hook.Scheme == Uri.UriSchemeHttp || hook.Scheme == Uri.UriSchemeHttps)))

@@ -20,7 +20,9 @@ public sealed record MonitorSnapshot(
     ChartsView? Charts,
     StatusJudgement Status,
     double Level,
-    IReadOnlyList<ShadowComparisonView> Shadows);
+    IReadOnlyList<ShadowComparisonView> Shadows,
+    string Method = MonitorReporter.Exact,
+    DateTimeOffset? SummarisedFrom = null);
 
 /// <summary>
 /// Builds reports: the window's labelled predictions from the <see cref="LabelledCache"/> (kept up to date from the
@@ -29,9 +31,15 @@ public sealed record MonitorSnapshot(
 /// for the PSI, and the charts from the <see cref="ChartRunner"/>. The status is judged over
 /// <see cref="MonitorOptions.JudgedWindow"/>; a change of status is logged.
 /// </summary>
-public sealed class MonitorReporter(ModelRegistry registry, IPredictionLogStore predictionLog, IDriftCountStore driftCounts, ILabelledStore labelledStore, LabelledCache labelled, ChartRunner charts, MonitorOptions options,
-    TimeProvider time, ILogger<MonitorReporter> logger)
+public sealed class MonitorReporter(ModelRegistry registry, IPredictionLogStore predictionLog, IDriftCountStore driftCounts, ILabelledStore labelledStore, LabelledCache labelled,
+    SummaryReader summaries, ChartRunner charts, MonitorOptions options, TimeProvider time, ILogger<MonitorReporter> logger)
 {
+    /// <summary>The report's method when computed over the window's rows.</summary>
+    public const string Exact = "exact";
+
+    /// <summary>The report's method when merged from the stored summaries.</summary>
+    public const string Summarised = "summarised";
+
     private readonly Dictionary<(string, string), MonitorStatus> _lastStatus = [];
     private readonly ConcurrentDictionary<(string Model, string Version, string Window), ((long, int, ulong) Fingerprint, CalibrationReport Report)> _computed = new();
     private readonly Lock _lock = new();
@@ -61,7 +69,7 @@ public sealed class MonitorReporter(ModelRegistry registry, IPredictionLogStore 
         }
 
         return new MonitorSnapshot(version, window, part.From, part.To, part.Immature, part.Provisional, part.Calibration, part.Drift, chartView, status,
-            options.Level, shadows);
+            options.Level, shadows, part.Method, part.SummarisedFrom);
     }
 
     /// <summary>The status alone (judged window), e.g. for metrics and the overview.</summary>
@@ -90,19 +98,48 @@ public sealed class MonitorReporter(ModelRegistry registry, IPredictionLogStore 
         }
     }
 
-    private sealed record WindowPart(DateTimeOffset From, DateTimeOffset To, long Immature, bool Provisional, CalibrationReport Calibration, DriftView Drift);
+    /// <summary>Forgets the memo of versions no longer reported on (retired or unloaded).</summary>
+    public void Retain(Func<string, string, bool> keep)
+    {
+        foreach (var key in _computed.Keys)
+        {
+            if (!keep(key.Model, key.Version))
+            {
+                _computed.TryRemove(key, out _);
+            }
+        }
+
+        summaries.Retain(keep);
+        lock (_lock)
+        {
+            foreach (var key in _lastStatus.Keys.Where(k => !keep(k.Item1, k.Item2)).ToList())
+            {
+                _lastStatus.Remove(key);
+            }
+        }
+    }
+
+    private sealed record WindowPart(DateTimeOffset From, DateTimeOffset To, long Immature, bool Provisional, CalibrationReport Calibration, DriftView Drift,
+        string Method, DateTimeOffset? SummarisedFrom);
 
     private async Task<WindowPart> WindowAsync(LoadedVersion version, string window, DateTimeOffset now, CancellationToken cancellationToken)
     {
         var span = options.Windows.TryGetValue(window, out var s) ? s : throw new ArgumentException($"'{window}' is not a window", nameof(window));
         var from = span is { } length ? now - length : DateTimeOffset.UnixEpoch;
         var to = now.AddMinutes(1); // the minute being scored belongs to the window
-        CalibrationReport calibration;
+        CalibrationReport? calibration = null;
+        var method = Exact;
+        DateTimeOffset? summarisedFrom = null;
         using (var rows = await labelled.WindowAsync(version.Model, version.Version, from, to, cancellationToken).ConfigureAwait(false))
         {
-            // The same rows with the same outcomes as last time give the same statistics: reuse them.
+            // A window the row cache holds whole is computed over its rows; the same rows with the same outcomes as
+            // last time give the same statistics, so they are reused.
             var key = (version.Model, version.Version, window);
-            if (_computed.TryGetValue(key, out var last) && last.Fingerprint == rows.Fingerprint)
+            if (!rows.Complete)
+            {
+                _computed.TryRemove(key, out _);
+            }
+            else if (_computed.TryGetValue(key, out var last) && last.Fingerprint == rows.Fingerprint)
             {
                 calibration = last.Report;
             }
@@ -113,6 +150,14 @@ public sealed class MonitorReporter(ModelRegistry registry, IPredictionLogStore 
             }
         }
 
+        if (calibration is null)
+        {
+            var summarised = await summaries.WindowAsync(version.Model, version.Version, from, to, options.Level, cancellationToken).ConfigureAwait(false);
+            calibration = summarised.Report;
+            method = Summarised;
+            summarisedFrom = summarised.From;
+        }
+
         var predictions = await predictionLog.CountPredictionsByMinuteAsync(version.Model, version.Version, from, to, cancellationToken).ConfigureAwait(false);
         var immature = Math.Max(0, predictions - calibration.Labelled);
         var horizon = version.Document.Outcome.HorizonSpan;
@@ -120,7 +165,7 @@ public sealed class MonitorReporter(ModelRegistry registry, IPredictionLogStore 
         // implicit negatives) some are younger than the horizon.
         var provisional = immature > 0 || (version.Document.Outcome.Negatives == NegativesPolicy.Implicit && now - horizon < to);
         var counts = await driftCounts.GetDriftCountsAsync(version.Model, version.Version, from, to, cancellationToken).ConfigureAwait(false);
-        return new WindowPart(from, to, immature, provisional, calibration, DriftTracker.Psi(version, counts));
+        return new WindowPart(from, to, immature, provisional, calibration, DriftTracker.Psi(version, counts), method, summarisedFrom);
     }
 }
 

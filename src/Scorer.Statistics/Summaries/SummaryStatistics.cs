@@ -277,8 +277,9 @@ public static class SummaryStatistics
     /// <summary>
     /// Hosmer–Lemeshow over groups of whole bins. The exact report cuts at the type-7 quantiles of p at k/g (R's
     /// <c>quantile</c>), each group (b_k, b_{k+1}]. Here the quantile's rank h = (n − 1)k/g + 1 falls in some bin; the
-    /// group boundary is put after that bin when the bin holds a single value of p (all its rows are at or below the
-    /// quantile, as R counts ties) or when at least half of the bin's rows rank at or below h, and before it otherwise.
+    /// group boundary is put after that bin when some of its rows rank at or below h and either the bin holds a single
+    /// value of p (all its rows are at or below the quantile, as R counts ties) or at least half of its rows do, and
+    /// before it otherwise.
     /// Equal boundaries merge, as R's unique() merges equal breaks; an empty group is left out.
     /// </summary>
     private static HosmerLemeshowTest? HosmerLemeshowOf(Grouped[] bins, long n, int groups)
@@ -311,7 +312,9 @@ public static class SummaryStatistics
             var before = bin == 0 ? 0 : cumulative[bin - 1];
             var b = bins[bin].Bin;
             var atOrBelow = Math.Floor(h) - before;
-            var end = b.MinP == b.MaxP || atOrBelow >= b.Count / 2.0 ? bin : bin - 1;
+            // No row of the bin at or below the quantile: the boundary is before it. Otherwise after it when the bin holds
+            // one value of p (the quantile is that value) or half of its rows or more rank at or below the quantile.
+            var end = atOrBelow >= 1 && (b.MinP == b.MaxP || atOrBelow >= b.Count / 2.0) ? bin : bin - 1;
             if (end >= 0 && end < bins.Length - 1)
             {
                 ends.Add(end);

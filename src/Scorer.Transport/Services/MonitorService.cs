@@ -74,7 +74,13 @@ public sealed class MonitorService(MonitorReporter reporter, MonitorWatch watch,
             Reasons = { s.Status.Reasons },
             Advice = s.Status.Advice,
             Level = s.Level,
+            Method = s.Method,
         };
+        if (s.SummarisedFrom is { } summarisedFrom)
+        {
+            report.SummarisedFrom = Timestamp.FromDateTimeOffset(summarisedFrom);
+        }
+
         if (c.Labelled > 0)
         {
             report.Brier = c.Brier;
@@ -121,7 +127,9 @@ public sealed class MonitorService(MonitorReporter reporter, MonitorWatch watch,
                 Statistic = hl.Statistic,
                 Df = hl.Df,
                 P = hl.P,
-                Grouping = "deciles of predicted probability (R quantile type 7, tied breaks merged); df = groups, for data the model was not fit on",
+                Grouping = s.Method == Scorer.Monitor.Reporting.MonitorReporter.Summarised
+                    ? "deciles of predicted probability in whole bins of logit(p) of width 1/128 (a decile's boundary moves to the nearer edge of its bin; docs/monitoring.md, Summaries); df = groups, for data the model was not fit on"
+                    : "deciles of predicted probability (R quantile type 7, tied breaks merged); df = groups, for data the model was not fit on",
                 Groups =
                 {
                     hl.Groups.Select(g => new V1.RiskGroup

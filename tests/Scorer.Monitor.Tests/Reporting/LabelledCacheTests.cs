@@ -43,7 +43,7 @@ public sealed class LabelledCacheTests : IAsyncLifetime
                 Math.Log(p / (1 - p + 1e-9) + 1e-9), p, "{}");
         }).ToArray();
         await _store.WritePredictionsAsync(predictions);
-        var cache = new LabelledCache(_store);
+        var cache = new LabelledCache(_store, new MonitorOptions());
         var now = T0.AddDays(60);
 
         // Round 1: outcomes for a shuffled half. Round 2: some of them changed (take latest) and more new ones.
@@ -72,7 +72,7 @@ public sealed class LabelledCacheTests : IAsyncLifetime
         var b = new PredictionRecord(Guid.CreateVersion7(T0.AddHours(1)), Model, Version, Stage.Live, T0.AddHours(1), null, 1, 0.73, "{}");
         await _store.WritePredictionsAsync([a, b]);
         await _store.RecordOutcomesAsync(Model, [new OutcomeReport(a.Id, null, 1), new OutcomeReport(b.Id, null, 0)], ConflictPolicy.TakeLatest, T0.AddDays(1));
-        var cache = new LabelledCache(_store);
+        var cache = new LabelledCache(_store, new MonitorOptions());
 
         var first = await Fingerprint(T0, T0.AddDays(1));
         Assert.Equal(first, await Fingerprint(T0, T0.AddDays(1)));
