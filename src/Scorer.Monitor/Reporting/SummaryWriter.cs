@@ -62,7 +62,12 @@ public sealed partial class SummaryWriter(ModelRegistry registry, ILeaseStore le
     /// One round: as the lease holder, every live and shadow version's summaries brought up to the feed's end (at most
     /// <paramref name="maxPages"/> pages each) and saved. Returns the number of feed changes taken in.
     /// </summary>
-    public async Task<long> CatchUpAsync(CancellationToken cancellationToken = default, int maxPages = 20)
+    public Task<long> CatchUpAsync(CancellationToken cancellationToken = default, int maxPages = 20) =>
+        CatchUpAsync([.. registry.Current.Models.Values.SelectMany(m => m.Versions).Where(v => v.Stage != Stage.Retired).Select(v => (v.Model, v.Version))],
+            cancellationToken, maxPages);
+
+    /// <summary>One round over the given versions (the registry's live and shadow ones, or a test's).</summary>
+    internal async Task<long> CatchUpAsync(IReadOnlyCollection<(string Model, string Version)> versions, CancellationToken cancellationToken, int maxPages = 20)
     {
         var holds = await leases.TryHoldLeaseAsync(Lease, cancellationToken).ConfigureAwait(false);
         if (holds != _holder)
@@ -80,7 +85,7 @@ public sealed partial class SummaryWriter(ModelRegistry registry, ILeaseStore le
             return 0;
         }
 
-        var serving = registry.Current.Models.Values.SelectMany(m => m.Versions).Where(v => v.Stage != Stage.Retired).Select(v => (v.Model, v.Version)).ToHashSet();
+        var serving = versions.ToHashSet();
         foreach (var key in _versions.Keys.Where(k => !serving.Contains(k)).ToList())
         {
             _versions.Remove(key);
