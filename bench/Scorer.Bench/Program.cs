@@ -45,6 +45,12 @@ public static class Program
             return;
         }
 
+        if (args.Length > 0 && args[0] == "--summary-report")
+        {
+            SummaryReportSpeed.Run();
+            return;
+        }
+
         if (args.Length > 0 && args[0] == "--quick")
         {
             QuickRun.Run(args.Length > 1 ? int.Parse(args[1], System.Globalization.CultureInfo.InvariantCulture) : 7);
