@@ -45,6 +45,13 @@ public static class Program
             return;
         }
 
+        if (args.Length > 4 && args[0] == "--volume")
+        {
+            var ci = System.Globalization.CultureInfo.InvariantCulture;
+            VolumeMemory.RunAsync(args[1], args[2], int.Parse(args[3], ci), int.Parse(args[4], ci)).GetAwaiter().GetResult();
+            return;
+        }
+
         if (args.Length > 0 && args[0] == "--summary-report")
         {
             SummaryReportSpeed.Run();
