@@ -191,6 +191,7 @@ public sealed class PageApi
                     Number(w, "expected", report.Calibration.Expected);
                     w.WriteNumber("immature", report.Immature);
                     w.WriteBoolean("provisional", report.Provisional);
+                    w.WriteString("method", report.Method);
                     w.WriteString("reportedAt", report.To.AddMinutes(-1));
                 }
 
