@@ -123,7 +123,8 @@ public static class ScorerServer
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.ChartRunner>();
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.LabelledCache>();
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.MonitorReporter>();
-        builder.Services.AddSingleton<Scorer.Monitor.Reporting.DriftTracker>();
+        builder.Services.AddSingleton(sp => new Scorer.Monitor.Reporting.DriftTracker(sp.GetRequiredService<IDriftCountStore>(), sp.GetRequiredService<TimeProvider>(),
+            options.Limits.MaxDriftTallies, sp.GetRequiredService<ILogger<Scorer.Monitor.Reporting.DriftTracker>>()));
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.MonitorLoop>();
         Scorer.Monitor.Reporting.StatusWebhook.AddStatusWebhook(builder.Services);
         builder.Services.AddSingleton<MonitorWatch>();
