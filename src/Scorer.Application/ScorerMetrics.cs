@@ -29,7 +29,7 @@ public sealed partial class ScorerMetrics
     private int _leftOut;
 
     public ScorerMetrics(ModelRegistry registry, PredictionLog log, ShadowScorer shadows, Scorer.Monitor.Reporting.MonitorLoop monitor,
-        Scorer.Monitor.Reporting.ChartRunner charts, Scorer.Monitor.Reporting.DriftTracker drift, EventSubscribers subscribers, ScoringLimits limits,
+        Scorer.Monitor.Reporting.ChartRunner charts, Scorer.Monitor.Reporting.DriftTracker drift, Scorer.Monitor.Reporting.StatusWebhook webhook, EventSubscribers subscribers, ScoringLimits limits,
         IEnumerable<IStoreSpaceSignal> spaces, ILogger<ScorerMetrics> logger)
     {
         _logger = logger;
@@ -75,6 +75,10 @@ public sealed partial class ScorerMetrics
             "Versions with metric series of their own (live and shadow ones); at most Scorer:Limits:MaxMetricVersions.");
         var metricVersionsLeftOut = factory.CreateGauge("scorer_memory_metric_versions_left_out",
             "Live and shadow versions without metric series of their own because more than Scorer:Limits:MaxMetricVersions are loaded.");
+        var webhookWaiting = factory.CreateGauge("scorer_memory_webhook_queue_notices",
+            "Status changes waiting to be posted to the webhook; at most Scorer:Limits:StatusWebhookNotices.");
+        var webhookDropped = factory.CreateCounter("scorer_memory_webhook_dropped_notices_total",
+            "Status changes not posted to the webhook because Scorer:Limits:StatusWebhookNotices were waiting (the oldest dropped), since start.");
         var chartVersions = factory.CreateGauge("scorer_memory_chart_versions", "Versions whose CUSUM and EWMA charts this process holds in memory (the live and shadow ones).");
         var storeFull = factory.CreateGauge("scorer_store_full", "1 while the store refuses writes for lack of space (SQLite: a full disk, or Scorer:Store:MaxSizeMegabytes reached), else 0.");
         var storeFullWrites = factory.CreateCounter("scorer_store_full_writes_total", "Writes the store refused for lack of space, since start.");
@@ -224,6 +228,8 @@ public sealed partial class ScorerMetrics
             shadowRows.Set(shadows.Rows);
             driftTallies.Set(drift.Tallies);
             driftDropped.IncTo(drift.DroppedRows);
+            webhookWaiting.Set(webhook.Waiting);
+            webhookDropped.IncTo(webhook.Dropped);
             streams.Set(subscribers.Open);
             streamsRefused.IncTo(subscribers.Refused);
             foreach (var space in spaces)

@@ -33,6 +33,9 @@ public sealed record ScoringLimits
     /// <summary>Live and shadow versions that get metric series of their own (rows scored, the monitor's gauges). Default 200.</summary>
     public int MaxMetricVersions { get; init; } = 200;
 
+    /// <summary>Status changes waiting to be posted to the webhook (Scorer:Monitor:Webhook); beyond it the oldest is dropped. Default 1,000.</summary>
+    public int StatusWebhookNotices { get; init; } = 1_000;
+
     /// <summary>Every problem of these limits, each naming its setting.</summary>
     public IReadOnlyList<string> Validate()
     {
@@ -43,6 +46,7 @@ public sealed record ScoringLimits
                      (nameof(MaxDenseValues), MaxDenseValues), (nameof(MaxEventSubscribers), MaxEventSubscribers),
                      (nameof(ShadowQueueBatches), ShadowQueueBatches), (nameof(ShadowQueueRows), ShadowQueueRows),
                      (nameof(MaxDriftTallies), MaxDriftTallies), (nameof(MaxMetricVersions), MaxMetricVersions),
+                     (nameof(StatusWebhookNotices), StatusWebhookNotices),
                  })
         {
             if (value < 1)
