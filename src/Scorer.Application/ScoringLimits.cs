@@ -36,6 +36,8 @@ public sealed record ScoringLimits
     /// <summary>Status changes waiting to be posted to the webhook (Scorer:Monitor:Webhook); beyond it the oldest is dropped. Default 1,000.</summary>
     public int StatusWebhookNotices { get; init; } = 1_000;
 
+    private const string Section = "Scorer:Limits:";
+
     /// <summary>Every problem of these limits, each naming its setting.</summary>
     public IReadOnlyList<string> Validate()
     {
@@ -51,7 +53,7 @@ public sealed record ScoringLimits
         {
             if (value < 1)
             {
-                problems.Add($"Scorer:Limits:{name} is {value}; give at least 1");
+                problems.Add($"{Section}{name} is {value}; give at least 1");
             }
         }
 
