@@ -25,7 +25,6 @@ public sealed partial class ScorerMetrics
     private readonly ConcurrentDictionary<(string Model, Stage Stage), RowCount> _former = new();
     private readonly Lock _scrape = new();
     private readonly ILogger<ScorerMetrics> _logger;
-    private int _versions;
     private int _leftOut;
 
     public ScorerMetrics(ModelRegistry registry, PredictionLog log, ShadowScorer shadows, Scorer.Monitor.Reporting.MonitorLoop monitor,
@@ -123,7 +122,6 @@ public sealed partial class ScorerMetrics
             }
 
             _leftOut = leftOut;
-            Volatile.Write(ref _versions, shown.Count);
 
             // Rows scored: each (model, version, stage) counted here goes to its own series while the version has that
             // stage and is shown; otherwise its count is closed, moved to the model's version "" and its series removed.
@@ -290,9 +288,6 @@ public sealed partial class ScorerMetrics
             _scored.TryRemove(KeyValuePair.Create(key, count)); // closed by a scrape: its rows went to version "", these go to a new count
         }
     }
-
-    /// <summary>Versions with series of their own at the last scrape.</summary>
-    public int Versions => Volatile.Read(ref _versions);
 
     [LoggerMessage(EventId = 5020, Level = LogLevel.Warning,
         Message = "{LeftOut} live and shadow versions have no metric series of their own: more than Scorer:Limits:MaxMetricVersions ({Max}) are loaded; their rows are counted under version \"\"")]
