@@ -1,3 +1,5 @@
+using System.Collections.Concurrent;
+using Microsoft.Extensions.Logging;
 using Prometheus;
 using Scorer.Registry;
 using Scorer.Store;
@@ -9,14 +11,32 @@ namespace Scorer.Application;
 /// tests can run several). Counters are incremented per request, never per row; gauges are read at scrape time.
 /// Names and labels are listed in docs/metrics.md.
 /// </summary>
-public sealed class ScorerMetrics
+/// <remarks>
+/// Series labelled with a version exist only for the live and shadow versions, at most
+/// <see cref="ScoringLimits.MaxMetricVersions"/> of them (live ones first, then by model and version): at each scrape the
+/// series of every other version are removed, so the scrape does not grow as versions come and go. Rows scored by a
+/// version without series of its own (retired, beyond the bound, or under a stage it no longer has) are not lost:
+/// they are added to <c>scorer_rows_scored_total{version=""}</c> of their model and stage, so the sum over a model and
+/// stage never goes down.
+/// </remarks>
+public sealed partial class ScorerMetrics
 {
+    private readonly ConcurrentDictionary<(string Model, string Version, Stage Stage), RowCount> _scored = new();
+    private readonly ConcurrentDictionary<(string Model, Stage Stage), RowCount> _former = new();
+    private readonly Lock _scrape = new();
+    private readonly ILogger<ScorerMetrics> _logger;
+    private int _leftOut;
+
     public ScorerMetrics(ModelRegistry registry, PredictionLog log, ShadowScorer shadows, Scorer.Monitor.Reporting.MonitorLoop monitor,
-        Scorer.Monitor.Reporting.ChartRunner charts, EventSubscribers subscribers, IEnumerable<IStoreSpaceSignal> spaces)
+        Scorer.Monitor.Reporting.ChartRunner charts, Scorer.Monitor.Reporting.DriftTracker drift, Scorer.Monitor.Reporting.StatusWebhook webhook, EventSubscribers subscribers, ScoringLimits limits,
+        IEnumerable<IStoreSpaceSignal> spaces, ILogger<ScorerMetrics> logger)
     {
+        _logger = logger;
         Registry = Metrics.NewCustomRegistry();
         var factory = Metrics.WithCustomRegistry(Registry);
-        RowsScored = factory.CreateCounter("scorer_rows_scored_total", "Rows scored, by model, version and stage.", "model", "version", "stage");
+        var rowsScored = factory.CreateCounter("scorer_rows_scored_total",
+            "Rows scored, by model, version and stage; version \"\" holds the rows of versions without series of their own (retired, or beyond Scorer:Limits:MaxMetricVersions).",
+            "model", "version", "stage");
         RowErrors = factory.CreateCounter("scorer_row_errors_total", "Rows that could not be scored, by model and reason.", "model", "kind");
         Refused = factory.CreateCounter("scorer_calls_refused_total",
             "Calls refused for their API key before they ran: unauthenticated (no key, or an unknown one) or forbidden (the key lacks the role).", "reason");
@@ -43,6 +63,22 @@ public sealed class ScorerMetrics
         var streams = factory.CreateGauge("scorer_event_streams_open", "Event streams open (monitor and overview events); at most Scorer:Limits:MaxEventSubscribers.");
         var streamsRefused = factory.CreateCounter("scorer_event_streams_refused_total", "Event streams refused because Scorer:Limits:MaxEventSubscribers were open, since start.");
         var shadowDropped = factory.CreateCounter("scorer_shadow_dropped_batches_total", "Shadow scoring work dropped because it fell behind, since start.");
+        var shadowDroppedRows = factory.CreateCounter("scorer_shadow_dropped_rows_total", "Rows of the shadow scoring work dropped because it fell behind, since start.");
+        var shadowBatches = factory.CreateGauge("scorer_memory_shadow_queue_batches", "Batches waiting for shadow scoring; at most Scorer:Limits:ShadowQueueBatches.");
+        var shadowRows = factory.CreateGauge("scorer_memory_shadow_queue_rows", "Rows of the batches waiting for shadow scoring; at most Scorer:Limits:ShadowQueueRows.");
+        var driftTallies = factory.CreateGauge("scorer_memory_drift_tallies",
+            "Drift tallies held (one per version and hour) until the store has their counts; at most Scorer:Limits:MaxDriftTallies.");
+        var driftDropped = factory.CreateCounter("scorer_memory_drift_dropped_rows_total",
+            "Rows scored but not counted into the drift bins because Scorer:Limits:MaxDriftTallies tallies were held, since start.");
+        var metricVersions = factory.CreateGauge("scorer_memory_metric_versions",
+            "Versions with metric series of their own (live and shadow ones); at most Scorer:Limits:MaxMetricVersions.");
+        var metricVersionsLeftOut = factory.CreateGauge("scorer_memory_metric_versions_left_out",
+            "Live and shadow versions without metric series of their own because more than Scorer:Limits:MaxMetricVersions are loaded.");
+        var webhookWaiting = factory.CreateGauge("scorer_memory_webhook_queue_notices",
+            "Status changes waiting to be posted to the webhook; at most Scorer:Limits:StatusWebhookNotices.");
+        var webhookDropped = factory.CreateCounter("scorer_memory_webhook_dropped_notices_total",
+            "Status changes not posted to the webhook because Scorer:Limits:StatusWebhookNotices were waiting (the oldest dropped), since start.");
+        var chartVersions = factory.CreateGauge("scorer_memory_chart_versions", "Versions whose CUSUM and EWMA charts this process holds in memory (the live and shadow ones).");
         var storeFull = factory.CreateGauge("scorer_store_full", "1 while the store refuses writes for lack of space (SQLite: a full disk, or Scorer:Store:MaxSizeMegabytes reached), else 0.");
         var storeFullWrites = factory.CreateCounter("scorer_store_full_writes_total", "Writes the store refused for lack of space, since start.");
         registry.Changed += _ => reloads.Inc();
@@ -66,11 +102,56 @@ public sealed class ScorerMetrics
         var status = factory.CreateGauge("scorer_monitor_status", "Status of the version: 0 fine, 1 watch, 2 recalibrate, 3 refit-due.", "model", "version");
         var chartsHolder = factory.CreateGauge("scorer_monitor_charts_holder",
             "1 when this process runs the CUSUM charts (holds the store's charts lease), 0 when another process sharing the store does.");
+        Collector<Gauge.Child>[] versionGauges = [labelled, immature, oe, intercept, slope, brier, logLoss, ece, auc, psi, cusum, cusumThreshold, status];
         Registry.AddBeforeCollectCallback(() =>
         {
+            lock (_scrape)
+            {
+                Collect();
+            }
+        });
+
+        void Collect()
+        {
+            var shown = Shown(registry.Current, limits.MaxMetricVersions, out var leftOut);
+            metricVersions.Set(shown.Count);
+            metricVersionsLeftOut.Set(leftOut);
+            if (leftOut != _leftOut && leftOut > 0)
+            {
+                LeftOut(leftOut, limits.MaxMetricVersions);
+            }
+
+            _leftOut = leftOut;
+
+            // Rows scored: each (model, version, stage) counted here goes to its own series while the version has that
+            // stage and is shown; otherwise its count is closed, moved to the model's version "" and its series removed.
+            foreach (var (key, count) in _scored)
+            {
+                if (shown.TryGetValue((key.Model, key.Version), out var stage) && stage == key.Stage)
+                {
+                    rowsScored.WithLabels(key.Model, key.Version, Models.ModelCatalog.StageName(key.Stage)).IncTo(count.Value);
+                    continue;
+                }
+
+                var total = count.Close();
+                _scored.TryRemove(KeyValuePair.Create(key, count));
+                AddFormer(key.Model, key.Stage, total);
+                rowsScored.RemoveLabelled(key.Model, key.Version, Models.ModelCatalog.StageName(key.Stage));
+            }
+
+            foreach (var (key, count) in _former)
+            {
+                rowsScored.WithLabels(key.Model, "", Models.ModelCatalog.StageName(key.Stage)).IncTo(count.Value);
+            }
+
             chartsHolder.Set(charts.IsHolder ? 1 : 0);
             foreach (var s in monitor.Latest)
             {
+                if (!shown.ContainsKey((s.Version.Model, s.Version.Version)))
+                {
+                    continue;
+                }
+
                 string[] l = [s.Version.Model, s.Version.Version, s.Window];
                 var c = s.Calibration;
                 labelled.WithLabels(l).Set(c.Labelled);
@@ -103,7 +184,16 @@ public sealed class ScorerMetrics
                     }
                 }
             }
-        });
+
+            foreach (var family in versionGauges)
+            {
+                RemoveOthers(family, shown);
+            }
+
+            RemoveOthers(cusumSignals, shown);
+            chartVersions.Set(charts.Versions);
+        }
+
         Registry.AddBeforeCollectCallback(() =>
         {
             var snapshot = registry.Current;
@@ -131,6 +221,13 @@ public sealed class ScorerMetrics
             setAside.IncTo(log.SetAside);
             waiting.Set(log.Waiting.TotalSeconds);
             shadowDropped.IncTo(shadows.Dropped);
+            shadowDroppedRows.IncTo(shadows.DroppedRows);
+            shadowBatches.Set(shadows.Batches);
+            shadowRows.Set(shadows.Rows);
+            driftTallies.Set(drift.Tallies);
+            driftDropped.IncTo(drift.DroppedRows);
+            webhookWaiting.Set(webhook.Waiting);
+            webhookDropped.IncTo(webhook.Dropped);
             streams.Set(subscribers.Open);
             streamsRefused.IncTo(subscribers.Refused);
             foreach (var space in spaces)
@@ -143,8 +240,89 @@ public sealed class ScorerMetrics
 
     private static void SetOrNaN(Gauge.Child gauge, double? value) => gauge.Set(value ?? double.NaN);
 
+    /// <summary>
+    /// The versions that get series of their own, with their stage: the live and shadow ones, live first, then by model
+    /// and version (ordinal), at most <paramref name="max"/>; <paramref name="leftOut"/> says how many more there are.
+    /// </summary>
+    private static Dictionary<(string Model, string Version), Stage> Shown(RegistrySnapshot snapshot, int max, out int leftOut)
+    {
+        var candidates = snapshot.Models.Values.SelectMany(m => m.Versions).Where(v => v.Stage != Stage.Retired)
+            .OrderBy(v => v.Stage == Stage.Live ? 0 : 1).ThenBy(v => v.Model, StringComparer.Ordinal).ThenBy(v => v.Version, StringComparer.Ordinal).ToList();
+        leftOut = Math.Max(0, candidates.Count - max);
+        return candidates.Take(max).ToDictionary(v => (v.Model, v.Version), v => v.Stage);
+    }
+
+    /// <summary>Removes the series of a family whose version (the second label) is not shown.</summary>
+    private static void RemoveOthers<TChild>(Collector<TChild> family, Dictionary<(string Model, string Version), Stage> shown)
+        where TChild : ChildBase
+    {
+        foreach (var labels in family.GetAllLabelValues())
+        {
+            if (!shown.ContainsKey((labels[0], labels[1])))
+            {
+                family.RemoveLabelled(labels);
+            }
+        }
+    }
+
+    private void AddFormer(string model, Stage stage, long rows)
+    {
+        if (rows > 0)
+        {
+            _former.GetOrAdd((model, stage), static _ => new RowCount()).TryAdd(rows);
+        }
+    }
+
+    /// <summary>Counts the rows one message scored with a version (into <c>scorer_rows_scored_total</c> at the next scrape).</summary>
+    public void CountScored(LoadedVersion version, long rows)
+    {
+        var key = (version.Model, version.Version, version.Stage);
+        while (true)
+        {
+            var count = _scored.GetOrAdd(key, static _ => new RowCount());
+            if (count.TryAdd(rows))
+            {
+                return;
+            }
+
+            _scored.TryRemove(KeyValuePair.Create(key, count)); // closed by a scrape: its rows went to version "", these go to a new count
+        }
+    }
+
+    [LoggerMessage(EventId = 5020, Level = LogLevel.Warning,
+        Message = "{LeftOut} live and shadow versions have no metric series of their own: more than Scorer:Limits:MaxMetricVersions ({Max}) are loaded; their rows are counted under version \"\"")]
+    private partial void LeftOut(int leftOut, int max);
+
+    /// <summary>A count of rows that a scrape can close: once closed it takes no more, so the scrape's total is final.</summary>
+    private sealed class RowCount
+    {
+        private const long Closed = -1;
+        private long _value;
+
+        public long Value => Math.Max(0, Interlocked.Read(ref _value));
+
+        public bool TryAdd(long rows)
+        {
+            var seen = Interlocked.Read(ref _value);
+            while (seen != Closed)
+            {
+                var was = Interlocked.CompareExchange(ref _value, seen + rows, seen);
+                if (was == seen)
+                {
+                    return true;
+                }
+
+                seen = was;
+            }
+
+            return false;
+        }
+
+        /// <summary>Closes the count and returns its total.</summary>
+        public long Close() => Math.Max(0, Interlocked.Exchange(ref _value, Closed));
+    }
+
     public CollectorRegistry Registry { get; }
-    public Counter RowsScored { get; }
     public Counter RowErrors { get; }
 
     /// <summary>Calls refused for their key (reason unauthenticated or forbidden); they reach no other metric.</summary>

@@ -6,7 +6,7 @@ using Scorer.Transport;
 namespace Scorer.Host;
 
 /// <summary>
-/// Starts the folder watcher, the monitor's charts, the drift counts' flush and the stores' stage-change signals; on
+/// Starts the folder watcher, shadow scoring, the monitor's charts, the drift counts' flush and the stores' stage-change signals; on
 /// shutdown stops them, gives up the charts' lease, and drains shadow scoring and the prediction log. The store
 /// driver's own background work (retention) and the store's closing, after all this, belong to the driver's hosted
 /// service (<c>AddSqliteStore</c>, <c>AddPostgresStore</c>).
@@ -25,6 +25,7 @@ internal sealed partial class Lifecycle(RegistryWatcher watcher, ShadowScorer sh
     public Task StartAsync(CancellationToken cancellationToken)
     {
         watcher.Start();
+        shadows.Start();
         _loops.Add(Task.Run(() => charts.RunAsync(_stopping.Token), CancellationToken.None));
         _loops.Add(Task.Run(() => summaries.RunAsync(_stopping.Token), CancellationToken.None));
         _loops.Add(Task.Run(() => monitor.RunAsync(_stopping.Token), CancellationToken.None));

@@ -48,6 +48,7 @@ public sealed class ScorerOptions
     /// <summary>Least level logged: Verbose, Debug, Information, Warning, Error, Fatal. Default Information.</summary>
     public string LogLevel { get; set; } = "Information";
 
+    /// <summary>Limits on requests, on open streams and on what the process keeps in memory (docs/operations.md, "Memory bounds").</summary>
     public ScoringLimits Limits { get; set; } = new();
 
     public PredictionLogOptions PredictionLog { get; set; } = new();
@@ -76,6 +77,7 @@ public sealed class ScorerOptions
 
         problems.AddRange(Store.Validate());
         problems.AddRange(ModelFiles.Validate());
+        problems.AddRange(Limits.Validate());
 
         if (LogFormat is not ("auto" or "text" or "json"))
         {

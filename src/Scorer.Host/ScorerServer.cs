@@ -125,9 +125,10 @@ public static class ScorerServer
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.SummaryReader>();
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.SummaryWriter>();
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.MonitorReporter>();
-        builder.Services.AddSingleton<Scorer.Monitor.Reporting.DriftTracker>();
+        builder.Services.AddSingleton(sp => new Scorer.Monitor.Reporting.DriftTracker(sp.GetRequiredService<IDriftCountStore>(), sp.GetRequiredService<TimeProvider>(),
+            options.Limits.MaxDriftTallies, sp.GetRequiredService<ILogger<Scorer.Monitor.Reporting.DriftTracker>>()));
         builder.Services.AddSingleton<Scorer.Monitor.Reporting.MonitorLoop>();
-        Scorer.Monitor.Reporting.StatusWebhook.AddStatusWebhook(builder.Services);
+        Scorer.Monitor.Reporting.StatusWebhook.AddStatusWebhook(builder.Services, options.Limits.StatusWebhookNotices);
         builder.Services.AddSingleton<MonitorWatch>();
         builder.Services.AddSingleton<Scorer.Transport.Rest.MonitorEvents>();
         builder.Services.AddSingleton<Scorer.Transport.Rest.LabelledExport>();

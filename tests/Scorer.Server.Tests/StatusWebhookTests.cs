@@ -56,13 +56,36 @@ public sealed class StatusWebhookTests
         return [.. times.Zip(times.Skip(1), (a, b) => (b - a).TotalSeconds)];
     }
 
-    private static (StatusWebhook Webhook, ServiceProvider Services) Start(FakeTimeProvider clock, HttpMessageHandler endpoint)
+    /// <summary>Holds the first post until released, then answers 200 to every post, keeping the bodies.</summary>
+    private sealed class HeldEndpoint : HttpMessageHandler
+    {
+        private int _calls;
+
+        public TaskCompletionSource Release { get; } = new(TaskCreationOptions.RunContinuationsAsynchronously);
+
+        public ConcurrentQueue<string> Bodies { get; } = new();
+
+        public int Calls => Volatile.Read(ref _calls);
+
+        protected override async Task<HttpResponseMessage> SendAsync(HttpRequestMessage request, CancellationToken cancellationToken)
+        {
+            Bodies.Enqueue(await request.Content!.ReadAsStringAsync(cancellationToken));
+            if (Interlocked.Increment(ref _calls) == 1)
+            {
+                await Release.Task.WaitAsync(cancellationToken);
+            }
+
+            return new HttpResponseMessage(HttpStatusCode.OK);
+        }
+    }
+
+    private static (StatusWebhook Webhook, ServiceProvider Services) Start(FakeTimeProvider clock, HttpMessageHandler endpoint, int capacity = StatusWebhook.DefaultCapacity)
     {
         var services = new ServiceCollection();
         services.AddLogging(l => l.SetMinimumLevel(LogLevel.Warning));
         services.AddSingleton<TimeProvider>(clock);
         services.AddSingleton(new MonitorOptions { Webhook = new Uri("http://127.0.0.1:9/hook") });
-        StatusWebhook.AddStatusWebhook(services);
+        StatusWebhook.AddStatusWebhook(services, capacity);
         services.AddHttpClient(StatusWebhook.ClientName).ConfigurePrimaryHttpMessageHandler(() => endpoint);
         var provider = services.BuildServiceProvider();
         return (provider.GetRequiredService<StatusWebhook>(), provider);
@@ -116,6 +139,35 @@ public sealed class StatusWebhookTests
             // The first notice is given up after six attempts; the second is the seventh post, accepted.
             Assert.Equal(StatusWebhook.Retries + 2, endpoint.Calls);
             Assert.Contains("card-chargeback", endpoint.Bodies.Last(), StringComparison.Ordinal);
+        }
+    }
+
+    [Fact]
+    public async Task A_webhook_that_falls_behind_holds_its_bound_of_notices_drops_the_oldest_and_counts_exactly_those()
+    {
+        var clock = new FakeTimeProvider();
+        var endpoint = new HeldEndpoint();
+        var (webhook, services) = Start(clock, endpoint, capacity: 3);
+        await using (services)
+        {
+            // The first notice is being posted and held; 6 more arrive while it is.
+            webhook.Notify("pump-bearing-failure", "v0", RefitDue);
+            Assert.True(await Files.EventuallyAsync(() => Task.FromResult(endpoint.Calls == 1), TimeSpan.FromSeconds(30)));
+            for (var i = 1; i <= 6; i++)
+            {
+                webhook.Notify("pump-bearing-failure", $"v{i}", RefitDue);
+            }
+
+            // 3 wait, the 3 oldest of the 6 were dropped and counted.
+            Assert.Equal(3, webhook.Waiting);
+            Assert.Equal(3, webhook.Dropped);
+
+            // Released: the held one and the 3 newest are posted, nothing else.
+            endpoint.Release.SetResult();
+            Assert.True(await Files.EventuallyAsync(() => Task.FromResult(webhook.Delivered == 4), TimeSpan.FromSeconds(30)), $"{webhook.Delivered} delivered");
+            Assert.Equal(["v0", "v4", "v5", "v6"], endpoint.Bodies.Select(b => JsonDocument.Parse(b).RootElement.GetProperty("version").GetString()));
+            Assert.Equal(0, webhook.Waiting);
+            Assert.Equal(3, webhook.Dropped);
         }
     }
 }

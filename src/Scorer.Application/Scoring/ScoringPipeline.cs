@@ -60,8 +60,8 @@ public readonly record struct ScoreCall(LoadedVersion Version, ModelEntry Entry,
 public sealed class ScoringPipeline(ModelCatalog catalog, PredictionLog log, ShadowScorer shadows, ScoringLimits limits, ScorerMetrics metrics, TimeProvider time,
     DriftTracker drift)
 {
-    // The labelled counters of each loaded version, looked up once rather than per request.
-    private readonly System.Runtime.CompilerServices.ConditionalWeakTable<LoadedVersion, VersionCounters> _counters = [];
+    // The warnings counter of each loaded version's model, looked up once rather than per request.
+    private readonly System.Runtime.CompilerServices.ConditionalWeakTable<LoadedVersion, Prometheus.Counter.Child> _warned = [];
 
     public ScoringLimits Limits => limits;
 
@@ -321,20 +321,16 @@ public sealed class ScoringPipeline(ModelCatalog catalog, PredictionLog log, Sha
     /// <summary>Counts one message's rows into the metrics.</summary>
     private void Count(LoadedVersion version, int scored, int warned)
     {
-        var counters = _counters.GetValue(version, v => new VersionCounters(
-            metrics.RowsScored.WithLabels(v.Model, v.Version, ModelCatalog.StageName(v.Stage)), metrics.RowWarnings.WithLabels(v.Model)));
         if (scored > 0)
         {
-            counters.Scored.Inc(scored);
+            metrics.CountScored(version, scored);
         }
 
         if (warned > 0)
         {
-            counters.Warned.Inc(warned);
+            _warned.GetValue(version, v => metrics.RowWarnings.WithLabels(v.Model)).Inc(warned);
         }
     }
-
-    private sealed record VersionCounters(Prometheus.Counter.Child Scored, Prometheus.Counter.Child Warned);
 
     /// <summary>Counts a row that could not be scored under its code (<see cref="RowMessages.Code(RowErrorKind)"/>, bad_value, bad_key).</summary>
     private void CountRowError(LoadedVersion version, string code) => metrics.RowErrors.WithLabels(version.Model, code).Inc();

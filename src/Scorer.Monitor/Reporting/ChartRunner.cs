@@ -57,6 +57,9 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
 
     public ChartsView? View(string model, string version) => _charts.TryGetValue((model, version), out var c) ? c.View() : null;
 
+    /// <summary>Versions whose charts this process holds in memory: the live and shadow ones (a retired version's state stays in the store).</summary>
+    public int Versions => _charts.Count;
+
     /// <summary>Runs until cancelled, catching up every <see cref="MonitorOptions.PollInterval"/>.</summary>
     public async Task RunAsync(CancellationToken cancellationToken)
     {
@@ -123,6 +126,7 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
 
         var becameHolder = holds && !_holder;
         Volatile.Write(ref _holder, holds);
+        LetGoOfRetired();
         if (!holds)
         {
             await FollowAsync(cancellationToken).ConfigureAwait(false);
@@ -150,7 +154,7 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
 
                 foreach (var version in entry.Versions.Where(v => v.Stage != Stage.Retired))
                 {
-                    var charts = _charts.GetOrAdd((entry.Name, version.Version), _ => new VersionCharts(options));
+                    var charts = await ChartsOfAsync(entry.Name, version.Version, cancellationToken).ConfigureAwait(false);
                     if (await charts.CatchUpAsync(labelled, entry.Name, version.Version, now - horizon, cancellationToken, OnSignal).ConfigureAwait(false))
                     {
                         await leases.SaveChartStateAsync(entry.Name, version.Version, charts.SaveState(), Lease, cancellationToken).ConfigureAwait(false);
@@ -170,6 +174,34 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
             ChartSignalled(chart, model, version, signal.Index, signal.PredictionId, signal.Time, signal.Statistic);
             Signalled?.Invoke(model, version, chart, signal);
         }
+    }
+
+    /// <summary>
+    /// Lets go of the charts of versions no longer live or shadow (retired, or gone from the registry); their saved state
+    /// stays in the store, and <see cref="ChartsOfAsync"/> continues from it if the version comes back.
+    /// </summary>
+    private void LetGoOfRetired()
+    {
+        var current = registry.Current;
+        foreach (var key in _charts.Keys)
+        {
+            if (current.Find(key.Model)?.Find(key.Version) is not { Stage: not Stage.Retired })
+            {
+                _charts.TryRemove(key, out _);
+            }
+        }
+    }
+
+    /// <summary>The charts of a version as held, else as last saved, else new.</summary>
+    private async Task<VersionCharts> ChartsOfAsync(string model, string version, CancellationToken cancellationToken)
+    {
+        if (_charts.TryGetValue((model, version), out var charts))
+        {
+            return charts;
+        }
+
+        var saved = await leases.GetChartStateAsync(model, version, cancellationToken).ConfigureAwait(false);
+        return _charts.GetOrAdd((model, version), saved is null ? new VersionCharts(options) : VersionCharts.Restore(options, saved));
     }
 
     /// <summary>Replaces every version's charts by the state the holder last saved; raises <see cref="Signalled"/> for signals new to this process.</summary>

@@ -1,5 +1,7 @@
 using System.Collections.Concurrent;
 using System.Runtime.CompilerServices;
+using Microsoft.Extensions.Logging;
+using Microsoft.Extensions.Logging.Abstractions;
 using Scorer.Engine;
 using Scorer.Engine.Scoring;
 using Scorer.ModelFile;
@@ -20,8 +22,26 @@ public sealed record DriftView(double? Score, IReadOnlyDictionary<string, double
 /// already bound, summed per request before one short lock, so it costs the request path little and the log writer
 /// nothing.
 /// </summary>
-public sealed class DriftTracker(IDriftCountStore store, TimeProvider time)
+/// <remarks>
+/// Bounded: at most <c>maxTallies</c> tallies (one per version and hour) are held at once. A tally is let go once the
+/// store has its counts and its hour is more than an hour past; while the store fails they stay, and a request that
+/// would need one more is not counted into the drift bins: its rows are counted in <see cref="DroppedRows"/> and logged
+/// (the rows themselves are scored and logged as usual). Counts already held are never let go before the store has them.
+/// </remarks>
+public sealed partial class DriftTracker(IDriftCountStore store, TimeProvider time, int maxTallies, ILogger<DriftTracker> logger)
 {
+    /// <summary>The default bound on tallies held (<c>Scorer:Limits:MaxDriftTallies</c>).</summary>
+    public const int DefaultMaxTallies = 10_000;
+
+    /// <summary>A refused tally is logged the first time and then every this many.</summary>
+    internal const int LogEvery = 1_000;
+
+    /// <summary>A tracker with the default bound and no log.</summary>
+    public DriftTracker(IDriftCountStore store, TimeProvider time)
+        : this(store, time, DefaultMaxTallies, NullLogger<DriftTracker>.Instance)
+    {
+    }
+
     /// <summary>The series of the linear predictor (a name the model file keeps from features).</summary>
     public const string ScoreSeries = ModelFile.ModelDocument.LinearPredictorSeries;
 
@@ -35,6 +55,18 @@ public sealed class DriftTracker(IDriftCountStore store, TimeProvider time)
 
     private readonly ConditionalWeakTable<CompiledModel, Plan?> _plans = [];
     private readonly ConcurrentDictionary<(string Model, string Version, long Hour), HourCounts> _pending = new();
+    private int _tallies; // the entries of _pending, kept here because ConcurrentDictionary.Count takes every lock
+    private long _droppedTallies;
+    private long _droppedRows;
+
+    /// <summary>Tallies held now (versions × hours whose counts the store does not have yet, or whose hour is recent).</summary>
+    public int Tallies => Volatile.Read(ref _tallies);
+
+    /// <summary>Requests' tallies refused at the bound since start.</summary>
+    public long DroppedTallies => Interlocked.Read(ref _droppedTallies);
+
+    /// <summary>Rows of those requests since start: scored and logged, but not in the drift bins.</summary>
+    public long DroppedRows => Interlocked.Read(ref _droppedRows);
 
     /// <summary>A tally of one request's rows for one version and hour; <see cref="Commit"/> adds it to the tracker.</summary>
     public sealed class Tally
@@ -91,14 +123,64 @@ public sealed class DriftTracker(IDriftCountStore store, TimeProvider time)
             }
         }
 
+        /// <summary>Adds the counts to the tracker, or counts the rows as dropped when the tracker is at its bound.</summary>
         public void Commit()
         {
             if (_rows > 0)
             {
-                _owner._pending.GetOrAdd(_key, _ => new HourCounts(_plan)).Add(_counts);
+                _owner.Commit(_key, _plan, _counts, _rows);
             }
         }
     }
+
+    private void Commit((string Model, string Version, long Hour) key, Plan plan, long[] counts, long rows)
+    {
+        while (true)
+        {
+            if (!_pending.TryGetValue(key, out var hour))
+            {
+                if (Interlocked.Increment(ref _tallies) > maxTallies)
+                {
+                    Interlocked.Decrement(ref _tallies);
+                    if (!_pending.TryGetValue(key, out hour)) // another request may have made it meanwhile
+                    {
+                        var dropped = Interlocked.Increment(ref _droppedTallies);
+                        var droppedRows = Interlocked.Add(ref _droppedRows, rows);
+                        if (dropped % LogEvery == 1)
+                        {
+                            Dropping(maxTallies, key.Model, key.Version, dropped, droppedRows);
+                        }
+
+                        return;
+                    }
+                }
+                else
+                {
+                    var made = new HourCounts(plan);
+                    hour = _pending.GetOrAdd(key, made);
+                    if (!ReferenceEquals(hour, made))
+                    {
+                        Interlocked.Decrement(ref _tallies);
+                    }
+                }
+            }
+
+            if (hour.TryAdd(counts))
+            {
+                return;
+            }
+
+            // Let go by a flush between the lookup and the add: whichever takes it out of the dictionary counts it out.
+            if (_pending.TryRemove(KeyValuePair.Create(key, hour)))
+            {
+                Interlocked.Decrement(ref _tallies);
+            }
+        }
+    }
+
+    [LoggerMessage(EventId = 5010, Level = LogLevel.Warning,
+        Message = "Drift tallies at their bound ({Tallies}, Scorer:Limits:MaxDriftTallies): rows of {Model} {Version} are scored but not counted into the drift bins; {Dropped} requests ({DroppedRows} rows) so far")]
+    private partial void Dropping(int tallies, string model, string version, long dropped, long droppedRows);
 
     /// <summary>A tally for a version's rows scored at one time, or null when the version has no baseline to compare with.</summary>
     public Tally? Begin(LoadedVersion version, DateTimeOffset scoredAt)
@@ -131,30 +213,31 @@ public sealed class DriftTracker(IDriftCountStore store, TimeProvider time)
             }
         }
 
-        if (counts.Count == 0)
+        if (counts.Count > 0)
         {
-            return;
-        }
-
-        try
-        {
-            await store.AddDriftCountsAsync(counts, cancellationToken).ConfigureAwait(false);
-        }
-        catch
-        {
-            foreach (var (key, snapshot) in taken)
+            try
             {
-                _pending[key].Add(snapshot); // put back: counted again at the next flush
+                await store.AddDriftCountsAsync(counts, cancellationToken).ConfigureAwait(false);
             }
+            catch
+            {
+                foreach (var (key, snapshot) in taken)
+                {
+                    _pending[key].PutBack(snapshot); // counted again at the next flush; only a flush lets a tally go
+                }
 
-            throw;
+                throw;
+            }
         }
 
-        foreach (var (key, _) in taken)
+        // Let go of every tally the store has all of whose hour is over by more than an hour (rows of the past hour may
+        // still be in flight), whether or not it was written in this flush.
+        var pastHour = (time.GetUtcNow().ToUnixTimeMilliseconds() / 3_600_000) - 1;
+        foreach (var (key, hour) in _pending)
         {
-            if (key.Hour < (time.GetUtcNow().ToUnixTimeMilliseconds() / 3_600_000) - 1 && _pending.TryGetValue(key, out var hour) && hour.IsEmpty)
+            if (key.Hour < pastHour && hour.TryClose() && _pending.TryRemove(KeyValuePair.Create(key, hour)))
             {
-                _pending.TryRemove(key, out _);
+                Interlocked.Decrement(ref _tallies);
             }
         }
     }
@@ -225,37 +308,58 @@ public sealed class DriftTracker(IDriftCountStore store, TimeProvider time)
         return PopulationStability.IndexFromCounts(e, a);
     }
 
-    /// <summary>Counts of one version and hour, added under a lock per request.</summary>
+    /// <summary>Counts of one version and hour, added under a lock per request; closed once let go, so no add is lost.</summary>
     private sealed class HourCounts(Plan plan)
     {
         private readonly Lock _lock = new();
         private long[] _counts = new long[plan.Slots];
         private bool _dirty;
+        private bool _closed;
 
         public Plan Plan => plan;
 
-        public bool IsEmpty
-        {
-            get
-            {
-                lock (_lock)
-                {
-                    return !_dirty;
-                }
-            }
-        }
-
-        public void Add(long[] counts)
+        /// <summary>Adds a request's counts; false when the tally was let go (the caller makes a new one).</summary>
+        public bool TryAdd(long[] counts)
         {
             lock (_lock)
             {
-                for (var i = 0; i < counts.Length; i++)
+                if (_closed)
                 {
-                    _counts[i] += counts[i];
+                    return false;
                 }
 
-                _dirty = true;
+                Sum(counts);
+                return true;
             }
+        }
+
+        /// <summary>Puts back counts a failed flush took (never refused: a tally is closed only by a flush).</summary>
+        public void PutBack(long[] counts)
+        {
+            lock (_lock)
+            {
+                Sum(counts);
+            }
+        }
+
+        /// <summary>Closes the tally when it holds nothing the store lacks; true when it did.</summary>
+        public bool TryClose()
+        {
+            lock (_lock)
+            {
+                _closed = !_dirty;
+                return _closed;
+            }
+        }
+
+        private void Sum(long[] counts)
+        {
+            for (var i = 0; i < counts.Length; i++)
+            {
+                _counts[i] += counts[i];
+            }
+
+            _dirty = true;
         }
 
         public long[]? Take()

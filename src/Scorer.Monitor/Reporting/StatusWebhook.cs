@@ -22,8 +22,8 @@ public sealed record StatusChangeNotice(
 /// Posts each status change to <see cref="MonitorOptions.Webhook"/>, one at a time in order, through the named
 /// <see cref="HttpClient"/> <see cref="ClientName"/>, whose resilience pipeline (<see cref="AddStatusWebhook"/>) gives each
 /// attempt 10 s and retries a failed one after 1, 2, 4, 8 and 16 s, on the service's <see cref="TimeProvider"/>; a notice
-/// still not delivered then is given up with an error in the log. Bounded: beyond 1,000 waiting notices the oldest are
-/// dropped.
+/// still not delivered then is given up with an error in the log. Bounded: beyond <c>capacity</c> waiting notices
+/// (<c>Scorer:Limits:StatusWebhookNotices</c>, default 1,000) the oldest is dropped, counted in <see cref="Dropped"/> and logged.
 /// </summary>
 public sealed class StatusWebhook : IAsyncDisposable
 {
@@ -33,8 +33,15 @@ public sealed class StatusWebhook : IAsyncDisposable
     /// <summary>Retries after the first attempt, 1 s apart doubling (1, 2, 4, 8, 16 s).</summary>
     public const int Retries = 5;
 
-    private readonly Channel<StatusChangeNotice> _queue = Channel.CreateBounded<StatusChangeNotice>(
-        new BoundedChannelOptions(1_000) { FullMode = BoundedChannelFullMode.DropOldest, SingleReader = true });
+    /// <summary>The default bound on waiting notices.</summary>
+    public const int DefaultCapacity = 1_000;
+
+    /// <summary>A dropped notice is logged the first time and then every this many.</summary>
+    internal const int LogEvery = 100;
+
+    private readonly Channel<StatusChangeNotice> _queue;
+    private readonly int _capacity;
+    private long _dropped;
 
     private readonly IHttpClientFactory _clients;
     private readonly CancellationTokenSource _stop = new();
@@ -44,8 +51,11 @@ public sealed class StatusWebhook : IAsyncDisposable
 
     private readonly TimeProvider _time;
 
-    public StatusWebhook(MonitorOptions options, TimeProvider time, IHttpClientFactory clients, ILogger<StatusWebhook> logger)
+    public StatusWebhook(MonitorOptions options, TimeProvider time, IHttpClientFactory clients, ILogger<StatusWebhook> logger, int capacity = DefaultCapacity)
     {
+        _capacity = capacity;
+        _queue = Channel.CreateBounded<StatusChangeNotice>(
+            new BoundedChannelOptions(capacity) { FullMode = BoundedChannelFullMode.DropOldest, SingleReader = true }, OnDropped);
         _target = options.Webhook;
         _time = time;
         _clients = clients;
@@ -62,6 +72,21 @@ public sealed class StatusWebhook : IAsyncDisposable
         }
     }
 
+    /// <summary>Notices waiting to be posted (the one being posted not included).</summary>
+    public int Waiting => _queue.Reader.Count;
+
+    /// <summary>Notices dropped, oldest first, because <c>capacity</c> were waiting, since start.</summary>
+    public long Dropped => Interlocked.Read(ref _dropped);
+
+    private void OnDropped(StatusChangeNotice notice)
+    {
+        var dropped = Interlocked.Increment(ref _dropped);
+        if (dropped % LogEvery == 1)
+        {
+            StatusWebhookEvents.Dropping(_logger, _capacity, notice.Model, notice.Version, notice.Status, dropped);
+        }
+    }
+
     /// <summary>Notices posted successfully since start.</summary>
     public long Delivered => Interlocked.Read(ref _delivered);
 
@@ -73,7 +98,7 @@ public sealed class StatusWebhook : IAsyncDisposable
     /// a timeout, a 408, 429 or 5xx answer) retried <see cref="Retries"/> times with exponential backoff from 1 s, without
     /// jitter, on the <see cref="TimeProvider"/> registered in the container.
     /// </summary>
-    public static IServiceCollection AddStatusWebhook(IServiceCollection services)
+    public static IServiceCollection AddStatusWebhook(IServiceCollection services, int capacity = DefaultCapacity)
     {
         services.AddHttpClient(ClientName, c => c.Timeout = Timeout.InfiniteTimeSpan) // the pipeline times each attempt
             .AddResilienceHandler("status-webhook", (pipeline, context) =>
@@ -97,7 +122,7 @@ public sealed class StatusWebhook : IAsyncDisposable
             });
         services.AddSingleton(sp =>
         {
-            var webhook = ActivatorUtilities.CreateInstance<StatusWebhook>(sp);
+            var webhook = ActivatorUtilities.CreateInstance<StatusWebhook>(sp, capacity);
             if (sp.GetService<MonitorReporter>() is { } reporter)
             {
                 reporter.StatusChanged += webhook.Notify;
@@ -155,4 +180,8 @@ internal static partial class StatusWebhookEvents
 
     [LoggerMessage(EventId = 3202, Level = LogLevel.Error, Message = "Giving up posting the status change of {Model} {Version} to {Webhook} after {Attempts} attempts")]
     public static partial void GaveUp(ILogger logger, Exception error, string model, string version, Uri? webhook, int attempts);
+
+    [LoggerMessage(EventId = 5030, Level = LogLevel.Warning,
+        Message = "Status webhook behind ({Capacity} notices waiting, Scorer:Limits:StatusWebhookNotices): the oldest are dropped, now {Model} {Version} ({Status}); {Dropped} so far")]
+    public static partial void Dropping(ILogger logger, int capacity, string model, string version, string status, long dropped);
 }
