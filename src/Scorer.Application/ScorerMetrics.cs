@@ -28,7 +28,8 @@ public sealed partial class ScorerMetrics
     private int _leftOut;
 
     public ScorerMetrics(ModelRegistry registry, PredictionLog log, ShadowScorer shadows, Scorer.Monitor.Reporting.MonitorLoop monitor,
-        Scorer.Monitor.Reporting.ChartRunner charts, Scorer.Monitor.Reporting.DriftTracker drift, Scorer.Monitor.Reporting.StatusWebhook webhook, EventSubscribers subscribers, ScoringLimits limits,
+        Scorer.Monitor.Reporting.ChartRunner charts, Scorer.Monitor.Reporting.DriftTracker drift, Scorer.Monitor.Reporting.StatusWebhook webhook, Scorer.Monitor.Reporting.LabelledCache rowCache,
+        Scorer.Monitor.Reporting.SummaryReader summaries, EventSubscribers subscribers, ScoringLimits limits,
         IEnumerable<IStoreSpaceSignal> spaces, ILogger<ScorerMetrics> logger)
     {
         _logger = logger;
@@ -79,6 +80,10 @@ public sealed partial class ScorerMetrics
         var webhookDropped = factory.CreateCounter("scorer_memory_webhook_dropped_notices_total",
             "Status changes not posted to the webhook because Scorer:Limits:StatusWebhookNotices were waiting (the oldest dropped), since start.");
         var chartVersions = factory.CreateGauge("scorer_memory_chart_versions", "Versions whose CUSUM and EWMA charts this process holds in memory (the live and shadow ones).");
+        var cacheRows = factory.CreateGauge("scorer_memory_row_cache_rows",
+            "Labelled predictions the monitor's row cache holds, over every version (at most 1.25 x Scorer:Monitor:ExactRows per version).");
+        var summaryBuckets = factory.CreateGauge("scorer_memory_bucket_documents", "Summary buckets this process holds for reports, over every version.");
+        var summaryBytes = factory.CreateGauge("scorer_memory_bucket_bytes", "Bytes of the summary documents this process holds for reports.");
         var storeFull = factory.CreateGauge("scorer_store_full", "1 while the store refuses writes for lack of space (SQLite: a full disk, or Scorer:Store:MaxSizeMegabytes reached), else 0.");
         var storeFullWrites = factory.CreateCounter("scorer_store_full_writes_total", "Writes the store refused for lack of space, since start.");
         registry.Changed += _ => reloads.Inc();
@@ -192,6 +197,10 @@ public sealed partial class ScorerMetrics
 
             RemoveOthers(cusumSignals, shown);
             chartVersions.Set(charts.Versions);
+            cacheRows.Set(rowCache.Rows);
+            var (_, buckets, bytes) = summaries.Size();
+            summaryBuckets.Set(buckets);
+            summaryBytes.Set(bytes);
         }
 
         Registry.AddBeforeCollectCallback(() =>

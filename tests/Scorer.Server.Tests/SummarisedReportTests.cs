@@ -127,7 +127,17 @@ public sealed class SummarisedReportTests : IAsyncLifetime
         }
 
         Assert.True(moved <= 2, $"{moved} rows changed groups");
+
+        // The row cache stays within its bound (200 + a quarter; the 332 rows share one scoring time, so they went
+        // together), and the summaries held are counted.
+        var scrape = await _server.Http.GetStringAsync("/metrics");
+        Assert.InRange(Metric(scrape, "scorer_memory_row_cache_rows"), 0, 250);
+        Assert.True(Metric(scrape, "scorer_memory_bucket_documents") >= 1);
+        Assert.True(Metric(scrape, "scorer_memory_bucket_bytes") > 541);
     }
+
+    private static double Metric(string scrape, string name) =>
+        double.Parse(scrape.Split('\n').Single(l => l.StartsWith(name + " ", StringComparison.Ordinal))[(name.Length + 1)..], CultureInfo.InvariantCulture);
 
     private static void Relative(JsonElement expected, string name, JsonElement actual, double tolerance)
     {

@@ -120,8 +120,8 @@ public sealed class LabelledCache(ILabelledStore store, MonitorOptions options)
 
         /// <summary>
         /// When more than <paramref name="keep"/> + a quarter rows are held, drops the oldest by prediction time down to
-        /// about <paramref name="keep"/> (rows tied with the newest dropped time are dropped too), in one pass that keeps
-        /// the p order, and renumbers the slots.
+        /// <paramref name="keep"/> (more while rows tied in time with the oldest kept stay within the bound; fewer when
+        /// they would not), in one pass that keeps the p order, and renumbers the slots.
         /// </summary>
         public void Evict(int keep)
         {
@@ -133,8 +133,25 @@ public sealed class LabelledCache(ILabelledStore store, MonitorOptions options)
             var ticks = new long[_count];
             Array.Copy(_rows.Ticks, ticks, _count);
             Array.Sort(ticks);
-            // Keep rows scored after the newest of the (count − keep) oldest.
-            var cut = ticks[_count - keep - 1];
+            // Rows scored at or before `cut` go. Kept: the newest `keep` rows and those tied with the oldest of them,
+            // unless the ties would pass the bound (rows of one message share their scoring time): then only rows newer.
+            long cut;
+            if (keep == 0)
+            {
+                cut = ticks[_count - 1];
+            }
+            else
+            {
+                var oldestKept = ticks[_count - keep];
+                var tiedFrom = _count - keep;
+                while (tiedFrom > 0 && ticks[tiedFrom - 1] == oldestKept)
+                {
+                    tiedFrom--;
+                }
+
+                cut = _count - tiedFrom <= keep + keep / 4 ? oldestKept - 1 : oldestKept;
+            }
+
             var remap = new int[_count];
             Array.Fill(remap, -1);
             var rows = _rows;
