@@ -32,7 +32,7 @@ public sealed partial class PostgresScorerStore
         if (Options.PredictionRetention is not { } retention)
         {
             ObjectDisposedException.ThrowIf(_disposed, this);
-            return new PruneResult(0, 0);
+            return PruneResult.None;
         }
 
         await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);

@@ -58,7 +58,7 @@ public sealed partial class PostgresStoreHost(PostgresScorerStore store, TimePro
             try
             {
                 var result = await store.PruneAsync(time.GetUtcNow(), cancellationToken).ConfigureAwait(false);
-                Pruned(result.Deleted, result.KeptAwaitingOutcome);
+                Pruned(result.PredictionsDeleted, result.KeptAwaitingOutcome);
             }
             catch (OperationCanceledException) when (cancellationToken.IsCancellationRequested)
             {
