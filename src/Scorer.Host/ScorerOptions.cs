@@ -212,10 +212,23 @@ public sealed class StoreOptions
     public string? Schema { get; set; }
 
     /// <summary>
-    /// PostgreSQL: how long logged predictions are kept (default: forever). Older ones are deleted hourly once their
-    /// outcome is recorded or no longer expected; the rest are kept and counted in the log.
+    /// How long logged predictions are kept (default: forever), SQLite and PostgreSQL. Older ones are deleted at each
+    /// pass (<see cref="PruneInterval"/>) once their outcome is recorded or no longer expected; the rest are kept and
+    /// counted in the log (PostgreSQL drops whole days: see docs/operations.md).
     /// </summary>
     public TimeSpan? PredictionRetention { get; set; }
+
+    /// <summary>
+    /// How long outcomes and outcome conflicts are kept (default: forever); when set, at least
+    /// <see cref="PredictionRetention"/>. An outcome never goes before its prediction.
+    /// </summary>
+    public TimeSpan? OutcomeRetention { get; set; }
+
+    /// <summary>How often the retention runs (default: hourly), in the one process holding the retention lease.</summary>
+    public TimeSpan PruneInterval { get; set; } = RetentionRules.DefaultPruneInterval;
+
+    /// <summary>SQLite: the most rows one retention transaction deletes (default 5,000), so that writers wait for one batch at most.</summary>
+    public int PruneBatchSize { get; set; } = Scorer.Store.Sqlite.SqliteStoreOptions.DefaultPruneBatchSize;
 
     /// <summary>
     /// SQLite: the most the file may grow to, in MiB (default: as far as the disk allows). Writes beyond are refused as
@@ -263,9 +276,14 @@ public sealed class StoreOptions
             yield return "Scorer:Store:MaxSizeMegabytes limits the SQLite file; with Scorer:Store:Kind postgres, limit the database's size on its server instead";
         }
 
-        if (PredictionRetention is { } retention && retention <= TimeSpan.Zero)
+        foreach (var problem in RetentionRules.Problems(PredictionRetention, OutcomeRetention, PruneInterval, "Scorer:Store:"))
         {
-            yield return $"Scorer:Store:PredictionRetention is {retention}; give a positive time span, or leave it out to keep predictions";
+            yield return problem;
+        }
+
+        if (PruneBatchSize < 1)
+        {
+            yield return $"Scorer:Store:PruneBatchSize is {PruneBatchSize}; give at least 1 (the default is {Scorer.Store.Sqlite.SqliteStoreOptions.DefaultPruneBatchSize})";
         }
     }
 

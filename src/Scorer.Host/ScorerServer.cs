@@ -34,9 +34,21 @@ public static class ScorerServer
     internal static readonly IReadOnlyDictionary<string, Action<IServiceCollection, StoreOptions>> StoreKinds =
         new Dictionary<string, Action<IServiceCollection, StoreOptions>>(StringComparer.Ordinal)
         {
-            ["sqlite"] = (services, store) => services.AddSqliteStore(store.Path, new SqliteStoreOptions { MaxSizeBytes = store.MaxSizeMegabytes << 20 }),
-            ["postgres"] = (services, store) => services.AddPostgresStore(store.ConnectionString!,
-                new PostgresStoreOptions { Schema = store.Schema, PredictionRetention = store.PredictionRetention }),
+            ["sqlite"] = (services, store) => services.AddSqliteStore(store.Path, new SqliteStoreOptions
+            {
+                MaxSizeBytes = store.MaxSizeMegabytes << 20,
+                PredictionRetention = store.PredictionRetention,
+                OutcomeRetention = store.OutcomeRetention,
+                PruneInterval = store.PruneInterval,
+                PruneBatchSize = store.PruneBatchSize,
+            }),
+            ["postgres"] = (services, store) => services.AddPostgresStore(store.ConnectionString!, new PostgresStoreOptions
+            {
+                Schema = store.Schema,
+                PredictionRetention = store.PredictionRetention,
+                OutcomeRetention = store.OutcomeRetention,
+                PruneInterval = store.PruneInterval,
+            }),
         };
 
     public static async Task<int> RunAsync(string[] args)

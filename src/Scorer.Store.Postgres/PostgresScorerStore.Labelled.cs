@@ -53,7 +53,7 @@ public sealed partial class PostgresScorerStore
         var versionFilter = version is null ? "" : $" AND o.version = ${(after is null ? 5 : 6)}";
         await using var command = Command(connection, null,
             "SELECT o.prediction_id, o.version, o.stage, o.scored_at, o.eta, o.probability, o.outcome, o.implicit, o.recorded_at, p.\"key\", p.features "
-            + "FROM outcomes o JOIN predictions p ON p.id = o.prediction_id "
+            + "FROM outcomes o JOIN predictions p ON p.id = o.prediction_id AND p.scored_at = o.scored_at "
             + $"WHERE o.model = $1 AND {start} AND o.scored_at < $2{versionFilter} ORDER BY o.scored_at, o.prediction_id LIMIT $3");
         command.Parameters.Add(Text(model));
         command.Parameters.Add(Timestamp(to));

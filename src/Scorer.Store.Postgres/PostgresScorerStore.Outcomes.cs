@@ -9,16 +9,23 @@ public sealed partial class PostgresScorerStore
 {
     /// <summary>
     /// Every prediction of the model that a batch's reports reach, with its recorded outcome (NULLs when none): by its
-    /// own id, as a shadow paired with a reported id (live_id), and by key (with the key). Index lookups, one
-    /// statement; the caller holds the model's outcome lock, so what it reads stays as read until it commits.
+    /// own id (in the partitions of the time the id carries, <see cref="IdTimes"/>, or through prediction_times), as a
+    /// shadow paired with a reported id (live_id, every partition's index), and by key (with the key; every
+    /// partition's index). Index lookups, one statement; the caller holds the model's outcome lock, so what it reads
+    /// stays as read until it commits.
     /// </summary>
     private const string TargetsSql =
         "SELECT p.id, p.version, p.stage, p.scored_at, p.eta, p.probability, p.live_id, o.outcome, o.implicit, p.\"key\" "
-        + "FROM predictions p LEFT JOIN outcomes o ON o.prediction_id = p.id WHERE p.model = $1 AND p.id = ANY($2) "
+        + "FROM unnest($2::uuid[], $4::timestamptz[], $5::timestamptz[]) AS u(id, from_at, to_at) "
+        + "JOIN predictions p ON p.id = u.id AND p.scored_at >= u.from_at AND p.scored_at < u.to_at "
+        + "LEFT JOIN outcomes o ON o.prediction_id = p.id AND o.scored_at = p.scored_at WHERE p.model = $1 "
         + "UNION ALL SELECT p.id, p.version, p.stage, p.scored_at, p.eta, p.probability, p.live_id, o.outcome, o.implicit, p.\"key\" "
-        + "FROM predictions p LEFT JOIN outcomes o ON o.prediction_id = p.id WHERE p.model = $1 AND p.live_id = ANY($2) "
+        + "FROM prediction_times t JOIN predictions p ON p.id = t.id AND p.scored_at = t.scored_at "
+        + "LEFT JOIN outcomes o ON o.prediction_id = p.id AND o.scored_at = p.scored_at WHERE t.id = ANY($2) AND p.model = $1 "
         + "UNION ALL SELECT p.id, p.version, p.stage, p.scored_at, p.eta, p.probability, p.live_id, o.outcome, o.implicit, p.\"key\" "
-        + "FROM predictions p LEFT JOIN outcomes o ON o.prediction_id = p.id WHERE p.model = $1 AND p.\"key\" = ANY($3)";
+        + "FROM predictions p LEFT JOIN outcomes o ON o.prediction_id = p.id AND o.scored_at = p.scored_at WHERE p.model = $1 AND p.live_id = ANY($2) "
+        + "UNION ALL SELECT p.id, p.version, p.stage, p.scored_at, p.eta, p.probability, p.live_id, o.outcome, o.implicit, p.\"key\" "
+        + "FROM predictions p LEFT JOIN outcomes o ON o.prediction_id = p.id AND o.scored_at = p.scored_at WHERE p.model = $1 AND p.\"key\" = ANY($3)";
 
     private const string InsertOutcomesSql =
         "INSERT INTO outcomes (prediction_id, model, version, stage, scored_at, eta, probability, outcome, observed_at, recorded_at, implicit, live_id) "
@@ -28,7 +35,8 @@ public sealed partial class PostgresScorerStore
 
     private const string UpdateOutcomesSql =
         "UPDATE outcomes o SET outcome = u.outcome, observed_at = u.observed_at, recorded_at = $1, implicit = false, change = pg_current_xact_id(), revised = true "
-        + "FROM unnest($2::uuid[], $3::smallint[], $4::timestamptz[]) AS u(id, outcome, observed_at) WHERE o.prediction_id = u.id";
+        + "FROM unnest($2::uuid[], $3::smallint[], $4::timestamptz[], $5::timestamptz[]) AS u(id, outcome, observed_at, scored_at) "
+        + "WHERE o.prediction_id = u.id AND o.scored_at = u.scored_at";
 
     private const string InsertConflictsSql =
         "INSERT INTO outcome_conflicts (prediction_id, model, recorded, reported, kept, was_implicit, at) "
@@ -76,7 +84,7 @@ public sealed partial class PostgresScorerStore
             }
             catch (PostgresException ex) when (attempt < OutcomeAttempts
                 && (ex.SqlState is PostgresErrorCodes.DeadlockDetected or PostgresErrorCodes.SerializationFailure
-                    || (ex.SqlState == PostgresErrorCodes.UniqueViolation && ex.ConstraintName == "outcomes_pkey")))
+                    || (ex.SqlState == PostgresErrorCodes.UniqueViolation && IsOutcomeKey(ex.ConstraintName))))
             {
             }
 
@@ -106,6 +114,9 @@ public sealed partial class PostgresScorerStore
             targetsOf.Parameters.Add(Text(model));
             targetsOf.Parameters.Add(UuidArray(ids));
             targetsOf.Parameters.Add(TextArray(keys));
+            var windows = ids.Select(IdTimes.Window).ToArray();
+            targetsOf.Parameters.Add(TimestampArray([.. windows.Select(w => w.From)]));
+            targetsOf.Parameters.Add(TimestampArray([.. windows.Select(w => w.To)]));
             read.BatchCommands.Add(targetsOf);
 
             await using var reader = await read.ExecuteReaderAsync(cancellationToken).ConfigureAwait(false);
@@ -158,6 +169,7 @@ public sealed partial class PostgresScorerStore
                 update.Parameters.Add(UuidArray([.. updates.Select(r => r.Id)]));
                 update.Parameters.Add(SmallintArray([.. updates.Select(r => (short)r.Outcome)]));
                 update.Parameters.Add(TimestampArray([.. updates.Select(r => PostgresValues.ToTimestamp(r.ObservedAt))]));
+                update.Parameters.Add(TimestampArray([.. updates.Select(r => (DateTime?)rows[r.Id].ScoredAt)]));
                 write.BatchCommands.Add(update);
             }
 
@@ -242,7 +254,7 @@ public sealed partial class PostgresScorerStore
                 + "mature AS (SELECT w.* FROM walk w, stop s WHERE w.log_seq < s.at), "
                 + "labelled AS (INSERT INTO outcomes (prediction_id, model, version, stage, scored_at, eta, probability, outcome, observed_at, recorded_at, implicit, live_id) "
                 + "  SELECT m.id, $1, m.version, m.stage, m.scored_at, m.eta, m.probability, 0, NULL, $5, true, m.live_id FROM mature m "
-                + "  WHERE NOT EXISTS (SELECT 1 FROM outcomes o WHERE o.prediction_id = m.id) ORDER BY m.id RETURNING 1), "
+                + "  WHERE NOT EXISTS (SELECT 1 FROM outcomes o WHERE o.prediction_id = m.id AND o.scored_at = m.scored_at) ORDER BY m.id RETURNING 1), "
                 + "moved AS (INSERT INTO maturity_cursors (model, last_row) SELECT $1, max(log_seq) FROM mature HAVING count(*) > 0 "
                 + "  ON CONFLICT (model) DO UPDATE SET last_row = excluded.last_row RETURNING 1) "
                 + "SELECT (SELECT count(*) FROM labelled)::integer, (SELECT count(*) FROM moved)::integer");
@@ -265,6 +277,10 @@ public sealed partial class PostgresScorerStore
     /// </summary>
     private static NpgsqlBatchCommand OutcomeLock(string model, bool shared = false) =>
         new($"SELECT pg_advisory_xact_lock{(shared ? "_shared" : "")}({OutcomeLockClass}, hashtext(current_schema() || '.' || $1))") { Parameters = { Text(model) } };
+
+    /// <summary>Each outcome partition's primary key (outcomes_YYYYMMDD_pkey, outcomes_default_pkey).</summary>
+    private static bool IsOutcomeKey(string? constraint) =>
+        constraint is not null && constraint.StartsWith("outcomes_", StringComparison.Ordinal) && constraint.EndsWith("_pkey", StringComparison.Ordinal);
 
     /// <summary>A prediction an outcome report reaches, as read from the log: what a new outcome row copies in.</summary>
     private readonly record struct OutcomeRow(Guid Id, string Version, string Stage, DateTime ScoredAt, double Eta, double Probability, Guid? LiveId);

@@ -52,27 +52,77 @@ public sealed partial class PostgresScorerStore
                 // The lock before the batch number: the sweep's horizon then covers every number taken (see the sweep).
                 prelude.BatchCommands.Add(new NpgsqlBatchCommand($"SELECT pg_advisory_xact_lock_shared({LogLockKey})"));
                 prelude.BatchCommands.Add(new NpgsqlBatchCommand("SELECT nextval('prediction_batches')"));
+                var odd = batch.Where(r => !IdTimes.Carries(r.Id, r.ScoredAt)).ToArray();
+                if (odd.Length > 0)
+                {
+                    // A row whose id does not carry its time is not refused by a partition's key (id, scored_at) when its
+                    // id is stored with another time: it is looked for where its id would be found.
+                    var windows = odd.Select(r => IdTimes.Window(r.Id)).ToArray();
+                    var stored = new NpgsqlBatchCommand(
+                        "SELECT count(*) FROM unnest($1::uuid[], $2::timestamptz[], $3::timestamptz[]) AS u(id, from_at, to_at) "
+                        + "JOIN predictions p ON p.id = u.id AND p.scored_at >= u.from_at AND p.scored_at < u.to_at");
+                    stored.Parameters.Add(new NpgsqlParameter<Guid[]> { TypedValue = [.. odd.Select(r => r.Id)], NpgsqlDbType = NpgsqlDbType.Array | NpgsqlDbType.Uuid });
+                    stored.Parameters.Add(new NpgsqlParameter<DateTime?[]> { TypedValue = [.. windows.Select(w => w.From)], NpgsqlDbType = NpgsqlDbType.Array | NpgsqlDbType.TimestampTz });
+                    stored.Parameters.Add(new NpgsqlParameter<DateTime?[]> { TypedValue = [.. windows.Select(w => w.To)], NpgsqlDbType = NpgsqlDbType.Array | NpgsqlDbType.TimestampTz });
+                    prelude.BatchCommands.Add(stored);
+                }
+
                 var minuteCounts = new NpgsqlBatchCommand(PredictionCopy.MinuteSql);
                 minuteCounts.Parameters.Add(TextArray(models));
                 minuteCounts.Parameters.Add(TextArray(versions));
                 minuteCounts.Parameters.Add(new NpgsqlParameter<long[]> { TypedValue = minutes, NpgsqlDbType = NpgsqlDbType.Array | NpgsqlDbType.Bigint });
                 minuteCounts.Parameters.Add(new NpgsqlParameter<long[]> { TypedValue = counts, NpgsqlDbType = NpgsqlDbType.Array | NpgsqlDbType.Bigint });
                 prelude.BatchCommands.Add(minuteCounts);
-                await using var reader = await prelude.ExecuteReaderAsync(cancellationToken).ConfigureAwait(false);
-                await reader.NextResultAsync(cancellationToken).ConfigureAwait(false);
-                await reader.ReadAsync(cancellationToken).ConfigureAwait(false);
-                batchNumber = reader.GetInt64(0);
+                if (odd.Length > 0)
+                {
+                    // Rows a lookup cannot find from their id alone (migration 0007); none when every id carries its time.
+                    var times = new NpgsqlBatchCommand("INSERT INTO prediction_times (id, scored_at) SELECT * FROM unnest($1::uuid[], $2::timestamptz[])");
+                    times.Parameters.Add(new NpgsqlParameter<Guid[]> { TypedValue = [.. odd.Select(r => r.Id)], NpgsqlDbType = NpgsqlDbType.Array | NpgsqlDbType.Uuid });
+                    times.Parameters.Add(new NpgsqlParameter<DateTime[]>
+                    {
+                        TypedValue = [.. odd.Select(r => PostgresValues.ToTimestamp(r.ScoredAt))], NpgsqlDbType = NpgsqlDbType.Array | NpgsqlDbType.TimestampTz,
+                    });
+                    prelude.BatchCommands.Add(times);
+                }
+
+                var storedAlready = false;
+                await using (var reader = await prelude.ExecuteReaderAsync(cancellationToken).ConfigureAwait(false))
+                {
+                    await reader.NextResultAsync(cancellationToken).ConfigureAwait(false);
+                    await reader.ReadAsync(cancellationToken).ConfigureAwait(false);
+                    batchNumber = reader.GetInt64(0);
+                    if (odd.Length > 0)
+                    {
+                        await reader.NextResultAsync(cancellationToken).ConfigureAwait(false);
+                        await reader.ReadAsync(cancellationToken).ConfigureAwait(false);
+                        storedAlready = reader.GetInt64(0) > 0;
+                    }
+                }
+
+                if (storedAlready)
+                {
+                    await transaction.RollbackAsync(CancellationToken.None).ConfigureAwait(false);
+                    throw await DuplicateIdErrorAsync(connection, batch, null, cancellationToken).ConfigureAwait(false);
+                }
             }
 
             await PredictionCopy.RunAsync(connection, batch, batchNumber * RowsPerBatchNumber, cancellationToken).ConfigureAwait(false);
             await transaction.CommitAsync(cancellationToken).ConfigureAwait(false);
         }
-        catch (PostgresException ex) when (ex.SqlState == PostgresErrorCodes.UniqueViolation && ex.ConstraintName == "predictions_pkey")
+        catch (PostgresException ex) when (ex.SqlState == PostgresErrorCodes.UniqueViolation && IsPredictionKey(ex.ConstraintName))
         {
             await transaction.RollbackAsync(CancellationToken.None).ConfigureAwait(false);
             throw await DuplicateIdErrorAsync(connection, batch, ex, cancellationToken).ConfigureAwait(false);
         }
     }
+
+    /// <summary>
+    /// The constraints that refuse a stored id: each partition's primary key (predictions_YYYYMMDD_pkey,
+    /// predictions_default_pkey) and prediction_times' for ids that do not carry their time.
+    /// </summary>
+    private static bool IsPredictionKey(string? constraint) =>
+        constraint is not null && (constraint == "prediction_times_pkey"
+            || (constraint.StartsWith("predictions_", StringComparison.Ordinal) && constraint.EndsWith("_pkey", StringComparison.Ordinal)));
 
     /// <summary>
     /// The error naming the first row of the batch that could not be written: the first whose id is already stored or
@@ -123,11 +173,21 @@ public sealed partial class PostgresScorerStore
         sqlState.StartsWith("22", StringComparison.Ordinal) || sqlState.StartsWith("23", StringComparison.Ordinal) || sqlState.StartsWith("54", StringComparison.Ordinal);
 
     /// <inheritdoc />
+    /// <remarks>
+    /// Reads the partitions of the time the id carries (<see cref="IdTimes"/>), and prediction_times for an id that
+    /// carries none: two index probes, whatever the number of partitions.
+    /// </remarks>
     public async Task<PredictionRecord?> GetPredictionAsync(Guid id, CancellationToken cancellationToken = default)
     {
         await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
-        await using var command = Command(connection, null, $"SELECT {PredictionColumns} FROM predictions WHERE id = $1");
+        await using var command = Command(connection, null,
+            $"SELECT {PredictionColumns} FROM predictions WHERE id = $1 AND scored_at >= $2 AND scored_at < $3 "
+            + $"UNION ALL SELECT {string.Join(", ", PredictionColumns.Split(", ").Select(c => "p." + c))} FROM prediction_times t "
+            + "JOIN predictions p ON p.id = t.id AND p.scored_at = t.scored_at WHERE t.id = $1 LIMIT 1");
+        var (from, to) = IdTimes.Window(id);
         command.Parameters.Add(new NpgsqlParameter<Guid> { TypedValue = id, NpgsqlDbType = NpgsqlDbType.Uuid });
+        command.Parameters.Add(new NpgsqlParameter<DateTime?> { TypedValue = from, NpgsqlDbType = NpgsqlDbType.TimestampTz });
+        command.Parameters.Add(new NpgsqlParameter<DateTime?> { TypedValue = to, NpgsqlDbType = NpgsqlDbType.TimestampTz });
         await using var reader = await command.ExecuteReaderAsync(cancellationToken).ConfigureAwait(false);
         return await reader.ReadAsync(cancellationToken).ConfigureAwait(false) ? ReadPrediction(reader) : null;
     }

@@ -37,7 +37,7 @@ namespace Scorer.Store.Postgres;
 /// (and the batch writes nothing), and a report by a key holding it is unknown.
 /// </para>
 /// </remarks>
-public sealed partial class PostgresScorerStore : IScorerStore
+public sealed partial class PostgresScorerStore : IScorerStore, IRetentionStore
 {
     /// <summary>Advisory lock held while migrating: replicas starting together migrate one after the other.</summary>
     internal const long MigrationLockKey = 0x5C0_5E57_0001;
@@ -91,10 +91,7 @@ public sealed partial class PostgresScorerStore : IScorerStore
             _schema = schema;
         }
 
-        if (options.PredictionRetention is { } retention && retention <= TimeSpan.Zero)
-        {
-            throw new ArgumentException($"PredictionRetention is {retention}; it must be positive (or null to keep predictions forever).", nameof(options));
-        }
+        RetentionRules.Check(options.PredictionRetention, options.OutcomeRetention, options.PruneInterval, nameof(options));
 
         // Statements the store runs over and over are prepared on each connection (Npgsql's automatic preparation),
         // unless the connection string says otherwise: the outcome statements cost about 40% less server CPU prepared
@@ -103,11 +100,6 @@ public sealed partial class PostgresScorerStore : IScorerStore
         {
             builder.MaxAutoPrepare = 64;
             builder.AutoPrepareMinUsages = 2;
-        }
-
-        if (options.PruneInterval <= TimeSpan.Zero)
-        {
-            throw new ArgumentException($"PruneInterval is {options.PruneInterval}; it must be positive.", nameof(options));
         }
 
         Options = options;

@@ -21,12 +21,11 @@ public sealed record PostgresStoreOptions
     /// How often the store's hosted service (registered by <c>AddPostgresStore</c>) applies the retention, on the
     /// host's clock: once at start, then every interval (an hour by default). Only with a <see cref="PredictionRetention"/>.
     /// </summary>
-    public TimeSpan PruneInterval { get; init; } = TimeSpan.FromHours(1);
-}
+    public TimeSpan PruneInterval { get; init; } = RetentionRules.DefaultPruneInterval;
 
-/// <summary>
-/// What one <see cref="PostgresScorerStore.PruneAsync"/> call did: <see cref="Deleted"/> predictions removed from the
-/// log, and <see cref="KeptAwaitingOutcome"/> predictions older than the retention kept because their outcome is still
-/// expected.
-/// </summary>
-public sealed record PruneResult(long Deleted, long KeptAwaitingOutcome);
+    /// <summary>
+    /// How long outcomes and outcome conflicts are kept (by the prediction's time, and the report's time for a
+    /// conflict); null (the default) keeps them forever. When set, at least <see cref="PredictionRetention"/>.
+    /// </summary>
+    public TimeSpan? OutcomeRetention { get; init; }
+}

@@ -14,8 +14,9 @@ public static class PostgresStoreServiceCollectionExtensions
     /// <see cref="PostgresScorerStore"/>, <see cref="IScorerStore"/>, each narrow store contract and
     /// <see cref="IStageChangeSignal"/> (stage changes announced by LISTEN/NOTIFY), one instance for all, on the
     /// container's <see cref="TimeProvider"/> (the system clock unless one is registered); and, as a hosted service,
-    /// its background work: the prediction log's retention (when <see cref="PostgresStoreOptions.PredictionRetention"/>
-    /// is set, every <see cref="PostgresStoreOptions.PruneInterval"/>) and the store's closing once the host has stopped.
+    /// its background work: the daily partitions made ahead and, when <see cref="PostgresStoreOptions.PredictionRetention"/>
+    /// is set, the retention (every <see cref="PostgresStoreOptions.PruneInterval"/>, in the holder of the retention
+    /// lease), counted in <see cref="RetentionCounters"/> (one for the process), and the store's closing once the host has stopped.
     /// </summary>
     /// <param name="services">The container.</param>
     /// <param name="connectionString">An Npgsql connection string.</param>
@@ -28,6 +29,8 @@ public static class PostgresStoreServiceCollectionExtensions
         services.TryAddSingleton(TimeProvider.System);
         StoreServices.AddStore(services, sp => PostgresScorerStore.ForConnectionString(connectionString, options, sp.GetRequiredService<TimeProvider>()));
         services.AddSingleton<IStageChangeSignal>(sp => sp.GetRequiredService<PostgresScorerStore>());
+        services.AddSingleton<IRetentionStore>(sp => sp.GetRequiredService<PostgresScorerStore>());
+        services.TryAddSingleton<RetentionCounters>();
         services.AddSingleton<IHostedService, PostgresStoreHost>();
         return services;
     }

@@ -29,10 +29,10 @@ namespace Scorer.Store.Sqlite;
 /// Leases are rows of the file with their holder and the end of the hold (<see cref="TryHoldLeaseAsync"/>), so at most
 /// one instance among all the processes on the file holds one. Outcome reports are checked and applied by the rules
 /// every driver shares (<see cref="OutcomeRules"/>). The class is split by concern: <c>.Stages</c>, <c>.Predictions</c>,
-/// <c>.Outcomes</c>, <c>.Labelled</c>, <c>.Drift</c>, <c>.Leases</c>; this file holds opening, migrating, writing and closing.
+/// <c>.Outcomes</c>, <c>.Labelled</c>, <c>.Drift</c>, <c>.Leases</c>, <c>.Retention</c>; this file holds opening, migrating, writing and closing.
 /// </para>
 /// </remarks>
-public sealed partial class SqliteScorerStore : IScorerStore, IStoreSpaceSignal
+public sealed partial class SqliteScorerStore : IScorerStore, IStoreSpaceSignal, IRetentionStore
 {
     private const string StageColumns = "model, version, file_sha256, loaded_at, stage";
     /// <summary>SQLite's result code for a write that found no room (disk full, or max_page_count reached).</summary>
@@ -66,6 +66,14 @@ public sealed partial class SqliteScorerStore : IScorerStore, IStoreSpaceSignal
                 $"The SQLite store's LeaseDuration is {options.LeaseDuration}; give a positive time span (the default is {SqliteStoreOptions.DefaultLeaseDuration}).");
         }
 
+        if (options.PruneBatchSize < 1)
+        {
+            throw new ArgumentOutOfRangeException(nameof(options), options.PruneBatchSize,
+                $"The SQLite store's PruneBatchSize is {options.PruneBatchSize}; give at least 1 (the default is {SqliteStoreOptions.DefaultPruneBatchSize}).");
+        }
+
+        RetentionRules.Check(options.PredictionRetention, options.OutcomeRetention, options.PruneInterval, nameof(options));
+        Options = options;
         _leaseMicroseconds = Math.Max(1, options.LeaseDuration.Ticks / StoreTime.TicksPerMicrosecond);
         _maxSizeBytes = options.MaxSizeBytes;
         if (builder.Mode == SqliteOpenMode.Memory || string.IsNullOrEmpty(builder.DataSource)
@@ -134,6 +142,9 @@ public sealed partial class SqliteScorerStore : IScorerStore, IStoreSpaceSignal
         ArgumentException.ThrowIfNullOrWhiteSpace(connectionString);
         return new SqliteScorerStore(new SqliteConnectionStringBuilder(connectionString), new SqliteStoreOptions(), clock ?? TimeProvider.System);
     }
+
+    /// <summary>The options the store was opened with.</summary>
+    public SqliteStoreOptions Options { get; }
 
     /// <summary>The smallest size limit the store takes: 1 MiB.</summary>
     public const long MinimumMaxSizeBytes = 1L << 20;
@@ -270,15 +281,23 @@ public sealed partial class SqliteScorerStore : IScorerStore, IStoreSpaceSignal
         }
     }
 
-    private async Task<T> WriteAsync<T>(Func<SqliteConnection, SqliteTransaction, T> work, CancellationToken cancellationToken)
+    private Task<T> WriteAsync<T>(Func<SqliteConnection, SqliteTransaction, T> work, CancellationToken cancellationToken) =>
+        WriteAsync(work, cancellationToken, took: null);
+
+    /// <param name="work">The transaction's statements.</param>
+    /// <param name="cancellationToken">Stops the wait for the write lock.</param>
+    /// <param name="took">Given how long the transaction lasted, from BEGIN IMMEDIATE to its COMMIT (the wait for the lock left out).</param>
+    private async Task<T> WriteAsync<T>(Func<SqliteConnection, SqliteTransaction, T> work, CancellationToken cancellationToken, Action<TimeSpan>? took)
     {
         await _writeLock.WaitAsync(cancellationToken).ConfigureAwait(false);
         try
         {
             await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
+            var started = System.Diagnostics.Stopwatch.GetTimestamp();
             using var transaction = connection.BeginTransaction(deferred: false);
             var result = work(connection, transaction);
             transaction.Commit();
+            took?.Invoke(System.Diagnostics.Stopwatch.GetElapsedTime(started));
             return result;
         }
         catch (SqliteException ex) when (ex.SqliteErrorCode == SqliteFull)

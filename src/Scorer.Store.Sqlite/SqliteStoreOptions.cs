@@ -21,4 +21,31 @@ public sealed record SqliteStoreOptions
     /// monitor renews once a round, <c>Scorer:Monitor:PollInterval</c>), or the lease passes between live instances.
     /// </summary>
     public TimeSpan LeaseDuration { get; init; } = DefaultLeaseDuration;
+
+    /// <summary>The rows a retention batch deletes at most unless set: 5,000 (see <see cref="PruneBatchSize"/>).</summary>
+    public const int DefaultPruneBatchSize = 5_000;
+
+    /// <summary>
+    /// How long logged predictions are kept before <see cref="SqliteScorerStore.PruneAsync"/> may delete them (see
+    /// there for which ones it deletes); null (the default) keeps them forever, and pruning deletes none.
+    /// </summary>
+    public TimeSpan? PredictionRetention { get; init; }
+
+    /// <summary>
+    /// How long outcomes and outcome conflicts are kept (by the prediction's time, and the report's time for a
+    /// conflict); null (the default) keeps them forever. When set, at least <see cref="PredictionRetention"/>.
+    /// </summary>
+    public TimeSpan? OutcomeRetention { get; init; }
+
+    /// <summary>
+    /// How often the store's hosted service (registered by <c>AddSqliteStore</c>) applies the retention, on the host's
+    /// clock: once at start, then every interval (an hour by default). Only with a <see cref="PredictionRetention"/>.
+    /// </summary>
+    public TimeSpan PruneInterval { get; init; } = RetentionRules.DefaultPruneInterval;
+
+    /// <summary>
+    /// The most rows one retention transaction deletes (5,000 by default): each batch is a short write transaction of
+    /// its own, so the prediction log's writer (and every other writer) waits at most one batch.
+    /// </summary>
+    public int PruneBatchSize { get; init; } = DefaultPruneBatchSize;
 }

@@ -14,11 +14,14 @@ public static class SqliteStoreServiceCollectionExtensions
     /// <see cref="SqliteScorerStore"/>, <see cref="IScorerStore"/>, each narrow store contract and
     /// <see cref="IStoreSpaceSignal"/>, one instance for all, on the container's <see cref="TimeProvider"/> (the system
     /// clock unless one is registered); and, as a hosted service, its closing once the host has stopped (after every
-    /// other hosted service, so that the prediction log drains into it first).
+    /// other hosted service, so that the prediction log drains into it first), after the retention loop when
+    /// <see cref="SqliteStoreOptions.PredictionRetention"/> is set (every <see cref="SqliteStoreOptions.PruneInterval"/>,
+    /// in the holder of the retention lease); with <see cref="RetentionCounters"/>, one for the process, counting
+    /// what the retention did.
     /// </summary>
     /// <param name="services">The container.</param>
     /// <param name="path">The database file.</param>
-    /// <param name="options">The store's settings (size limit, lease duration); the defaults when null.</param>
+    /// <param name="options">The store's settings (size limit, lease duration, retention); the defaults when null.</param>
     public static IServiceCollection AddSqliteStore(this IServiceCollection services, string path, SqliteStoreOptions? options = null)
     {
         ArgumentNullException.ThrowIfNull(services);
@@ -27,6 +30,8 @@ public static class SqliteStoreServiceCollectionExtensions
         services.TryAddSingleton(TimeProvider.System);
         StoreServices.AddStore(services, sp => SqliteScorerStore.ForFile(path, options, sp.GetRequiredService<TimeProvider>()));
         services.AddSingleton<IStoreSpaceSignal>(sp => sp.GetRequiredService<SqliteScorerStore>());
+        services.AddSingleton<IRetentionStore>(sp => sp.GetRequiredService<SqliteScorerStore>());
+        services.TryAddSingleton<RetentionCounters>();
         services.AddSingleton<IHostedService, SqliteStoreHost>();
         return services;
     }

@@ -19,6 +19,10 @@ public sealed class PostgresStoreContractTests(ITestOutputHelper output) : Store
     protected override async Task<IScorerStore> CreateStoreAsync() =>
         PostgresScorerStore.ForConnectionString(await PostgresServer.ConnectionStringAsync(), new PostgresStoreOptions { Schema = _schema });
 
+    protected override async Task<IScorerStore> CreateStoreAsync(TimeSpan? predictionRetention, TimeSpan? outcomeRetention) =>
+        PostgresScorerStore.ForConnectionString(await PostgresServer.ConnectionStringAsync(),
+            new PostgresStoreOptions { Schema = _schema, PredictionRetention = predictionRetention, OutcomeRetention = outcomeRetention });
+
     protected override Task DeleteStorageAsync() => PostgresServer.DropSchemaAsync(_schema);
 
     /// <summary>PostgreSQL text cannot hold U+0000 (SQLSTATE 22021), in a key or in the features.</summary>

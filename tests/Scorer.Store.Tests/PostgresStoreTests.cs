@@ -453,56 +453,6 @@ public sealed class PostgresStoreTests : IAsyncLifetime
 
     // ---- retention -----------------------------------------------------------------------------------------------
 
-    [Fact]
-    public async Task Without_a_retention_pruning_deletes_nothing()
-    {
-        var store = await OpenAsync();
-        var old = Prediction("renewal", "1", T0);
-        await store.WritePredictionsAsync([old]);
-        await store.RecordOutcomesAsync("renewal", [new OutcomeReport(old.Id, null, 1)], ConflictPolicy.KeepFirst, T0.AddDays(1));
-
-        Assert.Equal(new PruneResult(0, 0), await store.PruneAsync(T0.AddYears(10)));
-        Assert.Equal(1, await store.CountPredictionsAsync("renewal"));
-    }
-
-    [Fact]
-    public async Task Pruning_deletes_old_predictions_whose_outcome_is_recorded_or_whose_model_no_longer_serves_and_counts_the_old_ones_kept_awaiting_an_outcome()
-    {
-        var store = await OpenAsync(options: new PostgresStoreOptions { PredictionRetention = TimeSpan.FromDays(30) });
-        var now = T0.AddDays(40);
-        await store.AddVersionAsync(new ModelVersionRecord("renewal", "1", "aaaa", T0, Stage.Live), "loader");
-        await store.AddVersionAsync(new ModelVersionRecord("claims", "1", "bbbb", T0, Stage.Live), "loader");
-        await store.ChangeStagesAsync([new StageChange("claims", "1", Stage.Live, Stage.Retired, "ana", T0.AddDays(2))]);
-
-        var oldLabelled = Prediction("renewal", "1", T0);
-        var oldImplicit = Prediction("renewal", "1", T0.AddMinutes(1));
-        var oldAwaiting = Prediction("renewal", "1", T0.AddDays(5));
-        var recentLabelled = Prediction("renewal", "1", now.AddDays(-1));
-        var recentAwaiting = Prediction("renewal", "1", now.AddDays(-2));
-        var retiredModel = Prediction("claims", "1", T0);
-        var unknownModel = Prediction("pumps", "1", T0);
-        await store.WritePredictionsAsync([oldLabelled, oldImplicit, oldAwaiting, recentLabelled, recentAwaiting, retiredModel, unknownModel]);
-        await store.RecordOutcomesAsync("renewal", [new OutcomeReport(oldLabelled.Id, null, 1), new OutcomeReport(recentLabelled.Id, null, 0)],
-            ConflictPolicy.KeepFirst, T0.AddDays(3));
-        Assert.Equal(1, await store.RecordImplicitNegativesAsync("renewal", T0.AddMinutes(2), T0.AddDays(3))); // oldImplicit (oldLabelled has its outcome)
-
-        var result = await store.PruneAsync(now);
-
-        Assert.Equal(new PruneResult(4, 1), result); // oldLabelled, oldImplicit, retiredModel, unknownModel; oldAwaiting kept
-        Assert.Null(await store.GetPredictionAsync(oldLabelled.Id));
-        Assert.Null(await store.GetPredictionAsync(oldImplicit.Id));
-        Assert.Null(await store.GetPredictionAsync(retiredModel.Id));
-        Assert.Null(await store.GetPredictionAsync(unknownModel.Id));
-        Assert.NotNull(await store.GetPredictionAsync(oldAwaiting.Id));
-        Assert.NotNull(await store.GetPredictionAsync(recentLabelled.Id));
-        Assert.NotNull(await store.GetPredictionAsync(recentAwaiting.Id));
-
-        // The outcomes stay, with their copy of the prediction, and the counts kept beside the log stay too.
-        Assert.Equal([oldLabelled.Id, oldImplicit.Id, recentLabelled.Id], (await store.GetLabelledAsync("renewal", "1", T0, now)).Select(l => l.Id));
-        Assert.Equal(1, await store.CountPredictionsByMinuteAsync("renewal", "1", T0, T0.AddMinutes(1)));
-        Assert.Equal(new PruneResult(0, 1), await store.PruneAsync(now));
-    }
-
     [Theory]
     [InlineData(0)]
     [InlineData(-1)]

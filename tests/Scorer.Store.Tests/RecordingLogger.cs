@@ -13,8 +13,16 @@ internal sealed class RecordingLogger<T> : ILogger<T>
 
     public bool IsEnabled(LogLevel logLevel) => true;
 
-    public void Log<TState>(LogLevel logLevel, EventId eventId, TState state, Exception? exception, Func<TState, Exception?, string> formatter) =>
+    private readonly System.Collections.Concurrent.ConcurrentQueue<int> _ids = new();
+
+    public void Log<TState>(LogLevel logLevel, EventId eventId, TState state, Exception? exception, Func<TState, Exception?, string> formatter)
+    {
+        _ids.Enqueue(eventId.Id);
         _events.Writer.TryWrite((eventId, formatter(state, exception)));
+    }
+
+    /// <summary>How many events with the id <paramref name="id"/> were logged so far, whether or not a test waited on them.</summary>
+    public int Count(int id) => _ids.Count(i => i == id);
 
     /// <summary>The next event with the id <paramref name="id"/>, skipping others; fails after a minute without one (the test's bound, not a wait for time).</summary>
     public async Task<string> NextAsync(int id)

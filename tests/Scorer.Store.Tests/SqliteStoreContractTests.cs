@@ -15,6 +15,10 @@ public sealed class SqliteStoreContractTests(ITestOutputHelper output) : StoreCo
     protected override Task<IScorerStore> CreateStoreAsync() =>
         Task.FromResult<IScorerStore>(SqliteScorerStore.ForFile(Path.Combine(_folder.Path, "data", "scorer.db")));
 
+    protected override Task<IScorerStore> CreateStoreAsync(TimeSpan? predictionRetention, TimeSpan? outcomeRetention) =>
+        Task.FromResult<IScorerStore>(SqliteScorerStore.ForFile(Path.Combine(_folder.Path, "data", "scorer.db"),
+            new SqliteStoreOptions { PredictionRetention = predictionRetention, OutcomeRetention = outcomeRetention }));
+
     protected override Task DeleteStorageAsync()
     {
         _folder.Dispose();

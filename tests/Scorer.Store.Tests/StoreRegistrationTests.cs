@@ -20,11 +20,15 @@ public sealed class StoreRegistrationTests : IDisposable
     [Fact]
     public async Task The_sqlite_store_is_one_instance_behind_every_contract_and_its_space_signal_and_its_hosted_service_closes_it()
     {
-        var services = new ServiceCollection().AddSqliteStore(Path.Combine(_folder.Path, "scorer.db"));
+        var services = new ServiceCollection()
+            .AddSingleton(typeof(ILogger<>), typeof(NullLogger<>))
+            .AddSqliteStore(Path.Combine(_folder.Path, "scorer.db"));
         await using var provider = services.BuildServiceProvider();
 
         var store = provider.GetRequiredService<SqliteScorerStore>();
         Assert.All(Contracts, contract => Assert.Same(store, provider.GetRequiredService(contract)));
+        Assert.Same(store, provider.GetRequiredService<IRetentionStore>());
+        Assert.NotNull(provider.GetRequiredService<RetentionCounters>());
         Assert.Same(store, Assert.Single(provider.GetServices<IStoreSpaceSignal>()));
         Assert.Empty(provider.GetServices<IStageChangeSignal>());
 
@@ -48,6 +52,8 @@ public sealed class StoreRegistrationTests : IDisposable
         var store = provider.GetRequiredService<PostgresScorerStore>();
         Assert.All(Contracts, contract => Assert.Same(store, provider.GetRequiredService(contract)));
         Assert.Same(store, Assert.Single(provider.GetServices<IStageChangeSignal>()));
+        Assert.Same(store, provider.GetRequiredService<IRetentionStore>());
+        Assert.NotNull(provider.GetRequiredService<RetentionCounters>());
         Assert.Empty(provider.GetServices<IStoreSpaceSignal>());
         Assert.IsType<PostgresStoreHost>(Assert.Single(provider.GetServices<IHostedService>()));
         Assert.Equal("registration", store.Options.Schema);
