@@ -30,7 +30,7 @@ public sealed partial class ScorerMetrics
     public ScorerMetrics(ModelRegistry registry, PredictionLog log, ShadowScorer shadows, Scorer.Monitor.Reporting.MonitorLoop monitor,
         Scorer.Monitor.Reporting.ChartRunner charts, Scorer.Monitor.Reporting.DriftTracker drift, Scorer.Monitor.Reporting.StatusWebhook webhook, Scorer.Monitor.Reporting.LabelledCache rowCache,
         Scorer.Monitor.Reporting.SummaryReader summaries, EventSubscribers subscribers, ScoringLimits limits,
-        IEnumerable<IStoreSpaceSignal> spaces, ILogger<ScorerMetrics> logger)
+        IEnumerable<IStoreSpaceSignal> spaces, ILogger<ScorerMetrics> logger, RetentionCounters? retention = null)
     {
         _logger = logger;
         Registry = Metrics.NewCustomRegistry();
@@ -84,6 +84,11 @@ public sealed partial class ScorerMetrics
             "Labelled predictions the monitor's row cache holds, over every version (at most 1.25 x Scorer:Monitor:ExactRows per version).");
         var summaryBuckets = factory.CreateGauge("scorer_memory_bucket_documents", "Summary buckets this process holds for reports, over every version.");
         var summaryBytes = factory.CreateGauge("scorer_memory_bucket_bytes", "Bytes of the summary documents this process holds for reports.");
+        var prunePasses = factory.CreateCounter("scorer_store_retention_passes_total", "Retention passes this process ran (as the holder of the retention lease), since start.");
+        var pruned = factory.CreateCounter("scorer_store_pruned_rows_total", "Rows retention deleted, by table (predictions, outcomes, conflicts), since start.", "table");
+        var partitions = factory.CreateCounter("scorer_store_partitions_dropped_total", "PostgreSQL partitions retention dropped whole, since start.");
+        var awaiting = factory.CreateGauge("scorer_store_kept_awaiting_outcome_rows", "Predictions past the retention kept at the last pass because their outcome is still awaited.");
+        var longestBatch = factory.CreateGauge("scorer_store_retention_longest_batch_seconds", "The longest single pruning transaction so far (SQLite: one batch).");
         var storeFull = factory.CreateGauge("scorer_store_full", "1 while the store refuses writes for lack of space (SQLite: a full disk, or Scorer:Store:MaxSizeMegabytes reached), else 0.");
         var storeFullWrites = factory.CreateCounter("scorer_store_full_writes_total", "Writes the store refused for lack of space, since start.");
         registry.Changed += _ => reloads.Inc();
@@ -198,6 +203,17 @@ public sealed partial class ScorerMetrics
             RemoveOthers(cusumSignals, shown);
             chartVersions.Set(charts.Versions);
             cacheRows.Set(rowCache.Rows);
+            if (retention is not null)
+            {
+                prunePasses.IncTo(retention.Passes);
+                pruned.WithLabels("predictions").IncTo(retention.PredictionsDeleted);
+                pruned.WithLabels("outcomes").IncTo(retention.OutcomesDeleted);
+                pruned.WithLabels("conflicts").IncTo(retention.ConflictsDeleted);
+                partitions.IncTo(retention.PartitionsDropped);
+                awaiting.Set(retention.KeptAwaitingOutcome);
+                longestBatch.Set(retention.LongestBatch.TotalSeconds);
+            }
+
             var (_, buckets, bytes) = summaries.Size();
             summaryBuckets.Set(buckets);
             summaryBytes.Set(bytes);

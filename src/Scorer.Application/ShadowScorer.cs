@@ -114,7 +114,7 @@ public sealed class ShadowScorer : IAsyncDisposable
                         }
 
                         tally?.Add(r.Eta, work.Rows[i]);
-                        _log.TryEnqueue(new PredictionRecord(PredictionIds.Next(_time.GetUtcNow()), shadow.Model, shadow.Version, Stage.Shadow,
+                        _log.TryEnqueue(new PredictionRecord(PredictionIds.Next(work.ScoredAt), shadow.Model, shadow.Version, Stage.Shadow,
                             work.ScoredAt, work.Keys[i], r.Eta, r.Probability, LoggedFeatures.Json(shadow.Compiled, work.Rows[i]), work.LiveIds[i]));
                         Interlocked.Increment(ref _scored);
                     }
