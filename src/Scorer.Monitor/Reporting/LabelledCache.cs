@@ -17,7 +17,7 @@ namespace Scorer.Monitor.Reporting;
 /// last one, plus one sequential merge (linear in the version's rows) when something new arrived. Every replica keeps its own cache from the same
 /// store, so every replica reports the same numbers.
 /// </remarks>
-public sealed class LabelledCache(ILabelledStore store, MonitorOptions options)
+public sealed class LabelledCache(ILabelledStore store, MonitorOptions options, SummaryReader? summaries = null)
 {
     /// <summary>Changes read from the feed per page while catching up.</summary>
     private const int PageRows = 50_000;
@@ -68,9 +68,54 @@ public sealed class LabelledCache(ILabelledStore store, MonitorOptions options)
         }
     }
 
-    /// <summary>Reads the feed page by page to its end, evicting the oldest rows beyond the bound after each page.</summary>
+    /// <summary>
+    /// Reads the feed page by page to its end, evicting the oldest rows beyond the bound after each page. A version seen
+    /// for the first time, whose summaries are stored, is first loaded from the newest buckets that fit the bound (their
+    /// rows as the feed gave them up to the summaries' cursor), and the feed is read on from that cursor: a start reads
+    /// at most about ExactRows rows, not the version's history.
+    /// </summary>
     private async Task CatchUpAsync(VersionRows rows, string model, string version, CancellationToken cancellationToken)
     {
+        if (rows.Cursor == 0 && !rows.Seeded && summaries is not null)
+        {
+            rows.Seeded = true;
+            var (state, buckets) = await summaries.CountsAsync(model, version, cancellationToken).ConfigureAwait(false);
+            if (state is { Cursor: > 0 })
+            {
+                long held = 0;
+                DateTimeOffset? from = null;
+                foreach (var (start, count) in buckets)
+                {
+                    if (held + count > options.ExactRows)
+                    {
+                        break;
+                    }
+
+                    held += count;
+                    from = start;
+                }
+
+                var until = new DateTimeOffset(3000, 1, 1, 0, 0, 0, TimeSpan.Zero);
+                var since = from ?? until;
+                if (from is { } f)
+                {
+                    var points = await store.GetLabelledUpToAsync(model, version, f, until, state.Cursor, cancellationToken).ConfigureAwait(false);
+                    rows.Apply(new LabelledChanges(points, state.Cursor));
+                }
+                else
+                {
+                    rows.Apply(new LabelledChanges([], state.Cursor));
+                }
+
+                // Rows older than the buckets loaded were not read: older buckets' rows, and with a summary retention rows
+                // older than every bucket kept.
+                if ((buckets.Count > 0 && buckets[^1].Start < since) || options.SummaryRetention is not null)
+                {
+                    rows.EvictedBefore = since.UtcTicks;
+                }
+            }
+        }
+
         LabelledChanges changes;
         do
         {
@@ -115,6 +160,9 @@ public sealed class LabelledCache(ILabelledStore store, MonitorOptions options)
 
         /// <summary>Rows scored before this (ticks) were evicted: a window is complete here only if it starts at or after it.</summary>
         public long EvictedBefore = long.MinValue;
+
+        /// <summary>Whether the first load from the summaries was tried.</summary>
+        public bool Seeded;
 
         public int Count => Volatile.Read(ref _count);
 

@@ -113,6 +113,53 @@ public sealed class SummaryWriterTests : IAsyncLifetime
     }
 
     [Fact]
+    public async Task A_new_row_cache_loads_only_the_newest_buckets_that_fit_and_then_follows_the_feed()
+    {
+        // 96 hours of 10 rows each, labelled; the summaries written; then a fresh cache (as after a restart) with room for 250.
+        var predictions = Enumerable.Range(0, 960).Select(i =>
+        {
+            var at = T0.AddDays(2).AddMinutes(i * 6);
+            var p = 0.05 + 0.9 * (i * 7919 % 960) / 960.0;
+            return new PredictionRecord(Guid.CreateVersion7(at), Model, Version, Stage.Live, at, null, Math.Log(p / (1 - p)), p, "{}");
+        }).ToArray();
+        await _store.WritePredictionsAsync(predictions);
+        await _store.RecordOutcomesAsync(Model, [.. predictions.Take(900).Select((p, i) => new OutcomeReport(p.Id, null, (byte)(i % 4 == 0 ? 1 : 0)))],
+            ConflictPolicy.TakeLatest, _clock.GetUtcNow());
+        _clock.SetUtcNow(T0.AddDays(6));
+        await Writer().CatchUpAsync([(Model, Version)], CancellationToken.None);
+        // After the summaries' save: 60 more outcomes, which only the feed has.
+        await _store.RecordOutcomesAsync(Model, [.. predictions.Skip(900).Select(p => new OutcomeReport(p.Id, null, 1))], ConflictPolicy.TakeLatest, _clock.GetUtcNow());
+
+        var cache = new LabelledCache(_store, new MonitorOptions { ExactRows = 250 }, new SummaryReader(_store));
+        var buckets = (await _store.GetSummariesAsync(Model, Version, -1)).OrderByDescending(b => b.Start).ToList();
+        // The newest buckets (hours of 10 rows, and whole days) whose rows fit 250.
+        long held = 0;
+        var since = buckets[0].Start;
+        foreach (var b in buckets)
+        {
+            var count = LabelledSummary.Read(b.Summary).Count;
+            if (held + count > 250)
+            {
+                break;
+            }
+
+            held += count;
+            since = b.Start;
+        }
+
+        using (var recent = await cache.WindowAsync(Model, Version, since, T0.AddDays(30)))
+        {
+            Assert.True(recent.Complete);
+            var rows = await _store.GetLabelledAsync(Model, Version, since, T0.AddDays(30));
+            Assert.Equal(rows.Select(r => r.Probability).Order(), recent.Probability.ToArray());
+        }
+
+        Assert.InRange(cache.Rows, 1, held + 60);
+        using var older = await cache.WindowAsync(Model, Version, since.AddHours(-1), T0.AddDays(30));
+        Assert.False(older.Complete);
+    }
+
+    [Fact]
     public async Task The_row_cache_keeps_the_newest_exact_rows_and_says_which_windows_it_no_longer_holds_whole()
     {
         var predictions = Enumerable.Range(0, 2000).Select(i =>
