@@ -112,27 +112,9 @@ public static class CalibrationStatistics
 
         var brier = squaredError / n;
         var reliability = ReliabilityTable.Rows(reliabilityCount, reliabilityEvents, reliabilitySum, z);
-        var ece = 0.0;
-        foreach (var row in reliability)
-        {
-            ece += (double)row.Count / n * Math.Abs(row.ObservedRate - row.MeanPredicted);
-        }
-
-        Interval? observedExpected = null;
-        if (events > 0 && expected > 0)
-        {
-            var ratio = events / expected;
-            var halfWidth = z / Math.Sqrt(events);
-            var logRatio = Math.Log(ratio);
-            observedExpected = new Interval(ratio, Math.Exp(logRatio - halfWidth), Math.Exp(logRatio + halfWidth));
-        }
-
-        SpiegelhalterTest? spiegelhalter = null;
-        if (spiegelVariance > 0)
-        {
-            var zStatistic = spiegelNumerator / Math.Sqrt(spiegelVariance);
-            spiegelhalter = new SpiegelhalterTest(zStatistic, Tails.TwoSidedNormal(zStatistic));
-        }
+        var ece = Ece(reliability, n);
+        var observedExpected = ObservedExpected(events, expected, z);
+        var spiegelhalter = Spiegelhalter(spiegelNumerator, spiegelVariance);
 
         // The two calibration fits are independent passes over the logits: they run on two other threads while this one
         // forms Hosmer–Lemeshow and the AUC from the sorted rows.
@@ -180,15 +162,53 @@ public static class CalibrationStatistics
 
         return new CalibrationReport(
             n, events, expected, observedExpected, intercept, slope, slopeIntercept, spiegelhalter, hosmerLemeshow,
-            brier, Murphy(murphyCount, murphyEvents, murphySum, n, events, brier), logLoss / n, ece, reliability, auc);
+            brier, Murphy([.. murphyCount.Select(c => (long)c)], [.. murphyEvents.Select(c => (long)c)], murphySum, n, events, brier), logLoss / n, ece, reliability, auc);
+    }
+
+    /// <summary>The expected calibration error Σ_b (n_b/n) |ō_b − p̄_b| over the reliability bins.</summary>
+    internal static double Ece(IReadOnlyList<ReliabilityBin> reliability, int n)
+    {
+        var ece = 0.0;
+        foreach (var row in reliability)
+        {
+            ece += (double)row.Count / n * Math.Abs(row.ObservedRate - row.MeanPredicted);
+        }
+
+        return ece;
+    }
+
+    /// <summary>O/E with the interval exp(ln(O/E) ∓ z/√O); null when O or E is 0.</summary>
+    internal static Interval? ObservedExpected(long events, double expected, double z)
+    {
+        if (events == 0 || !(expected > 0))
+        {
+            return null;
+        }
+
+        var ratio = events / expected;
+        var halfWidth = z / Math.Sqrt(events);
+        var logRatio = Math.Log(ratio);
+        return new Interval(ratio, Math.Exp(logRatio - halfWidth), Math.Exp(logRatio + halfWidth));
+    }
+
+    /// <summary>Spiegelhalter's z and its two-sided p from the numerator and variance sums; null when the variance is 0.</summary>
+    internal static SpiegelhalterTest? Spiegelhalter(double numerator, double variance)
+    {
+        if (!(variance > 0))
+        {
+            return null;
+        }
+
+        var zStatistic = numerator / Math.Sqrt(variance);
+        return new SpiegelhalterTest(zStatistic, Tails.TwoSidedNormal(zStatistic));
     }
 
     /// <summary>Murphy (1973): reliability, resolution and uncertainty over the bins, and the within-bin remainder.</summary>
-    private static MurphyDecomposition Murphy(int[] count, int[] events, double[] sum, int n, int totalEvents, double brier)
+    internal static MurphyDecomposition Murphy(IReadOnlyList<long> count, IReadOnlyList<long> events, IReadOnlyList<double> sum, int n, int totalEvents, double brier)
     {
         var overall = (double)totalEvents / n;
         double reliability = 0.0, resolution = 0.0;
-        for (var b = 0; b < count.Length; b++)
+        for (var b = 0; b < count.Count; b++)
         {
             if (count[b] == 0)
             {

@@ -79,16 +79,7 @@ public sealed partial class SqliteScorerStore
         return WriteAsync(
             (connection, transaction) =>
             {
-                using (var renew = Command(connection, transaction, "UPDATE leases SET expires_at = $expires WHERE name = $lease AND holder = $holder;"))
-                {
-                    renew.Parameters.AddWithValue("$lease", lease);
-                    renew.Parameters.AddWithValue("$holder", LeaseHolder);
-                    renew.Parameters.AddWithValue("$expires", now + _leaseMicroseconds);
-                    if (renew.ExecuteNonQuery() != 1)
-                    {
-                        throw new LeaseLostException(lease); // the transaction is rolled back: nothing written
-                    }
-                }
+                RenewOrThrow(connection, transaction, lease, now);
 
                 using var save = Command(connection, transaction,
                     "INSERT INTO chart_states (model, version, state, saved_at) VALUES ($model, $version, $state, $now) "
@@ -100,6 +91,22 @@ public sealed partial class SqliteScorerStore
                 return save.ExecuteNonQuery();
             },
             cancellationToken);
+    }
+
+    /// <summary>
+    /// Renews this instance's hold of <paramref name="lease"/> inside a write transaction, or throws
+    /// <see cref="LeaseLostException"/> (the transaction is then rolled back: nothing written), for saves fenced by a lease.
+    /// </summary>
+    private void RenewOrThrow(SqliteConnection connection, SqliteTransaction transaction, string lease, long now)
+    {
+        using var renew = Command(connection, transaction, "UPDATE leases SET expires_at = $expires WHERE name = $lease AND holder = $holder;");
+        renew.Parameters.AddWithValue("$lease", lease);
+        renew.Parameters.AddWithValue("$holder", LeaseHolder);
+        renew.Parameters.AddWithValue("$expires", now + _leaseMicroseconds);
+        if (renew.ExecuteNonQuery() != 1)
+        {
+            throw new LeaseLostException(lease);
+        }
     }
 
     /// <inheritdoc />

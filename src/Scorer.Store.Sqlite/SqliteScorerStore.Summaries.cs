@@ -54,16 +54,7 @@ public sealed partial class SqliteScorerStore
         return WriteAsync(
             (connection, transaction) =>
             {
-                using (var renew = Command(connection, transaction, "UPDATE leases SET expires_at = $expires WHERE name = $lease AND holder = $holder;"))
-                {
-                    renew.Parameters.AddWithValue("$lease", lease);
-                    renew.Parameters.AddWithValue("$holder", LeaseHolder);
-                    renew.Parameters.AddWithValue("$expires", now + _leaseMicroseconds);
-                    if (renew.ExecuteNonQuery() != 1)
-                    {
-                        throw new LeaseLostException(lease); // the transaction is rolled back: nothing written
-                    }
-                }
+                RenewOrThrow(connection, transaction, lease, now);
 
                 using (var delete = Command(connection, transaction,
                     "DELETE FROM labelled_summaries WHERE model = $model AND version = $version AND segment = $segment AND bucket_start = $start;"))

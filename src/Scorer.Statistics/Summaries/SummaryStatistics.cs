@@ -37,27 +37,9 @@ public static class SummaryStatistics
         var expected = summary.SumP;
         var brier = summary.SumSquaredError / n;
         var reliability = ReliabilityTable.Rows(ToInt(summary.ReliabilityCount), ToInt(summary.ReliabilityEvents), summary.ReliabilitySum, z);
-        var ece = 0.0;
-        foreach (var row in reliability)
-        {
-            ece += (double)row.Count / n * Math.Abs(row.ObservedRate - row.MeanPredicted);
-        }
-
-        Interval? observedExpected = null;
-        if (events > 0 && expected > 0)
-        {
-            var ratio = events / expected;
-            var halfWidth = z / Math.Sqrt(events);
-            var logRatio = Math.Log(ratio);
-            observedExpected = new Interval(ratio, Math.Exp(logRatio - halfWidth), Math.Exp(logRatio + halfWidth));
-        }
-
-        SpiegelhalterTest? spiegelhalter = null;
-        if (summary.SpiegelhalterVariance > 0)
-        {
-            var zStatistic = summary.SpiegelhalterNumerator / Math.Sqrt(summary.SpiegelhalterVariance);
-            spiegelhalter = new SpiegelhalterTest(zStatistic, Tails.TwoSidedNormal(zStatistic));
-        }
+        var ece = CalibrationStatistics.Ece(reliability, n);
+        var observedExpected = CalibrationStatistics.ObservedExpected(events, expected, z);
+        var spiegelhalter = CalibrationStatistics.Spiegelhalter(summary.SpiegelhalterNumerator, summary.SpiegelhalterVariance);
 
         var bins = summary.OccupiedEtaBins().Select(Grouped.Of).ToArray();
         FittedValue? intercept = null, slope = null;
@@ -79,37 +61,13 @@ public static class SummaryStatistics
             auc = Auc(bins, events, n - events, z);
         }
 
-        var murphy = Murphy(summary, n, events, brier);
+        var murphy = CalibrationStatistics.Murphy(summary.MurphyCount, summary.MurphyEvents, summary.MurphySum, n, events, brier);
         return new CalibrationReport(
             n, events, expected, observedExpected, intercept, slope, slopeIntercept, spiegelhalter, HosmerLemeshowOf(bins, n, groups),
             brier, murphy, summary.SumLogLoss / n, ece, reliability, auc);
     }
 
     private static int[] ToInt(long[] values) => [.. values.Select(v => checked((int)v))];
-
-    private static MurphyDecomposition Murphy(LabelledSummary s, int n, int totalEvents, double brier)
-    {
-        var overall = (double)totalEvents / n;
-        double reliability = 0.0, resolution = 0.0;
-        for (var b = 0; b < LabelledSummary.ProbabilityBins; b++)
-        {
-            var count = s.MurphyCount[b];
-            if (count == 0)
-            {
-                continue;
-            }
-
-            var meanP = s.MurphySum[b] / count;
-            var rate = (double)s.MurphyEvents[b] / count;
-            reliability += count * (meanP - rate) * (meanP - rate);
-            resolution += count * (rate - overall) * (rate - overall);
-        }
-
-        reliability /= n;
-        resolution /= n;
-        var uncertainty = overall * (1.0 - overall);
-        return new MurphyDecomposition(reliability, resolution, uncertainty, brier - (reliability - resolution + uncertainty));
-    }
 
     /// <summary>
     /// A bin as the fits use it: rows n, events, mean η m, the sum of squares about the mean S = Σ(η − m)², and Σ_{y=1} η.
