@@ -52,6 +52,13 @@ public static class Program
             return;
         }
 
+        if (args.Length > 4 && args[0] == "--soak")
+        {
+            var ci = System.Globalization.CultureInfo.InvariantCulture;
+            Soak.RunAsync(args[1], int.Parse(args[2], ci), int.Parse(args[3], ci), int.Parse(args[4], ci)).GetAwaiter().GetResult();
+            return;
+        }
+
         if (args.Length > 0 && args[0] == "--summary-report")
         {
             SummaryReportSpeed.Run();

@@ -45,8 +45,8 @@ public static class VolumeMemory
             var random = new Random(20261203);
             var now = TimeProvider.System.GetUtcNow(); // the server runs on the system clock too
             long written = 0;
-            Console.WriteLine("| labelled predictions | resident MB | 30d report ms (median of 5) | method (30d) | status |");
-            Console.WriteLine("| --- | --- | --- | --- | --- |");
+            Console.WriteLine("| labelled predictions | resident MB | managed heap MB | GC committed MB | SQLite MB | 30d report ms (median of 5) | method (30d) | status |");
+            Console.WriteLine("| --- | --- | --- | --- | --- | --- | --- | --- |");
             await Checkpoint(0);
             for (var million = 1; million <= millions; million++)
             {
@@ -97,10 +97,15 @@ public static class VolumeMemory
             Array.Sort(times);
             var rss = File.ReadAllLines($"/proc/{server.Id}/status").First(l => l.StartsWith("VmRSS:", StringComparison.Ordinal));
             var kb = long.Parse(rss.Split(' ', StringSplitOptions.RemoveEmptyEntries)[1], CultureInfo.InvariantCulture);
+            var metrics = await http.GetStringAsync("/metrics");
             Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
-                $"| {labelled:N0} | {kb / 1024.0:F0} | {times[2]:F0} | {(report.TryGetProperty("method", out var m) ? m.GetString() : "")} | {report.GetProperty("status").GetString()} |"));
+                $"| {labelled:N0} | {kb / 1024.0:F0} | {Gauge(metrics, "scorer_memory_managed_heap_bytes") / 1048576:F0} | {Gauge(metrics, "scorer_memory_managed_committed_bytes") / 1048576:F0} | {Gauge(metrics, "scorer_memory_store_cache_bytes") / 1048576:F0} | {times[2]:F0} | {(report.TryGetProperty("method", out var m) ? m.GetString() : "")} | {report.GetProperty("status").GetString()} |"));
         }
     }
+
+    /// <summary>The value of an unlabelled gauge in a Prometheus text scrape.</summary>
+    internal static double Gauge(string scrape, string name) =>
+        double.Parse(scrape.Split('\n').First(l => l.StartsWith(name + " ", StringComparison.Ordinal))[(name.Length + 1)..], CultureInfo.InvariantCulture);
 
     private static double Normal(Random random) => Math.Sqrt(-2.0 * Math.Log(1.0 - random.NextDouble())) * Math.Cos(2.0 * Math.PI * random.NextDouble());
 

@@ -30,7 +30,7 @@ public sealed partial class ScorerMetrics
     public ScorerMetrics(ModelRegistry registry, PredictionLog log, ShadowScorer shadows, Scorer.Monitor.Reporting.MonitorLoop monitor,
         Scorer.Monitor.Reporting.ChartRunner charts, Scorer.Monitor.Reporting.DriftTracker drift, Scorer.Monitor.Reporting.StatusWebhook webhook, Scorer.Monitor.Reporting.LabelledCache rowCache,
         Scorer.Monitor.Reporting.SummaryReader summaries, EventSubscribers subscribers, ScoringLimits limits,
-        IEnumerable<IStoreSpaceSignal> spaces, ILogger<ScorerMetrics> logger, RetentionCounters? retention = null)
+        IEnumerable<IStoreSpaceSignal> spaces, IEnumerable<IStoreMemorySignal> storeMemory, ILogger<ScorerMetrics> logger, RetentionCounters? retention = null)
     {
         _logger = logger;
         Registry = Metrics.NewCustomRegistry();
@@ -84,6 +84,11 @@ public sealed partial class ScorerMetrics
             "Labelled predictions the monitor's row cache holds, over every version (at most 1.25 x Scorer:Monitor:ExactRows per version).");
         var summaryBuckets = factory.CreateGauge("scorer_memory_bucket_documents", "Summary buckets this process holds for reports, over every version.");
         var summaryBytes = factory.CreateGauge("scorer_memory_bucket_bytes", "Bytes of the summary documents this process holds for reports.");
+        var resident = factory.CreateGauge("scorer_memory_resident_bytes", "Resident memory of the process (its working set), read at the scrape.");
+        var heap = factory.CreateGauge("scorer_memory_managed_heap_bytes", "The managed heap's size after the last garbage collection.");
+        var committed = factory.CreateGauge("scorer_memory_managed_committed_bytes", "Memory the garbage collector has committed for the managed heap (in use and held for reuse).");
+        var storeHeld = factory.CreateGauge("scorer_memory_store_cache_bytes",
+            "Memory the store's driver holds in this process (SQLite: page caches and statements, bounded by Scorer:Store:WriteCacheMegabytes and ReadCacheMegabytes); 0 for PostgreSQL.");
         var prunePasses = factory.CreateCounter("scorer_store_retention_passes_total", "Retention passes this process ran (as the holder of the retention lease), since start.");
         var pruned = factory.CreateCounter("scorer_store_pruned_rows_total", "Rows retention deleted, by table (predictions, outcomes, conflicts), since start.", "table");
         var partitions = factory.CreateCounter("scorer_store_partitions_dropped_total", "PostgreSQL partitions retention dropped whole, since start.");
@@ -217,6 +222,11 @@ public sealed partial class ScorerMetrics
             var (_, buckets, bytes) = summaries.Size();
             summaryBuckets.Set(buckets);
             summaryBytes.Set(bytes);
+            var gc = GC.GetGCMemoryInfo();
+            resident.Set(Environment.WorkingSet);
+            heap.Set(gc.HeapSizeBytes);
+            committed.Set(gc.TotalCommittedBytes);
+            storeHeld.Set(storeMemory.Sum(m => m.HeldBytes));
         }
 
         Registry.AddBeforeCollectCallback(() =>

@@ -236,6 +236,12 @@ public sealed class StoreOptions
     /// </summary>
     public long? MaxSizeMegabytes { get; set; }
 
+    /// <summary>SQLite: the page cache of the connection that writes, in MiB (default 64); it speeds outcomes arriving in random order.</summary>
+    public int WriteCacheMegabytes { get; set; } = (int)(Scorer.Store.Sqlite.SqliteStoreOptions.DefaultWriteCacheBytes >> 20);
+
+    /// <summary>SQLite: the page cache of each connection that reads, in MiB (default 8); one per read running at once.</summary>
+    public int ReadCacheMegabytes { get; set; } = (int)(Scorer.Store.Sqlite.SqliteStoreOptions.DefaultReadCacheBytes >> 20);
+
     public IEnumerable<string> Validate()
     {
         switch (Kind)
@@ -279,6 +285,14 @@ public sealed class StoreOptions
         foreach (var problem in RetentionRules.Problems(PredictionRetention, OutcomeRetention, PruneInterval, "Scorer:Store:"))
         {
             yield return problem;
+        }
+
+        foreach (var (name, megabytes) in new[] { ("WriteCacheMegabytes", WriteCacheMegabytes), ("ReadCacheMegabytes", ReadCacheMegabytes) })
+        {
+            if (megabytes < 1)
+            {
+                yield return $"Scorer:Store:{name} is {megabytes}; give a page cache in MiB of at least 1";
+            }
         }
 
         if (PruneBatchSize < 1)

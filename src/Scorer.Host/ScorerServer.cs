@@ -41,6 +41,8 @@ public static class ScorerServer
                 OutcomeRetention = store.OutcomeRetention,
                 PruneInterval = store.PruneInterval,
                 PruneBatchSize = store.PruneBatchSize,
+                WriteCacheBytes = (long)store.WriteCacheMegabytes << 20,
+                ReadCacheBytes = (long)store.ReadCacheMegabytes << 20,
             }),
             ["postgres"] = (services, store) => services.AddPostgresStore(store.ConnectionString!, new PostgresStoreOptions
             {

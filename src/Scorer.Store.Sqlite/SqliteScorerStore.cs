@@ -32,7 +32,7 @@ namespace Scorer.Store.Sqlite;
 /// <c>.Outcomes</c>, <c>.Labelled</c>, <c>.Drift</c>, <c>.Leases</c>, <c>.Retention</c>; this file holds opening, migrating, writing and closing.
 /// </para>
 /// </remarks>
-public sealed partial class SqliteScorerStore : IScorerStore, IStoreSpaceSignal, IRetentionStore
+public sealed partial class SqliteScorerStore : IScorerStore, IStoreSpaceSignal, IStoreMemorySignal, IRetentionStore
 {
     private const string StageColumns = "model, version, file_sha256, loaded_at, stage";
     /// <summary>SQLite's result code for a write that found no room (disk full, or max_page_count reached).</summary>
@@ -41,7 +41,9 @@ public sealed partial class SqliteScorerStore : IScorerStore, IStoreSpaceSignal,
     private const string PredictionColumns = "id, model, version, stage, scored_at, \"key\", eta, probability, features, live_id";
 
     private readonly string _connectionString;
-    private readonly string _connectionPragmas;
+    private readonly string _writeConnectionString;
+    private readonly string _readPragmas;
+    private readonly string _writePragmas;
     private readonly TimeProvider _clock;
     private readonly SemaphoreSlim _writeLock = new(1, 1);
     private readonly long _leaseMicroseconds;
@@ -72,6 +74,12 @@ public sealed partial class SqliteScorerStore : IScorerStore, IStoreSpaceSignal,
                 $"The SQLite store's PruneBatchSize is {options.PruneBatchSize}; give at least 1 (the default is {SqliteStoreOptions.DefaultPruneBatchSize}).");
         }
 
+        if (options.WriteCacheBytes < 1L << 20 || options.ReadCacheBytes < 1L << 20)
+        {
+            throw new ArgumentOutOfRangeException(nameof(options), (options.WriteCacheBytes, options.ReadCacheBytes),
+                $"The SQLite store's page caches are {options.WriteCacheBytes} bytes (WriteCacheBytes) and {options.ReadCacheBytes} (ReadCacheBytes); give at least 1 MiB each.");
+        }
+
         RetentionRules.Check(options.PredictionRetention, options.OutcomeRetention, options.PruneInterval, nameof(options));
         Options = options;
         _leaseMicroseconds = Math.Max(1, options.LeaseDuration.Ticks / StoreTime.TicksPerMicrosecond);
@@ -95,15 +103,23 @@ public sealed partial class SqliteScorerStore : IScorerStore, IStoreSpaceSignal,
 
         builder.ForeignKeys = true;
         _connectionString = builder.ToString();
+        _writeConnectionString = builder.Cache == SqliteCacheMode.Default
+            ? new SqliteConnectionStringBuilder(_connectionString) { Cache = SqliteCacheMode.Private }.ToString()
+            : _connectionString;
         // Per connection, so applied on every open. A checkpoint every 16,384 pages (64 MiB of WAL at 4 KiB pages)
         // rather than SQLite's 1,000: batches of keyed predictions dirty many index pages each, and with the default
         // nearly every batch paid for a checkpoint and its fsync (this roughly doubled the rate of such batches).
-        // cache_size: 64 MiB of pages per connection rather than SQLite's 2 MiB; outcomes arriving in random order touch
-        // pages all over the outcomes indexes (measured with bench/Scorer.Bench --outcomes: about 4 cache misses per
-        // outcome at 2 MiB, 0.2 at 256 MiB).
+        // cache_size: each connection keeps its own page cache, and the pool keeps connections open, so the memory is
+        // the cache size times the connections open at once. Writes (one at a time, under the write lock) get a large
+        // cache (64 MiB unless set, rather than SQLite's 2 MiB): outcomes arriving in random order touch pages all over
+        // the outcomes indexes (measured with bench/Scorer.Bench --outcomes: about 4 cache misses per outcome at 2 MiB,
+        // 0.2 at 256 MiB). Reads (reports, the change feed; several at once) get a small one (8 MiB unless set): they
+        // read pages once, and the system's file cache serves the rest. The two kinds pool apart: the write connections'
+        // string asks for a private cache explicitly (Cache=Private), which is what a connection has anyway when the
+        // shared cache is off (the default), but makes a different pool key.
         var busyTimeoutMs = (long)builder.DefaultTimeout * 1000;
-        _connectionPragmas = string.Create(
-            CultureInfo.InvariantCulture, $"PRAGMA synchronous = NORMAL; PRAGMA wal_autocheckpoint = 16384; PRAGMA cache_size = -65536; PRAGMA busy_timeout = {busyTimeoutMs};");
+        _readPragmas = Pragmas(busyTimeoutMs, options.ReadCacheBytes);
+        _writePragmas = Pragmas(busyTimeoutMs, options.WriteCacheBytes);
         _clock = clock;
     }
 
@@ -162,6 +178,9 @@ public sealed partial class SqliteScorerStore : IScorerStore, IStoreSpaceSignal,
     /// <inheritdoc />
     public long FullWrites => Interlocked.Read(ref _fullWrites);
 
+    /// <inheritdoc />
+    public long HeldBytes => SQLitePCL.raw.sqlite3_memory_used();
+
     /// <summary>The highest migration this build knows; the schema version after <see cref="MigrateAsync"/>.</summary>
     public static int LatestSchemaVersion => Migration.All[^1].Version;
 
@@ -171,7 +190,7 @@ public sealed partial class SqliteScorerStore : IScorerStore, IStoreSpaceSignal,
         await _writeLock.WaitAsync(cancellationToken).ConfigureAwait(false);
         try
         {
-            await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
+            await using var connection = await OpenAsync(write: true, cancellationToken).ConfigureAwait(false);
 
             // The journal mode belongs to the file and cannot change inside a transaction.
             var journalMode = Convert.ToString(Scalar(connection, null, "PRAGMA journal_mode = WAL;"), CultureInfo.InvariantCulture);
@@ -240,6 +259,8 @@ public sealed partial class SqliteScorerStore : IScorerStore, IStoreSpaceSignal,
             _disposed = true;
             using var connection = new SqliteConnection(_connectionString);
             SqliteConnection.ClearPool(connection);
+            using var writer = new SqliteConnection(_writeConnectionString);
+            SqliteConnection.ClearPool(writer);
         }
     }
 
@@ -249,17 +270,23 @@ public sealed partial class SqliteScorerStore : IScorerStore, IStoreSpaceSignal,
     /// </summary>
     public string LeaseHolder { get; } = string.Create(CultureInfo.InvariantCulture, $"{Environment.ProcessId}/{Guid.NewGuid():N}");
 
-    /// <summary>A connection with this store's settings applied; for the tests' look at the file.</summary>
-    internal async Task<SqliteConnection> OpenAsync(CancellationToken cancellationToken)
+    private static string Pragmas(long busyTimeoutMs, long cacheBytes) => string.Create(CultureInfo.InvariantCulture,
+        $"PRAGMA synchronous = NORMAL; PRAGMA wal_autocheckpoint = 16384; PRAGMA cache_size = -{Math.Max(1, cacheBytes >> 10)}; PRAGMA busy_timeout = {busyTimeoutMs};");
+
+    /// <summary>A connection with this store's settings applied, for reading (a small page cache); also the tests' look at the file.</summary>
+    internal Task<SqliteConnection> OpenAsync(CancellationToken cancellationToken) => OpenAsync(write: false, cancellationToken);
+
+    /// <summary>A connection with this store's settings applied: for <paramref name="write"/>s (under the write lock) with the large page cache.</summary>
+    private async Task<SqliteConnection> OpenAsync(bool write, CancellationToken cancellationToken)
     {
         ObjectDisposedException.ThrowIf(_disposed, this);
-        var connection = new SqliteConnection(_connectionString);
+        var connection = new SqliteConnection(write ? _writeConnectionString : _connectionString);
         try
         {
             await connection.OpenAsync(cancellationToken).ConfigureAwait(false);
 
             // Per connection, not per file; cheap enough to repeat on every (pooled) open.
-            Execute(connection, null, _connectionPragmas);
+            Execute(connection, null, write ? _writePragmas : _readPragmas);
             if (_maxSizeBytes is { } maxSize)
             {
                 // The limit in pages of the file's page size (read once); SQLite refuses a write that would grow the file
@@ -292,7 +319,7 @@ public sealed partial class SqliteScorerStore : IScorerStore, IStoreSpaceSignal,
         await _writeLock.WaitAsync(cancellationToken).ConfigureAwait(false);
         try
         {
-            await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
+            await using var connection = await OpenAsync(write: true, cancellationToken).ConfigureAwait(false);
             var started = System.Diagnostics.Stopwatch.GetTimestamp();
             using var transaction = connection.BeginTransaction(deferred: false);
             var result = work(connection, transaction);

@@ -48,4 +48,24 @@ public sealed record SqliteStoreOptions
     /// its own, so the prediction log's writer (and every other writer) waits at most one batch.
     /// </summary>
     public int PruneBatchSize { get; init; } = DefaultPruneBatchSize;
+
+    /// <summary>The page cache of the write connection unless set: 64 MiB.</summary>
+    public const long DefaultWriteCacheBytes = 64L << 20;
+
+    /// <summary>The page cache of each read connection unless set: 8 MiB.</summary>
+    public const long DefaultReadCacheBytes = 8L << 20;
+
+    /// <summary>
+    /// The page cache of the connection that writes (one at a time, under the store's write lock), in bytes (64 MiB by
+    /// default): outcomes by id or key, arriving in random order, read index pages all over the file, and each page
+    /// found in the cache saves a read. At least 1 MiB.
+    /// </summary>
+    public long WriteCacheBytes { get; init; } = DefaultWriteCacheBytes;
+
+    /// <summary>
+    /// The page cache of each connection that reads (reports, the change feed, the summaries; as many as run at once),
+    /// in bytes (8 MiB by default). The store's memory is about <see cref="WriteCacheBytes"/> plus this times the reads
+    /// running at once. At least 1 MiB.
+    /// </summary>
+    public long ReadCacheBytes { get; init; } = DefaultReadCacheBytes;
 }

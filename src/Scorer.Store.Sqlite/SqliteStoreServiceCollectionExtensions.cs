@@ -11,8 +11,8 @@ public static class SqliteStoreServiceCollectionExtensions
 {
     /// <summary>
     /// Registers the SQLite store over the file at <paramref name="path"/> (created with its folder when missing) as
-    /// <see cref="SqliteScorerStore"/>, <see cref="IScorerStore"/>, each narrow store contract and
-    /// <see cref="IStoreSpaceSignal"/>, one instance for all, on the container's <see cref="TimeProvider"/> (the system
+    /// <see cref="SqliteScorerStore"/>, <see cref="IScorerStore"/>, each narrow store contract,
+    /// <see cref="IStoreSpaceSignal"/> and <see cref="IStoreMemorySignal"/>, one instance for all, on the container's <see cref="TimeProvider"/> (the system
     /// clock unless one is registered); and, as a hosted service, its closing once the host has stopped (after every
     /// other hosted service, so that the prediction log drains into it first), after the retention loop when
     /// <see cref="SqliteStoreOptions.PredictionRetention"/> is set (every <see cref="SqliteStoreOptions.PruneInterval"/>,
@@ -30,6 +30,7 @@ public static class SqliteStoreServiceCollectionExtensions
         services.TryAddSingleton(TimeProvider.System);
         StoreServices.AddStore(services, sp => SqliteScorerStore.ForFile(path, options, sp.GetRequiredService<TimeProvider>()));
         services.AddSingleton<IStoreSpaceSignal>(sp => sp.GetRequiredService<SqliteScorerStore>());
+        services.AddSingleton<IStoreMemorySignal>(sp => sp.GetRequiredService<SqliteScorerStore>());
         services.AddSingleton<IRetentionStore>(sp => sp.GetRequiredService<SqliteScorerStore>());
         services.TryAddSingleton<RetentionCounters>();
         services.AddSingleton<IHostedService, SqliteStoreHost>();
