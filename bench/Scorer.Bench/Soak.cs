@@ -22,7 +22,7 @@ namespace Scorer.Bench;
 /// <c>changeDay</c>, and from then on the odds of the event are doubled. At the end of each simulated day the driver
 /// moves the clock on by the monitor's poll interval until the server's "all" report holds every outcome written and its
 /// charts every matured one (states, not sleeps), then reads the server's resident memory, managed heap, SQLite's own
-/// memory, the store's size on disk, the 30-day report's latency (median of 5), its method and the status. From the
+/// memory, the store's size on disk, the 30-day report's latency (median of 5) and method, and the status over the default window (7 days) with its reasons. From the
 /// change on, the status is read after every simulated hour, and the first hour it leaves "fine" is printed.
 /// The driver's own memory (one hour's rows, about 23,000 for 50 million over 90 days) is counted in the resident figure.
 /// </summary>
@@ -70,8 +70,8 @@ public static class Soak
         int? firstFlagged = null;
         var run = Stopwatch.StartNew();
         Console.WriteLine($"Soak: {total:N0} labelled predictions over {days} simulated days, odds doubled from day {changeDay}, store {(store == "sqlite" ? "SQLite" : "PostgreSQL")}, retention 30 days.");
-        Console.WriteLine("| day | labelled | resident MB | managed heap MB | GC committed MB | SQLite MB | store MB | 30d report ms (median of 5) | method (30d) | all: method, labelled | status (30d) | wall s |");
-        Console.WriteLine("| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |");
+        Console.WriteLine("| day | labelled | resident MB | managed heap MB | GC committed MB | SQLite MB | store MB | 30d report ms (median of 5) | method (30d) | all: method, labelled | CUSUM up/down thresholds, outcomes per false alarm | status (default window, 7d) | wall s |");
+        Console.WriteLine("| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |");
         try
         {
             for (var hour = 0; hour < hours; hour++)
@@ -109,7 +109,7 @@ public static class Soak
                     if (status.Status != "fine")
                     {
                         firstFlagged = hour + 1 - (changeDay * 24);
-                        Console.WriteLine($"First status other than fine after the change: {status.Status}, {firstFlagged} simulated hour(s) after it ({status.Reason}).");
+                        Console.WriteLine($"First status other than fine after the change: {status.Status}, {firstFlagged} simulated hour(s) after it{status.Reason}.");
                     }
                 }
 
@@ -128,9 +128,8 @@ public static class Soak
 
         async Task<(string Status, string Reason)> Status()
         {
-            var report = JsonDocument.Parse(await http.GetStringAsync($"/v1/models/{Model}/monitor?window=30d")).RootElement;
-            var reasons = report.TryGetProperty("reasons", out var r) && r.ValueKind == JsonValueKind.Array && r.GetArrayLength() > 0 ? r[0].ToString() : "";
-            return (report.GetProperty("status").GetString()!, reasons);
+            var report = JsonDocument.Parse(await http.GetStringAsync($"/v1/models/{Model}/monitor")).RootElement;
+            return (report.GetProperty("status").GetString()!, Reasons(report));
         }
 
         async Task Checkpoint(int day, long labelled, long maturedThrough)
@@ -170,11 +169,24 @@ public static class Soak
             }
 
             Array.Sort(times);
+            var judged = JsonDocument.Parse(await http.GetStringAsync($"/v1/models/{Model}/monitor")).RootElement.Clone();
             var metrics = await http.GetStringAsync("/metrics");
             var size = store == "sqlite" ? FileSize(db) + FileSize(db + "-wal") : await PostgresSize(store);
             Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
-                $"| {day} | {labelled:N0} | {Resident() / 1048576.0:F0} | {VolumeMemory.Gauge(metrics, "scorer_memory_managed_heap_bytes") / 1048576:F0} | {VolumeMemory.Gauge(metrics, "scorer_memory_managed_committed_bytes") / 1048576:F0} | {VolumeMemory.Gauge(metrics, "scorer_memory_store_cache_bytes") / 1048576:F0} | {size / 1048576.0:F0} | {times[2]:F0} | {report.GetProperty("method").GetString()} | {all.GetProperty("method").GetString()}, {all.GetProperty("labelled").GetInt64():N0} | {report.GetProperty("status").GetString()}{Reasons(report)} | {run.Elapsed.TotalSeconds:F0} |"));
+                $"| {day} | {labelled:N0} | {Resident() / 1048576.0:F0} | {VolumeMemory.Gauge(metrics, "scorer_memory_managed_heap_bytes") / 1048576:F0} | {VolumeMemory.Gauge(metrics, "scorer_memory_managed_committed_bytes") / 1048576:F0} | {VolumeMemory.Gauge(metrics, "scorer_memory_store_cache_bytes") / 1048576:F0} | {size / 1048576.0:F0} | {times[2]:F0} | {report.GetProperty("method").GetString()} | {all.GetProperty("method").GetString()}, {all.GetProperty("labelled").GetInt64():N0} | {Charts(all)} | {judged.GetProperty("status").GetString()}{Reasons(judged)} | {run.Elapsed.TotalSeconds:F0} |"));
         }
+    }
+
+    /// <summary>The CUSUM charts' thresholds and the run length they are set for: "h up / h down, ARL".</summary>
+    private static string Charts(JsonElement report)
+    {
+        if (!report.TryGetProperty("cusum", out var cusum) || !cusum.TryGetProperty("up", out var up) || !cusum.TryGetProperty("down", out var down))
+        {
+            return "not started";
+        }
+
+        return string.Create(CultureInfo.InvariantCulture,
+            $"{up.GetProperty("threshold").GetDouble():F2} / {down.GetProperty("threshold").GetDouble():F2}, {up.GetProperty("inControlRunLength").GetDouble():G3}");
     }
 
     /// <summary>The report's reasons after its status, ": a; b", or nothing when it gives none.</summary>

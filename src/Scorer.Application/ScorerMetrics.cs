@@ -195,7 +195,7 @@ public sealed partial class ScorerMetrics
                     {
                         cusum.WithLabels(s.Version.Model, s.Version.Version, chart).Set(view.Value);
                         cusumThreshold.WithLabels(s.Version.Model, s.Version.Version, chart).Set(view.Threshold);
-                        cusumSignals.WithLabels(s.Version.Model, s.Version.Version, chart).IncTo(view.Signals.Count);
+                        cusumSignals.WithLabels(s.Version.Model, s.Version.Version, chart).IncTo(view.SignalCount);
                     }
                 }
             }

@@ -31,7 +31,7 @@ public sealed class MonitorChartsTests : IDisposable
         Assert.Equal(HttpStatusCode.OK, response.StatusCode);
     }
 
-    private async Task<RunningServer> StartPimaAsync(string falseAlarmDays = "0")
+    private async Task<RunningServer> StartPimaAsync(string falseAlarmDays = "0", string signalsKept = "1000")
     {
         // The model R fit on Pima.tr, with its outcome horizon cut to 2 s so that outcomes mature within the test.
         var model = JsonNode.Parse(File.ReadAllText(Files.Reference("pima-logit.model.json")))!;
@@ -43,6 +43,7 @@ public sealed class MonitorChartsTests : IDisposable
             ["Scorer:Monitor:ReportInterval"] = "00:00:00.200",
             // 0: the thresholds from CusumRunLength alone, so the run length these tests check is the configured one.
             ["Scorer:Monitor:CusumFalseAlarmDays"] = falseAlarmDays,
+            ["Scorer:Monitor:CusumSignalsKept"] = signalsKept,
         });
     }
 
@@ -122,6 +123,48 @@ public sealed class MonitorChartsTests : IDisposable
     }
 
     [Fact]
+    public async Task A_busy_stream_is_charted_at_its_own_outcome_rate_over_days_not_at_the_rate_of_its_last_few_thousand_outcomes()
+    {
+        // 60,000 labelled predictions spread evenly over the three days before now: 20,000 a day, so one false alarm per
+        // 365 days is 7.3 million outcomes per false alarm. The last CusumSample (2,000) outcomes span 7.2 hours; a rate
+        // taken from them alone counts over the shortest span of a day (2,000 a day, 730,000 outcomes per false alarm),
+        // which made a busy, well-calibrated stream alarm every few days. The probabilities are R's predict() of the
+        // Pima.tr fit on MASS's Pima.te rows, the outcomes Pima.te's own, repeated. During the first day the rate counts
+        // over a day and grows with the count; the thresholds are set again when the run length moved by more than a
+        // quarter, so the last setting is within a quarter below 7.3 million (the bisection within about 1% of it).
+        await using var server = await StartPimaAsync(falseAlarmDays: "365");
+        var p = File.ReadAllLines(Files.Reference("pima-logit.expected.csv")).Skip(1)
+            .Select(l => double.Parse(l.Split(',')[2], CultureInfo.InvariantCulture)).ToArray();
+        var y = File.ReadAllLines(Files.Reference("pima.outcomes.csv")).Skip(1).Select(byte.Parse).ToArray();
+        Assert.Equal(332, p.Length);
+
+        const int n = 60_000;
+        var end = DateTimeOffset.UtcNow.AddHours(-1);
+        var start = end.AddDays(-3);
+        var predictions = server.Service<IPredictionLogStore>();
+        var outcomes = server.Service<IOutcomeStore>();
+        for (var from = 0; from < n; from += 5_000)
+        {
+            var batch = Enumerable.Range(from, 5_000).Select(i =>
+            {
+                var at = start + ((end - start) * ((i + 0.5) / n));
+                var pi = p[i % p.Length];
+                return new PredictionRecord(PredictionIds.Next(at), "pima", "r-logit", Stage.Live, at, null, Math.Log(pi / (1 - pi)), pi, "{}");
+            }).ToArray();
+            await predictions.WritePredictionsAsync(batch);
+            await outcomes.RecordOutcomesAsync("pima", [.. batch.Select((r, j) => new OutcomeReport(r.Id, null, y[(from + j) % y.Length]))],
+                ConflictPolicy.KeepFirst, DateTimeOffset.UtcNow);
+        }
+
+        var report = await ReportWhenChartsTookAsync(server, n);
+        foreach (var chart in new[] { "up", "down" })
+        {
+            var runLength = report.GetProperty("cusum").GetProperty(chart).GetProperty("inControlRunLength").GetDouble();
+            Assert.InRange(runLength, 7.3e6 / 1.25 * 0.98, 7.3e6 * 1.02);
+        }
+    }
+
+    [Fact]
     public async Task A_budget_in_days_below_the_floor_at_the_observed_rate_keeps_the_floor()
     {
         // 332 outcomes a day for 30 days is 9,960 outcomes per false alarm: below CusumRunLength, which stays.
@@ -153,6 +196,29 @@ public sealed class MonitorChartsTests : IDisposable
             Assert.True(s.GetProperty("statistic").GetDouble() >= threshold);
             Assert.True(DateTimeOffset.Parse(s.GetProperty("time").GetString()!, CultureInfo.InvariantCulture) > DateTimeOffset.UtcNow.AddMinutes(-5));
         }
+    }
+
+    [Fact]
+    public async Task A_chart_that_keeps_signalling_keeps_only_its_latest_signals_and_counts_them_all()
+    {
+        // Pima.te's outcomes flipped, three rounds: the upward chart signals again and again. With CusumSignalsKept 2 the
+        // report holds the last two, signalCount and the Prometheus counter every one.
+        await using var server = await StartPimaAsync(signalsKept: "2");
+        await ScoreAndLabelAsync(server, flipped: true, rounds: 3);
+        var up = (await ReportWhenChartsTookAsync(server, 996)).GetProperty("cusum").GetProperty("up");
+        var count = up.GetProperty("signalCount").GetInt64();
+        Assert.True(count > 2, $"the chart signalled {count} times");
+        var kept = up.GetProperty("signals").EnumerateArray().Select(s => s.GetProperty("index").GetInt64()).ToList();
+        Assert.Equal(2, kept.Count);
+        Assert.True(kept[0] < kept[1]);
+
+        var line = "";
+        Assert.True(await Files.EventuallyAsync(async () =>
+        {
+            line = (await server.Http.GetStringAsync("/metrics")).Split('\n')
+                .FirstOrDefault(l => l.StartsWith("scorer_monitor_cusum_signals_total{", StringComparison.Ordinal) && l.Contains("chart=\"up\"", StringComparison.Ordinal)) ?? "";
+            return line.EndsWith(" " + count.ToString(CultureInfo.InvariantCulture), StringComparison.Ordinal);
+        }, TimeSpan.FromSeconds(30)), line);
     }
 
     [Fact]

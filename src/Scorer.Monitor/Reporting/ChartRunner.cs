@@ -14,9 +14,12 @@ namespace Scorer.Monitor.Reporting;
 /// <remarks><see cref="Threshold"/>: the threshold in force when the chart signalled (the thresholds follow the outcome rate); NaN in states saved before it was kept.</remarks>
 public sealed record ChartSignal(long Index, DateTimeOffset Time, double Statistic, Guid PredictionId, double Threshold = double.NaN);
 
-/// <summary>A CUSUM chart as it stands.</summary>
+/// <summary>
+/// A CUSUM chart as it stands: <see cref="Signals"/> holds its most recent signals (at most
+/// <see cref="MonitorOptions.CusumSignalsKept"/>), <see cref="SignalCount"/> counts every signal since it started.
+/// </summary>
 public sealed record CusumView(double OddsRatio, double Value, double Threshold, double InControlRunLength, double DetectionDelay, long Steps,
-    IReadOnlyList<ChartSignal> Signals);
+    IReadOnlyList<ChartSignal> Signals, long SignalCount);
 
 /// <summary>The EWMA of observed minus expected as it stands: its value, its control limit (L·sd) and whether it is beyond it.</summary>
 public sealed record EwmaView(double Value, double Limit, double Lambda, bool OutOfControl, long Steps);
@@ -220,17 +223,19 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
             var charts = VersionCharts.Restore(options, saved);
             _charts[key] = charts;
             var after = charts.View();
-            Announce("up", before?.Up?.Signals.Count ?? 0, after.Up);
-            Announce("down", before?.Down?.Signals.Count ?? 0, after.Down);
+            Announce("up", before?.Up?.SignalCount ?? 0, after.Up);
+            Announce("down", before?.Down?.SignalCount ?? 0, after.Down);
 
-            void Announce(string chart, int seen, CusumView? view)
+            void Announce(string chart, long seen, CusumView? view)
             {
                 if (view is null || previous is null)
                 {
                     return; // a process that just started does not announce the history again
                 }
 
-                foreach (var signal in view.Signals.Skip(seen))
+                // The signals new since the last look, of those the holder kept.
+                var fresh = (int)Math.Min(Math.Max(view.SignalCount - seen, 0), view.Signals.Count);
+                foreach (var signal in view.Signals.Skip(view.Signals.Count - fresh))
                 {
                     Signalled?.Invoke(version.Model, version.Version, chart, signal);
                 }
@@ -256,7 +261,8 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
         long Outcomes,
         long SinceCheck,
         DateTimeOffset[]? RecentTimes = null,
-        double? Target = null);
+        double? Target = null,
+        OutcomeRateState? Rate = null);
 
     /// <summary>An outcome taken in before the charts had enough to set their thresholds.</summary>
     internal readonly record struct PendingOutcome(double P, byte Y, DateTimeOffset At, Guid Id);
@@ -273,7 +279,7 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
         private readonly Lock _lock = new();
         private readonly List<PendingOutcome> _pending = [];
         private readonly Queue<double> _recent = new();
-        private readonly Queue<DateTimeOffset> _recentTimes = new(); // the prediction times of _recent, for the outcome rate
+        private OutcomeRate _rate = new(); // outcomes per day of prediction time, for the false-alarm budget
         private double _target; // the run length the thresholds were last set for
         private readonly List<ChartSignal> _upSignals = [];
         private readonly List<ChartSignal> _downSignals = [];
@@ -305,7 +311,8 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
 
         private static CusumView? Cusum(RiskAdjustedCusum? chart, ThresholdChoice? choice, List<ChartSignal> signals) => chart is null || choice is null
             ? null
-            : new CusumView(chart.OddsRatio, chart.Value, chart.Threshold, choice.InControlRunLength, choice.DetectionDelay, chart.Steps, [.. signals]);
+            : new CusumView(chart.OddsRatio, chart.Value, chart.Threshold, choice.InControlRunLength, choice.DetectionDelay, chart.Steps, [.. signals],
+                chart.Signals);
 
         /// <summary>Saves the charts as JSON (<see cref="ChartsState"/>): doubles round-trip exactly.</summary>
         public string SaveState()
@@ -313,7 +320,7 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
             lock (_lock)
             {
                 var state = new ChartsState(_up?.Save(), _down?.Save(), _upChoice, _downChoice, _ewma.Save(), [.. _recent], [.. _pending], [.. _upSignals],
-                    [.. _downSignals], _sampleEdges, _sampleProportions, _cursorTime, _cursorId, _outcomes, _sinceCheck, [.. _recentTimes], _target);
+                    [.. _downSignals], _sampleEdges, _sampleProportions, _cursorTime, _cursorId, _outcomes, _sinceCheck, null, _target, _rate.Save());
                 return JsonSerializer.Serialize(state, StateJson);
             }
         }
@@ -342,15 +349,24 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
                 charts._recent.Enqueue(p);
             }
 
-            // A state saved before the times were kept: its outcomes count as of the cursor's time.
-            foreach (var t in state.RecentTimes ?? Enumerable.Repeat(state.CursorTime, state.Recent.Length).ToArray())
+            if (state.Rate is { } rate)
             {
-                charts._recentTimes.Enqueue(t);
+                charts._rate = OutcomeRate.Restore(rate);
+            }
+            else
+            {
+                // A state saved before the rate was kept: the recent outcomes' times, or (older still) the cursor's time.
+                foreach (var t in state.RecentTimes ?? Enumerable.Repeat(state.CursorTime, state.Recent.Length).ToArray())
+                {
+                    charts._rate.Add(t);
+                }
             }
 
             charts._pending.AddRange(state.Pending);
             charts._upSignals.AddRange(state.UpSignals);
             charts._downSignals.AddRange(state.DownSignals);
+            Keep(charts._upSignals, options.CusumSignalsKept);
+            Keep(charts._downSignals, options.CusumSignalsKept);
             return charts;
         }
 
@@ -389,11 +405,10 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
                 _outcomes++;
                 _ewma.Add(p, y);
                 _recent.Enqueue(p);
-                _recentTimes.Enqueue(at);
+                _rate.Add(at);
                 while (_recent.Count > options.CusumSample)
                 {
                     _recent.Dequeue();
-                    _recentTimes.Dequeue();
                 }
 
                 if (_up is null)
@@ -439,6 +454,7 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
             {
                 var signal = new ChartSignal(_up.Steps, at, upStatistic, id, _up.Threshold);
                 _upSignals.Add(signal);
+                Keep(_upSignals, options.CusumSignalsKept);
                 onSignal(model, version, "up", signal);
             }
 
@@ -446,18 +462,27 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
             {
                 var signal = new ChartSignal(_down.Steps, at, downStatistic, id, _down.Threshold);
                 _downSignals.Add(signal);
+                Keep(_downSignals, options.CusumSignalsKept);
                 onSignal(model, version, "down", signal);
+            }
+        }
+
+        /// <summary>Drops the oldest signals beyond <paramref name="kept"/>; the chart's own count keeps counting them.</summary>
+        private static void Keep(List<ChartSignal> signals, int kept)
+        {
+            if (signals.Count > kept)
+            {
+                signals.RemoveRange(0, signals.Count - kept);
             }
         }
 
         /// <summary>
         /// The run length the thresholds are set for: one false alarm per <see cref="MonitorOptions.CusumFalseAlarmDays"/>
-        /// at the outcome rate of the recent outcomes (their prediction times), at least <see cref="MonitorOptions.CusumRunLength"/>.
+        /// at the outcome rate over the last week of prediction time (<see cref="OutcomeRate"/>), at least <see cref="MonitorOptions.CusumRunLength"/>.
         /// </summary>
-        private double Target() => _recentTimes.Count < 2
+        private double Target() => _rate.Count < 2
             ? options.CusumRunLength
-            : FalseAlarmBudget.RunLength(options.CusumRunLength, options.CusumFalseAlarmDays,
-                FalseAlarmBudget.RatePerDay(_recentTimes.Count, _recentTimes.Min(), _recentTimes.Max()));
+            : FalseAlarmBudget.RunLength(options.CusumRunLength, options.CusumFalseAlarmDays, _rate.PerDay);
 
         /// <summary>Thresholds for the budget's run length from the recent probabilities; the charts keep their values.</summary>
         private void SetThresholds()

@@ -60,10 +60,17 @@ public sealed record MonitorOptions
 
     /// <summary>
     /// The charts' false-alarm budget in time: one false alarm per chart per this many days of prediction time at the
-    /// observed outcome rate (over the last <see cref="CusumSample"/> outcomes). Default 365; 0 sets the thresholds from
+    /// observed outcome rate (over the last week of prediction time, <see cref="Scorer.Statistics.Sequential.OutcomeRate"/>). Default 3,650 (one per chart per ten years: a right model is "watch" from a false alarm in about 1.6% of 30-day judged windows); 0 sets the thresholds from
     /// <see cref="CusumRunLength"/> alone.
     /// </summary>
-    public double CusumFalseAlarmDays { get; init; } = 365;
+    public double CusumFalseAlarmDays { get; init; } = 3_650;
+
+    /// <summary>
+    /// The most recent signals each chart keeps for the report, the status and the page; older ones are counted
+    /// (<c>signalCount</c>, <c>scorer_monitor_cusum_signals_total</c>) but not kept. Default 1,000: a chart left
+    /// signalling for weeks in a drift does not grow its state, its saves or the report.
+    /// </summary>
+    public int CusumSignalsKept { get; init; } = 1_000;
 
     /// <summary>How many of the most recent labelled probabilities the thresholds are computed from. Default 2,000.</summary>
     public int CusumSample { get; init; } = 2_000;
@@ -182,6 +189,11 @@ public sealed record MonitorOptions
         if (PsiModerate <= 0 || PsiLarge <= PsiModerate)
         {
             problems.Add("Scorer:Monitor:PsiModerate must be positive and below Scorer:Monitor:PsiLarge.");
+        }
+
+        if (CusumSignalsKept < 1)
+        {
+            problems.Add("Scorer:Monitor:CusumSignalsKept must be at least 1.");
         }
 
         if (MinEvents < 1 || CusumMinSample < 10 || CusumSample < CusumMinSample)

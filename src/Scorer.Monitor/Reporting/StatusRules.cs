@@ -156,7 +156,9 @@ public static class StatusRules
                 {
                     watch = true;
                     var last = recent[^1];
-                    reasons.Add($"The {name} CUSUM (odds ratio {F(chart!.OddsRatio)}) signalled {recent.Count} time{(recent.Count == 1 ? "" : "s")} over {window}, last at outcome "
+                    // The oldest kept signal inside the window while older ones were dropped: the count is a lower bound.
+                    var atLeast = chart!.SignalCount > chart.Signals.Count && recent.Count == chart.Signals.Count ? "at least " : "";
+                    reasons.Add($"The {name} CUSUM (odds ratio {F(chart.OddsRatio)}) signalled {atLeast}{recent.Count} time{(recent.Count == 1 ? "" : "s")} over {window}, last at outcome "
                         + $"{last.Index} ({last.Time:yyyy-MM-dd HH:mm} UTC, statistic {F(last.Statistic)} ≥ threshold {F(double.IsNaN(last.Threshold) ? chart.Threshold : last.Threshold)}): {meaning}.");
                 }
             }

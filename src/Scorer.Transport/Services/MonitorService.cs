@@ -237,5 +237,6 @@ public sealed class MonitorService(MonitorReporter reporter, MonitorWatch watch,
         DetectionDelay = v.DetectionDelay,
         Steps = v.Steps,
         Signals = { v.Signals.Select(Signal) },
+        SignalCount = v.SignalCount,
     };
 }

@@ -22,9 +22,12 @@ public sealed class StatusRulesTests
     private static DriftView Drift(double? score = 0.01, long rows = 5000, double feature = 0.01) =>
         new(score, new Dictionary<string, double> { ["vibration_rms"] = feature }, rows);
 
-    private static ChartsView Charts(bool ewmaOut = false, params DateTimeOffset[] upSignals) =>
-        new(new CusumView(2, 0.5, 4.2, 100_000, 300, 2000, [.. upSignals.Select((t, i) => new ChartSignal(i + 1, t, 4.3, Guid.Empty))]),
-            new CusumView(0.5, 0.1, 4.1, 100_000, 300, 2000, []), new EwmaView(ewmaOut ? 0.05 : 0.001, 0.02, 0.01, ewmaOut, 2000), 2000, WindowStart.AddDays(29), null);
+    private static ChartsView Charts(bool ewmaOut = false, params DateTimeOffset[] upSignals) => Charts(ewmaOut, upSignals.Length, upSignals);
+
+    /// <summary>Charts whose upward chart kept <paramref name="upSignals"/> of <paramref name="upCount"/> signals.</summary>
+    private static ChartsView Charts(bool ewmaOut, long upCount, DateTimeOffset[] upSignals) =>
+        new(new CusumView(2, 0.5, 4.2, 100_000, 300, 2000, [.. upSignals.Select((t, i) => new ChartSignal(i + 1, t, 4.3, Guid.Empty))], upCount),
+            new CusumView(0.5, 0.1, 4.1, 100_000, 300, 2000, [], 0), new EwmaView(ewmaOut ? 0.05 : 0.001, 0.02, 0.01, ewmaOut, 2000), 2000, WindowStart.AddDays(29), null);
 
     private static StatusJudgement Judge(CalibrationReport report, DriftView? drift = null, ChartsView? charts = null, MonitorOptions? options = null) =>
         StatusRules.Judge(Model, "30d", report, drift ?? Drift(), charts ?? Charts(), WindowStart, options ?? Defaults);
@@ -150,6 +153,18 @@ public sealed class StatusRulesTests
 
         Assert.Equal(MonitorStatus.Fine, Judge(Report(), charts: Charts(false, WindowStart.AddSeconds(-1))).Status);
         Assert.Equal(MonitorStatus.Watch, Judge(Report(), charts: Charts(false, WindowStart)).Status); // the window's first instant counts
+    }
+
+    [Fact]
+    public void When_older_signals_were_dropped_and_every_kept_one_is_inside_the_window_the_count_is_given_as_a_lower_bound()
+    {
+        // 5,000 signals in all, the last 2 kept (Scorer:Monitor:CusumSignalsKept), both inside the window.
+        var j = Judge(Report(), charts: Charts(false, 5_000, [WindowStart.AddDays(3), WindowStart.AddDays(4)]));
+        Assert.Contains(j.Reasons, r => r.StartsWith("The upward CUSUM (odds ratio 2) signalled at least 2 times over 30d", StringComparison.Ordinal));
+
+        // One kept signal before the window: the kept ones reach past its start, so the count inside it is exact.
+        j = Judge(Report(), charts: Charts(false, 5_000, [WindowStart.AddDays(-1), WindowStart.AddDays(4)]));
+        Assert.Contains(j.Reasons, r => r.StartsWith("The upward CUSUM (odds ratio 2) signalled 1 time over 30d", StringComparison.Ordinal));
     }
 
     [Fact]

@@ -232,3 +232,64 @@ public sealed class FalseAlarmBudgetTests
         Assert.True(FalseAlarmBudget.Moved(0, 100_000)); // never set
     }
 }
+
+/// <summary>The outcome rate the false-alarm budget is set from: per hour of prediction time over the last week, bounded in size.</summary>
+public sealed class OutcomeRateTests
+{
+    private static readonly DateTimeOffset T0 = new(2026, 1, 1, 0, 0, 0, TimeSpan.Zero);
+
+    [Fact]
+    public void A_busy_stream_counts_at_its_rate_over_days_whatever_its_recent_outcomes_span()
+    {
+        // 300,000 outcomes evenly over three days: 100,000 a day, though any 2,000 of them span under an hour.
+        var rate = new OutcomeRate();
+        for (var i = 0; i < 300_000; i++)
+        {
+            rate.Add(T0 + (TimeSpan.FromDays(3) * (i / 300_000.0)));
+        }
+
+        Assert.Equal(300_000, rate.Count);
+        Assert.Equal(100_000, rate.PerDay, 100_000 * 1e-4);
+    }
+
+    [Fact]
+    public void Counts_older_than_the_week_leave_the_rate_and_the_saved_state_stays_at_most_169_hours()
+    {
+        var rate = new OutcomeRate();
+        for (var hour = 0; hour < 24 * 30; hour++)
+        {
+            // 100 an hour for 23 days, then 10 an hour for 7.
+            for (var i = 0; i < (hour < 24 * 23 ? 100 : 10); i++)
+            {
+                rate.Add(T0.AddHours(hour + (i / 100.0)));
+            }
+        }
+
+        var saved = rate.Save();
+        // The newest hour (719) and the 168 before it: hour 551 still at 100, then 168 hours of 10, over the span from
+        // hour 551's start to the last time (hour 719 and 0.09).
+        Assert.Equal(169, saved.Hours.Length);
+        Assert.Equal(1_780, rate.Count);
+        Assert.Equal(1_780 / (168.09 / 24), rate.PerDay, 1e-6);
+        var restored = OutcomeRate.Restore(saved);
+        Assert.Equal(rate.Count, restored.Count);
+        Assert.Equal(rate.PerDay, restored.PerDay);
+    }
+
+    [Fact]
+    public void A_burst_counts_over_a_day_and_an_earlier_time_counts_in_the_newest_hour()
+    {
+        var rate = new OutcomeRate();
+        Assert.Equal(0, rate.PerDay);
+        for (var i = 0; i < 500; i++)
+        {
+            rate.Add(T0.AddSeconds(i * 0.01));
+        }
+
+        Assert.Equal(500, rate.PerDay, 1e-9);
+        rate.Add(T0.AddHours(5));
+        rate.Add(T0.AddHours(1)); // out of order: counted, in the newest hour
+        Assert.Equal(502, rate.Count);
+        Assert.Equal(2, rate.Save().Hours.Length);
+    }
+}
