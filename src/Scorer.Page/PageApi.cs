@@ -347,7 +347,7 @@ public sealed class PageApi
     {
         var (version, window) = Resolve(context, model);
         var points = Count(context, "points", 600, 8, 20_000);
-        var paths = await _trends.CusumAsync(version, window, points, context.RequestAborted).ConfigureAwait(false);
+        var paths = _trends.Cusum(version, window, points);
         var buffer = new ArrayBufferWriter<byte>(16384);
         using (var w = new Utf8JsonWriter(buffer, WriterOptions))
         {
@@ -384,7 +384,6 @@ public sealed class PageApi
                 w.WriteNumber("threshold", path.Threshold);
                 w.WriteNumber("steps", path.Steps);
                 w.WriteNumber("value", path.Value);
-                w.WriteBoolean("matches", path.Matches);
                 w.WriteStartArray("points");
                 foreach (var p in path.Points)
                 {

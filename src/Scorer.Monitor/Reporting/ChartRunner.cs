@@ -60,6 +60,10 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
 
     public ChartsView? View(string model, string version) => _charts.TryGetValue((model, version), out var c) ? c.View() : null;
 
+    /// <summary>The paths the charts of a version took over [from, to), as they keep them (<see cref="ChartPath"/>); null when this process holds none.</summary>
+    public (List<CusumPoint> Up, List<CusumPoint> Down)? Paths(string model, string version, DateTimeOffset from, DateTimeOffset to) =>
+        _charts.TryGetValue((model, version), out var c) ? c.Paths(from, to) : null;
+
     /// <summary>Versions whose charts this process holds in memory: the live and shadow ones (a retired version's state stays in the store).</summary>
     public int Versions => _charts.Count;
 
@@ -262,7 +266,9 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
         long SinceCheck,
         DateTimeOffset[]? RecentTimes = null,
         double? Target = null,
-        OutcomeRateState? Rate = null);
+        OutcomeRateState? Rate = null,
+        ChartPathState? UpPath = null,
+        ChartPathState? DownPath = null);
 
     /// <summary>An outcome taken in before the charts had enough to set their thresholds.</summary>
     internal readonly record struct PendingOutcome(double P, byte Y, DateTimeOffset At, Guid Id);
@@ -280,6 +286,8 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
         private readonly List<PendingOutcome> _pending = [];
         private readonly Queue<double> _recent = new();
         private OutcomeRate _rate = new(); // outcomes per day of prediction time, for the false-alarm budget
+        private ChartPath _upPath = new(options.CusumPathTail, options.CusumPathDays);
+        private ChartPath _downPath = new(options.CusumPathTail, options.CusumPathDays);
         private double _target; // the run length the thresholds were last set for
         private readonly List<ChartSignal> _upSignals = [];
         private readonly List<ChartSignal> _downSignals = [];
@@ -309,6 +317,15 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
             }
         }
 
+        /// <summary>Both charts' kept paths over [from, to) (<see cref="ChartPath.Points"/>).</summary>
+        public (List<CusumPoint> Up, List<CusumPoint> Down) Paths(DateTimeOffset from, DateTimeOffset to)
+        {
+            lock (_lock)
+            {
+                return (_upPath.Points(from, to), _downPath.Points(from, to));
+            }
+        }
+
         private static CusumView? Cusum(RiskAdjustedCusum? chart, ThresholdChoice? choice, List<ChartSignal> signals) => chart is null || choice is null
             ? null
             : new CusumView(chart.OddsRatio, chart.Value, chart.Threshold, choice.InControlRunLength, choice.DetectionDelay, chart.Steps, [.. signals],
@@ -320,7 +337,8 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
             lock (_lock)
             {
                 var state = new ChartsState(_up?.Save(), _down?.Save(), _upChoice, _downChoice, _ewma.Save(), [.. _recent], [.. _pending], [.. _upSignals],
-                    [.. _downSignals], _sampleEdges, _sampleProportions, _cursorTime, _cursorId, _outcomes, _sinceCheck, null, _target, _rate.Save());
+                    [.. _downSignals], _sampleEdges, _sampleProportions, _cursorTime, _cursorId, _outcomes, _sinceCheck, null, _target, _rate.Save(), _upPath.Save(),
+                    _downPath.Save());
                 return JsonSerializer.Serialize(state, StateJson);
             }
         }
@@ -343,6 +361,8 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
                 _outcomes = state.Outcomes,
                 _sinceCheck = state.SinceCheck,
                 _target = state.Target ?? state.UpChoice?.InControlRunLength ?? 0,
+                _upPath = ChartPath.Restore(options.CusumPathTail, options.CusumPathDays, state.UpPath),
+                _downPath = ChartPath.Restore(options.CusumPathTail, options.CusumPathDays, state.DownPath),
             };
             foreach (var p in state.Recent)
             {
@@ -450,7 +470,11 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
 
         private void Step(string model, string version, double p, byte y, DateTimeOffset at, Guid id, Action<string, string, string, ChartSignal> onSignal)
         {
-            if (_up!.Add(p, y, out var upStatistic))
+            var signalledUp = _up!.Add(p, y, out var upStatistic);
+            var signalledDown = _down!.Add(p, y, out var downStatistic);
+            _upPath.Add(_up.Steps, at, upStatistic);
+            _downPath.Add(_down.Steps, at, downStatistic);
+            if (signalledUp)
             {
                 var signal = new ChartSignal(_up.Steps, at, upStatistic, id, _up.Threshold);
                 _upSignals.Add(signal);
@@ -458,7 +482,7 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
                 onSignal(model, version, "up", signal);
             }
 
-            if (_down!.Add(p, y, out var downStatistic))
+            if (signalledDown)
             {
                 var signal = new ChartSignal(_down.Steps, at, downStatistic, id, _down.Threshold);
                 _downSignals.Add(signal);

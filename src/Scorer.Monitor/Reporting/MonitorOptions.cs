@@ -72,6 +72,15 @@ public sealed record MonitorOptions
     /// </summary>
     public int CusumSignalsKept { get; init; } = 1_000;
 
+    /// <summary>The last outcomes whose CUSUM values each chart keeps exactly for drawing its path. Default 256.</summary>
+    public int CusumPathTail { get; init; } = 256;
+
+    /// <summary>
+    /// Days of prediction time over which each chart keeps, per hour, its lowest and highest value for drawing its path
+    /// (before the exact tail). Default 30, the longest window; a path asked for over a longer one starts there.
+    /// </summary>
+    public int CusumPathDays { get; init; } = 30;
+
     /// <summary>How many of the most recent labelled probabilities the thresholds are computed from. Default 2,000.</summary>
     public int CusumSample { get; init; } = 2_000;
 
@@ -194,6 +203,11 @@ public sealed record MonitorOptions
         if (CusumSignalsKept < 1)
         {
             problems.Add("Scorer:Monitor:CusumSignalsKept must be at least 1.");
+        }
+
+        if (CusumPathTail < 2 || CusumPathTail > 100_000 || CusumPathDays < 1 || CusumPathDays > 3_660)
+        {
+            problems.Add("Scorer:Monitor:CusumPathTail must be 2 to 100,000 and Scorer:Monitor:CusumPathDays 1 to 3,660.");
         }
 
         if (MinEvents < 1 || CusumMinSample < 10 || CusumSample < CusumMinSample)

@@ -23,12 +23,10 @@ public sealed record TrendView(string Window, DateTimeOffset From, DateTimeOffse
 public sealed record CusumPoint(long Index, DateTimeOffset Time, double Value);
 
 /// <summary>
-/// The path of one CUSUM chart over the window, replayed from the store: at most the asked number of points (in each
-/// group of consecutive outcomes its lowest and highest S), the chart's threshold now, its signals within the window,
-/// and whether the replay ended where the running chart stands (<see cref="Matches"/>; false when outcomes arrived for
-/// predictions the chart had already passed, which the chart never takes in).
+/// The path of one CUSUM chart over the window, as the chart kept it: at most the asked number of points (in each
+/// group of consecutive points its lowest and highest S), the chart's threshold and value now, its signals within the window.
 /// </summary>
-public sealed record CusumPath(double OddsRatio, double Threshold, long Steps, double Value, bool Matches, IReadOnlyList<CusumPoint> Points,
+public sealed record CusumPath(double OddsRatio, double Threshold, long Steps, double Value, IReadOnlyList<CusumPoint> Points,
     IReadOnlyList<ChartSignal> Signals);
 
 /// <summary>Both CUSUM paths of a version; null paths and <see cref="Waiting"/> when the charts have not started.</summary>
@@ -39,7 +37,7 @@ public sealed record CusumPaths(string Window, DateTimeOffset From, DateTimeOffs
 /// What the page draws over time and the report does not hold: the calibration intercept and slope and the AUC per
 /// bucket of prediction time (<see cref="TrendAsync"/>), and the paths of the CUSUM charts (<see cref="CusumAsync"/>).
 /// </summary>
-public sealed class TrendReporter(ILabelledStore store, LabelledCache labelled, ChartRunner charts, MonitorOptions options, TimeProvider time)
+public sealed class TrendReporter(LabelledCache labelled, ChartRunner charts, MonitorOptions options, TimeProvider time)
 {
     /// <summary>The bucket lengths a trend chooses from: the shortest that keeps the buckets within the asked number.</summary>
     public static IReadOnlyList<TimeSpan> Steps { get; } =
@@ -86,49 +84,29 @@ public sealed class TrendReporter(ILabelledStore store, LabelledCache labelled, 
     }
 
     /// <summary>
-    /// The paths of a version's CUSUM charts within a window: S replayed from the store over the outcomes the chart has
-    /// taken in (its first <see cref="CusumView.Steps"/> labelled predictions in prediction-time order), restarting at 0
-    /// where the chart signalled, as the chart did. At most <paramref name="maxPoints"/> points per chart.
+    /// The paths of a version's CUSUM charts over a window, from what the charts keep of their own path
+    /// (<see cref="ChartPath"/>: the last outcomes exactly, each hour's lowest and highest value before them): no read
+    /// of the store, and the same cost at any volume. At most <paramref name="maxPoints"/> points per chart, the chart's
+    /// threshold and value now, and its kept signals within the window.
     /// </summary>
     /// <exception cref="ArgumentException">The window is not configured.</exception>
     /// <exception cref="ArgumentOutOfRangeException">maxPoints is below 8.</exception>
-    public async Task<CusumPaths> CusumAsync(LoadedVersion version, string window, int maxPoints, CancellationToken cancellationToken = default)
+    public CusumPaths Cusum(LoadedVersion version, string window, int maxPoints)
     {
         ArgumentOutOfRangeException.ThrowIfLessThan(maxPoints, 8);
         var (from, to) = Bounds(window, time.GetUtcNow());
         var view = charts.View(version.Model, version.Version);
-        if (view?.Up is not { } up || view.Down is not { } down || view.Through is not { } through)
+        if (view?.Up is not { } up || view.Down is not { } down || view.Through is not { } through
+            || charts.Paths(version.Model, version.Version, from, to) is not var (upPoints, downPoints))
         {
             return new CusumPaths(window, from, to, null, null, view?.Outcomes ?? 0, view?.Through,
                 view?.Waiting ?? "the charts have not taken in any outcome yet");
         }
 
-        // Every row the chart has taken in was scored no later than its cursor; rows scored just after it are cut by the step count.
-        var rows = await store.GetLabelledAsync(version.Model, version.Version, DateTimeOffset.UnixEpoch, through.AddMilliseconds(1), cancellationToken)
-            .ConfigureAwait(false);
-        return new CusumPaths(window, from, to, Replay(up), Replay(down), view.Outcomes, through, null);
+        return new CusumPaths(window, from, to, Path(up, upPoints), Path(down, downPoints), view.Outcomes, through, null);
 
-        CusumPath Replay(CusumView chart)
-        {
-            var signalled = chart.Signals.Select(s => s.Index).ToHashSet();
-            var steps = (int)Math.Min(chart.Steps, rows.Count);
-            var points = new List<CusumPoint>();
-            var s = 0.0;
-            for (var i = 0; i < steps; i++)
-            {
-                var row = rows[i];
-                var statistic = Math.Max(0.0, s + RiskAdjustedCusum.Weight(row.Probability, row.Outcome, chart.OddsRatio));
-                s = signalled.Contains(i + 1) ? 0.0 : statistic;
-                if (row.ScoredAt >= from && row.ScoredAt < to)
-                {
-                    points.Add(new CusumPoint(i + 1, row.ScoredAt, statistic));
-                }
-            }
-
-            var matches = steps == chart.Steps && Math.Abs(s - chart.Value) <= 1e-9 * Math.Max(1.0, chart.Value);
-            return new CusumPath(chart.OddsRatio, chart.Threshold, chart.Steps, chart.Value, matches, Thin(points, maxPoints),
-                [.. chart.Signals.Where(x => x.Time >= from && x.Time < to)]);
-        }
+        CusumPath Path(CusumView chart, List<CusumPoint> points) => new(chart.OddsRatio, chart.Threshold, chart.Steps, chart.Value,
+            Thin(points, maxPoints), [.. chart.Signals.Where(x => x.Time >= from && x.Time < to)]);
     }
 
     /// <summary>At most <paramref name="maxPoints"/> points: in each group of consecutive points its lowest and highest, in order; the last point always.</summary>

@@ -325,8 +325,7 @@
       s('text', { class: 'label-strong', x: f.right - 4, y: f.py(-paths.down.threshold) + 14, 'text-anchor': 'end' }, `downward h = ${num(paths.down.threshold, 2)} (odds ×${num(paths.down.oddsRatio, 2)})`));
     container.replaceChildren(f.svg);
     const signals = paths.up.signals.length + paths.down.signals.length;
-    note.textContent = `${count(paths.outcomes)} outcomes taken in; ${signals === 0 ? 'no signal' : `${signals} signal${signals > 1 ? 's' : ''}`} in this window.` +
-      (paths.up.matches && paths.down.matches ? '' : ' Some outcomes arrived after the charts had passed their predictions; the path shown is replayed and may differ slightly from the running chart.');
+    note.textContent = `${count(paths.outcomes)} outcomes taken in; ${signals === 0 ? 'no signal' : `${signals} signal${signals > 1 ? 's' : ''}`} in this window.`;
   }
 
   function psiChart(container, report, overview) {
