@@ -289,9 +289,9 @@ public sealed class StoreOptions
 
         foreach (var (name, megabytes) in new[] { ("WriteCacheMegabytes", WriteCacheMegabytes), ("ReadCacheMegabytes", ReadCacheMegabytes) })
         {
-            if (megabytes < 1)
+            if (megabytes is < 1 or > 4_096)
             {
-                yield return $"Scorer:Store:{name} is {megabytes}; give a page cache in MiB of at least 1";
+                yield return $"Scorer:Store:{name} is {megabytes}; give a page cache in MiB from 1 to 4,096";
             }
         }
 

@@ -1,3 +1,4 @@
+using System.Globalization;
 using System.Net;
 using System.Text;
 using System.Text.Json;
@@ -206,6 +207,31 @@ public sealed class MemoryBoundsTests : IDisposable
 
             tally.Commit();
         }
+    }
+
+    [Fact]
+    public async Task The_process_memory_gauges_agree_with_the_kernel_and_sqlite_stays_within_its_page_cache_settings()
+    {
+        // The server runs in this test process, so the kernel's VmRSS (/proc/self/status) is the same process's resident
+        // memory; the two are read moments apart, so they agree loosely (within a factor of 1.5).
+        _folder.AddModel(Files.Example("pump-bearings"), "pump.json");
+        await using var server = await RunningServer.StartAsync(_folder, new Dictionary<string, string?>
+        {
+            ["Scorer:Store:WriteCacheMegabytes"] = "16",
+            ["Scorer:Store:ReadCacheMegabytes"] = "2",
+        });
+        await ScoreAsync(server, Live);
+        var text = await server.Http.GetStringAsync("/metrics");
+        var vmRss = long.Parse(File.ReadAllLines("/proc/self/status").First(l => l.StartsWith("VmRSS:", StringComparison.Ordinal))
+            .Split(' ', StringSplitOptions.RemoveEmptyEntries)[1], CultureInfo.InvariantCulture) * 1024;
+        double Gauge(string name) => double.Parse(text.Split('\n').First(l => l.StartsWith(name + " ", StringComparison.Ordinal)).Split(' ')[1],
+            CultureInfo.InvariantCulture);
+
+        Assert.InRange(Gauge("scorer_memory_resident_bytes"), vmRss / 1.5, vmRss * 1.5);
+        Assert.InRange(Gauge("scorer_memory_managed_heap_bytes"), 1, Gauge("scorer_memory_managed_committed_bytes"));
+        // SQLite's own count of its memory: above zero once it has read the store, and within the write cache plus a
+        // read cache for each of a few reads at once (with room for its statement memory).
+        Assert.InRange(Gauge("scorer_memory_store_cache_bytes"), 1, (16 + (2 * 8) + 8) << 20);
     }
 
     [Fact]
