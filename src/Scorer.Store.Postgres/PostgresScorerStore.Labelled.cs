@@ -9,26 +9,46 @@ public sealed partial class PostgresScorerStore
 {
     /// <inheritdoc />
     public async Task<IReadOnlyList<PairedOutcome>> GetPairedAsync(string model, string liveVersion, string shadowVersion, DateTimeOffset from, DateTimeOffset to,
-        CancellationToken cancellationToken = default)
+        int? latest = null, CancellationToken cancellationToken = default)
     {
         ArgumentNullException.ThrowIfNull(model);
         ArgumentNullException.ThrowIfNull(liveVersion);
         ArgumentNullException.ThrowIfNull(shadowVersion);
+        if (latest is < 1)
+        {
+            throw new ArgumentOutOfRangeException(nameof(latest), latest, "At least one pair.");
+        }
+
         await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
-        await using var command = Command(connection, null,
-            "SELECT l.probability, s.probability, l.outcome FROM outcomes s JOIN outcomes l ON l.prediction_id = s.live_id "
-            + "WHERE s.model = $1 AND s.version = $3 AND l.version = $2 AND l.scored_at >= $4 AND l.scored_at < $5 "
-            + "ORDER BY l.scored_at, l.prediction_id");
+        // The latest pairs: the live outcomes newest first, each shadow outcome found by outcomes_by_live_id, stopped at
+        // the limit; then put back in prediction-time order.
+        await using var command = Command(connection, null, latest is null
+            ? "SELECT l.probability, s.probability, l.outcome FROM outcomes s JOIN outcomes l ON l.prediction_id = s.live_id "
+              + "WHERE s.model = $1 AND s.version = $3 AND l.version = $2 AND l.scored_at >= $4 AND l.scored_at < $5 "
+              + "ORDER BY l.scored_at, l.prediction_id"
+            : "SELECT l.probability, s.probability, l.outcome FROM outcomes l JOIN outcomes s ON s.live_id = l.prediction_id "
+              + "WHERE l.model = $1 AND l.version = $2 AND l.scored_at >= $4 AND l.scored_at < $5 AND s.version = $3 "
+              + "ORDER BY l.scored_at DESC, l.prediction_id DESC LIMIT $6");
         command.Parameters.Add(Text(model));
         command.Parameters.Add(Text(liveVersion));
         command.Parameters.Add(Text(shadowVersion));
         command.Parameters.Add(Timestamp(from));
         command.Parameters.Add(Timestamp(to));
+        if (latest is { } n)
+        {
+            command.Parameters.Add(new Npgsql.NpgsqlParameter { Value = n, NpgsqlDbType = NpgsqlTypes.NpgsqlDbType.Integer });
+        }
+
         await using var reader = await command.ExecuteReaderAsync(cancellationToken).ConfigureAwait(false);
         var pairs = new List<PairedOutcome>();
         while (await reader.ReadAsync(cancellationToken).ConfigureAwait(false))
         {
             pairs.Add(new PairedOutcome(reader.GetDouble(0), reader.GetDouble(1), (byte)reader.GetInt16(2)));
+        }
+
+        if (latest is not null)
+        {
+            pairs.Reverse();
         }
 
         return pairs;

@@ -7,14 +7,29 @@ public sealed partial class SqliteScorerStore
 {
     /// <inheritdoc />
     public async Task<IReadOnlyList<PairedOutcome>> GetPairedAsync(string model, string liveVersion, string shadowVersion, DateTimeOffset from, DateTimeOffset to,
-        CancellationToken cancellationToken = default)
+        int? latest = null, CancellationToken cancellationToken = default)
     {
         ArgumentNullException.ThrowIfNull(model);
+        if (latest is < 1)
+        {
+            throw new ArgumentOutOfRangeException(nameof(latest), latest, "At least one pair.");
+        }
+
         await using var connection = await OpenAsync(cancellationToken).ConfigureAwait(false);
-        using var command = Command(connection, null,
-            "SELECT l.probability, s.probability, l.outcome FROM outcomes s JOIN outcomes l ON l.prediction_id = s.live_id "
-            + "WHERE s.model = $model AND s.version = $shadow AND l.version = $live AND l.scored_at >= $from AND l.scored_at < $to "
-            + "ORDER BY l.scored_at, l.prediction_id;");
+        // The latest pairs: the live outcomes newest first along outcomes_by_model_time, each shadow outcome found by
+        // outcomes_by_live_id, stopped at the limit; then put back in prediction-time order.
+        using var command = Command(connection, null, latest is null
+            ? "SELECT l.probability, s.probability, l.outcome FROM outcomes s JOIN outcomes l ON l.prediction_id = s.live_id "
+              + "WHERE s.model = $model AND s.version = $shadow AND l.version = $live AND l.scored_at >= $from AND l.scored_at < $to "
+              + "ORDER BY l.scored_at, l.prediction_id;"
+            : "SELECT l.probability, s.probability, l.outcome FROM outcomes l CROSS JOIN outcomes s ON s.live_id = l.prediction_id "
+              + "WHERE l.model = $model AND l.version = $live AND l.scored_at >= $from AND l.scored_at < $to AND s.version = $shadow "
+              + "ORDER BY l.scored_at DESC, l.prediction_id DESC LIMIT $latest;");
+        if (latest is { } n)
+        {
+            command.Parameters.AddWithValue("$latest", n);
+        }
+
         command.Parameters.AddWithValue("$model", model);
         command.Parameters.AddWithValue("$live", liveVersion);
         command.Parameters.AddWithValue("$shadow", shadowVersion);
@@ -25,6 +40,11 @@ public sealed partial class SqliteScorerStore
         while (reader.Read())
         {
             pairs.Add(new PairedOutcome(reader.GetDouble(0), reader.GetDouble(1), (byte)reader.GetInt64(2)));
+        }
+
+        if (latest is not null)
+        {
+            pairs.Reverse();
         }
 
         return pairs;

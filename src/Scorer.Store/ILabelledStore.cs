@@ -42,8 +42,10 @@ public interface ILabelledStore
 
     /// <summary>
     /// Labelled live predictions of <paramref name="liveVersion"/> scored in [from, to) paired with the labelled shadow
-    /// predictions of <paramref name="shadowVersion"/> made for the same rows, in prediction-time order.
+    /// predictions of <paramref name="shadowVersion"/> made for the same rows, in prediction-time order. With
+    /// <paramref name="latest"/>, only the latest that many pairs of the range (read newest first along the outcomes'
+    /// time index, so the cost follows the limit, not the range).
     /// </summary>
     Task<IReadOnlyList<PairedOutcome>> GetPairedAsync(string model, string liveVersion, string shadowVersion, DateTimeOffset from, DateTimeOffset to,
-        CancellationToken cancellationToken = default);
+        int? latest = null, CancellationToken cancellationToken = default);
 }

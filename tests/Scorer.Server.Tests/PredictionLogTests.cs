@@ -64,7 +64,7 @@ public sealed class PredictionLogTests : IDisposable
         public Task ReleaseLeaseAsync(string name, CancellationToken cancellationToken = default) => inner.ReleaseLeaseAsync(name, cancellationToken);
         public Task SaveChartStateAsync(string model, string version, string state, string lease, CancellationToken cancellationToken = default) => inner.SaveChartStateAsync(model, version, state, lease, cancellationToken);
         public Task<string?> GetChartStateAsync(string model, string version, CancellationToken cancellationToken = default) => inner.GetChartStateAsync(model, version, cancellationToken);
-        public Task<IReadOnlyList<PairedOutcome>> GetPairedAsync(string model, string liveVersion, string shadowVersion, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken = default) => inner.GetPairedAsync(model, liveVersion, shadowVersion, from, to, cancellationToken);
+        public Task<IReadOnlyList<PairedOutcome>> GetPairedAsync(string model, string liveVersion, string shadowVersion, DateTimeOffset from, DateTimeOffset to, int? latest = null, CancellationToken cancellationToken = default) => inner.GetPairedAsync(model, liveVersion, shadowVersion, from, to, latest, cancellationToken);
         public Task<IReadOnlyList<LabelledRow>> GetLabelledRowsAsync(string model, string? version, DateTimeOffset from, DateTimeOffset to, LabelledRowPosition? after, int limit, CancellationToken cancellationToken = default) => inner.GetLabelledRowsAsync(model, version, from, to, after, limit, cancellationToken);
         public ValueTask DisposeAsync() => inner.DisposeAsync();
     }

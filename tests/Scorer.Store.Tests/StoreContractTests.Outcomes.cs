@@ -114,6 +114,35 @@ public abstract partial class StoreContractTests
     }
 
     [Fact]
+    public async Task The_latest_pairs_are_the_newest_of_the_range_in_prediction_time_order()
+    {
+        // Ten live predictions an hour apart, each with a shadow one, all labelled; a third version's pairs stay out.
+        var store = await OpenAsync();
+        var lives = Enumerable.Range(0, 10).Select(i => Prediction(Renewal, "1", T0.AddHours(i))).ToList();
+        var shadows = lives.Select((l, i) => Prediction(Renewal, "2", T0.AddHours(i)) with
+        {
+            Id = Guid.CreateVersion7(T0.AddHours(i).AddMilliseconds(1)), Stage = Stage.Shadow, LiveId = l.Id, Probability = 0.01 * (i + 1),
+        }).ToList();
+        var others = lives.Select((l, i) => Prediction(Renewal, "3", T0.AddHours(i)) with
+        {
+            Id = Guid.CreateVersion7(T0.AddHours(i).AddMilliseconds(2)), Stage = Stage.Shadow, LiveId = l.Id, Probability = 0.9,
+        }).ToList();
+        await store.WritePredictionsAsync([.. lives, .. shadows, .. others]);
+        await store.RecordOutcomesAsync(Renewal, [.. lives.Select((l, i) => new OutcomeReport(l.Id, null, (byte)(i % 2)))], ConflictPolicy.KeepFirst, Later);
+
+        var all = await store.GetPairedAsync(Renewal, "1", "2", T0, Later);
+        Assert.Equal(10, all.Count);
+        var latest = await store.GetPairedAsync(Renewal, "1", "2", T0, Later, latest: 3);
+        Assert.Equal(all.Skip(7), latest);
+        Assert.Equal([0.08, 0.09, 0.1], latest.Select(p => p.ShadowProbability).ToArray());
+
+        // Within a range that ends before the newest: the newest of that range.
+        var earlier = await store.GetPairedAsync(Renewal, "1", "2", T0, T0.AddHours(5), latest: 2);
+        Assert.Equal(all.Skip(3).Take(2), earlier);
+        Assert.Equal(all, await store.GetPairedAsync(Renewal, "1", "2", T0, Later, latest: 100));
+    }
+
+    [Fact]
     public async Task Implicit_negatives_label_only_matured_predictions_without_an_outcome_and_each_once()
     {
         var store = await OpenAsync();

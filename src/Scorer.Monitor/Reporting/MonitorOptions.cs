@@ -72,6 +72,13 @@ public sealed record MonitorOptions
     /// </summary>
     public int CusumSignalsKept { get; init; } = 1_000;
 
+    /// <summary>
+    /// The most recent labelled pairs a shadow comparison uses per window (live and shadow predictions of the same rows).
+    /// Default 1,000,000 (about 40 MB while a report runs); a window holding more is compared over its latest pairs, and
+    /// says so (<c>capped</c>).
+    /// </summary>
+    public int ShadowPairs { get; init; } = 1_000_000;
+
     /// <summary>The last outcomes whose CUSUM values each chart keeps exactly for drawing its path. Default 256.</summary>
     public int CusumPathTail { get; init; } = 256;
 
@@ -198,6 +205,11 @@ public sealed record MonitorOptions
         if (PsiModerate <= 0 || PsiLarge <= PsiModerate)
         {
             problems.Add("Scorer:Monitor:PsiModerate must be positive and below Scorer:Monitor:PsiLarge.");
+        }
+
+        if (ShadowPairs < 100 || ShadowPairs > 100_000_000)
+        {
+            problems.Add("Scorer:Monitor:ShadowPairs must be 100 to 100,000,000.");
         }
 
         if (CusumSignalsKept < 1)

@@ -63,8 +63,11 @@ public sealed class MonitorReporter(ModelRegistry registry, IPredictionLogStore 
         {
             foreach (var shadow in entry.Versions.Where(v => v.Version != version.Version && v.Stage == Stage.Shadow))
             {
-                var pairs = await labelledStore.GetPairedAsync(version.Model, version.Version, shadow.Version, part.From, part.To, cancellationToken).ConfigureAwait(false);
-                shadows.Add(ShadowComparisonView.Compare(shadow.Version, pairs, options.Level, options.MinEvents));
+                // One more than the bound: whether the window held more pairs than the comparison uses.
+                var pairs = await labelledStore.GetPairedAsync(version.Model, version.Version, shadow.Version, part.From, part.To, options.ShadowPairs + 1,
+                    cancellationToken).ConfigureAwait(false);
+                var capped = pairs.Count > options.ShadowPairs;
+                shadows.Add(ShadowComparisonView.Compare(shadow.Version, capped ? pairs.Skip(1).ToList() : pairs, options.Level, options.MinEvents, capped));
             }
         }
 

@@ -15,8 +15,9 @@ public enum ShadowVerdict
 /// A shadow version against the live one on the same labelled rows: paired differences in log loss and Brier score
 /// (live minus shadow; METHODS §9, cases independent) and the paired DeLong test of the AUC difference (shadow minus live).
 /// </summary>
+/// <remarks><see cref="Capped"/>: the window held more pairs than <see cref="MonitorOptions.ShadowPairs"/>; the comparison is over its most recent ones.</remarks>
 public sealed record ShadowComparisonView(string Version, int Paired, PairedLossComparison? LogLoss, PairedLossComparison? Brier, PairedAucComparison? Auc,
-    ShadowVerdict Verdict, string Reason)
+    ShadowVerdict Verdict, string Reason, bool Capped = false)
 {
     public string Recommendation => Verdict switch
     {
@@ -29,7 +30,7 @@ public sealed record ShadowComparisonView(string Version, int Paired, PairedLoss
     /// Compares on the pairs: promote when the log loss difference's interval lies above 0 and the AUC's does not lie
     /// below 0; keep live when the log loss interval lies below 0 or the AUC's lies below 0; otherwise undecided.
     /// </summary>
-    public static ShadowComparisonView Compare(string version, IReadOnlyList<Store.PairedOutcome> pairs, double level, int minEvents)
+    public static ShadowComparisonView Compare(string version, IReadOnlyList<Store.PairedOutcome> pairs, double level, int minEvents, bool capped = false)
     {
         var live = new double[pairs.Count];
         var shadow = new double[pairs.Count];
@@ -44,14 +45,19 @@ public sealed record ShadowComparisonView(string Version, int Paired, PairedLoss
         if (events < minEvents || pairs.Count - events < minEvents)
         {
             return new ShadowComparisonView(version, pairs.Count, null, null, null, ShadowVerdict.Undecided,
-                $"Too few paired outcomes to compare: {events} events and {pairs.Count - events} non-events; at least {minEvents} of each are needed.");
+                $"Too few paired outcomes to compare: {events} events and {pairs.Count - events} non-events; at least {minEvents} of each are needed.", capped);
         }
 
         var logLoss = PairedLoss.LogLoss(live, shadow, y, level);
         var brier = PairedLoss.Brier(live, shadow, y, level);
         var auc = Discrimination.Compare(shadow, live, y, level);
         var (verdict, reason) = Decide(pairs.Count, logLoss, auc, level);
-        return new ShadowComparisonView(version, pairs.Count, logLoss, brier, auc, verdict, reason);
+        if (capped)
+        {
+            reason += $" The window held more pairs; these are its most recent {pairs.Count} (Scorer:Monitor:ShadowPairs).";
+        }
+
+        return new ShadowComparisonView(version, pairs.Count, logLoss, brier, auc, verdict, reason, capped);
     }
 
     /// <summary>

@@ -185,6 +185,7 @@ public sealed class MonitorService(MonitorReporter reporter, MonitorWatch watch,
             {
                 Version = shadow.Version,
                 Paired = shadow.Paired,
+                Capped = shadow.Capped,
                 Recommendation = shadow.Recommendation,
                 Reason = shadow.Reason,
             };
