@@ -287,12 +287,14 @@ public sealed class StoreOptions
             yield return problem;
         }
 
-        foreach (var (name, megabytes) in new[] { ("WriteCacheMegabytes", WriteCacheMegabytes), ("ReadCacheMegabytes", ReadCacheMegabytes) })
+        if (WriteCacheMegabytes is < 1 or > 4_096)
         {
-            if (megabytes is < 1 or > 4_096)
-            {
-                yield return $"Scorer:Store:{name} is {megabytes}; give a page cache in MiB from 1 to 4,096";
-            }
+            yield return $"Scorer:Store:WriteCacheMegabytes is {WriteCacheMegabytes}; give a page cache in MiB from 1 to 4,096";
+        }
+
+        if (ReadCacheMegabytes is < 1 or > 4_096)
+        {
+            yield return $"Scorer:Store:ReadCacheMegabytes is {ReadCacheMegabytes}; give a page cache in MiB from 1 to 4,096";
         }
 
         if (PruneBatchSize < 1)

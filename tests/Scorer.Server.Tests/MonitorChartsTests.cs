@@ -31,7 +31,7 @@ public sealed class MonitorChartsTests : IDisposable
         Assert.Equal(HttpStatusCode.OK, response.StatusCode);
     }
 
-    private async Task<RunningServer> StartPimaAsync(string falseAlarmDays = "0", string signalsKept = "1000")
+    private async Task<RunningServer> StartPimaAsync(string falseAlarmDays = "0", string signalsKept = "1000", string pageRows = "50000")
     {
         // The model R fit on Pima.tr, with its outcome horizon cut to 2 s so that outcomes mature within the test.
         var model = JsonNode.Parse(File.ReadAllText(Files.Reference("pima-logit.model.json")))!;
@@ -44,6 +44,7 @@ public sealed class MonitorChartsTests : IDisposable
             // 0: the thresholds from CusumRunLength alone, so the run length these tests check is the configured one.
             ["Scorer:Monitor:CusumFalseAlarmDays"] = falseAlarmDays,
             ["Scorer:Monitor:CusumSignalsKept"] = signalsKept,
+            ["Scorer:Monitor:ChartPageRows"] = pageRows,
         });
     }
 
@@ -195,6 +196,38 @@ public sealed class MonitorChartsTests : IDisposable
             Assert.InRange(s.GetProperty("index").GetInt64(), 1, 332);
             Assert.True(s.GetProperty("statistic").GetDouble() >= threshold);
             Assert.True(DateTimeOffset.Parse(s.GetProperty("time").GetString()!, CultureInfo.InvariantCulture) > DateTimeOffset.UtcNow.AddMinutes(-5));
+        }
+    }
+
+    [Fact]
+    public async Task Charts_that_catch_up_page_by_page_take_in_every_outcome_once_and_stand_where_one_pass_over_the_rows_does()
+    {
+        // Pages of 7 rows (Scorer:Monitor:ChartPageRows) over MASS's Pima.te: 332 outcomes in 48 pages. The charts must
+        // stand where the Steiner et al. (2000) recursion over the same rows in prediction-time order stands, computed
+        // here from the store's rows with the chart's own threshold (fixed: CusumFalseAlarmDays 0).
+        await using var server = await StartPimaAsync(pageRows: "7");
+        await ScoreAndLabelAsync(server, flipped: false);
+        var report = await ReportWhenChartsTookAsync(server, 332);
+        var rows = await server.Service<IScorerStore>().GetLabelledAsync("pima", "r-logit", DateTimeOffset.UnixEpoch, DateTimeOffset.UtcNow.AddDays(1));
+        Assert.Equal(332, rows.Count);
+        foreach (var (chart, oddsRatio) in new[] { ("up", 2.0), ("down", 0.5) })
+        {
+            var c = report.GetProperty("cusum").GetProperty(chart);
+            var h = c.GetProperty("threshold").GetDouble();
+            double s = 0;
+            var signals = 0;
+            foreach (var row in rows)
+            {
+                s = Math.Max(0, s + Scorer.Statistics.Sequential.RiskAdjustedCusum.Weight(row.Probability, row.Outcome, oddsRatio));
+                if (s >= h)
+                {
+                    s = 0;
+                    signals++;
+                }
+            }
+
+            Assert.Equal(s, c.GetProperty("value").GetDouble(), 1e-9);
+            Assert.Equal(signals, c.GetProperty("signalCount").GetInt64());
         }
     }
 

@@ -401,21 +401,29 @@ public sealed partial class ChartRunner(ModelRegistry registry, ILeaseStore leas
 
             var took = false;
 
-            var rows = await store.GetLabelledAsync(model, version, _cursorTime, frontier, cancellationToken).ConfigureAwait(false);
-            foreach (var row in rows)
+            // Page by page after the walk's position (prediction time, then id, in the store's order), so a version far
+            // behind (a first start over its history, a long outage) holds one page of rows at a time.
+            LabelledRowPosition? after = _cursorId == Guid.Empty ? null : new LabelledRowPosition(_cursorTime, _cursorId);
+            while (true)
             {
-                if (row.ScoredAt == _cursorTime && row.Id.CompareTo(_cursorId) <= 0)
+                var page = await store.GetLabelledRowsAsync(model, version, _cursorTime, frontier, after, options.ChartPageRows, cancellationToken)
+                    .ConfigureAwait(false);
+                foreach (var row in page)
                 {
-                    continue; // taken in already (same time, earlier or same id)
+                    var r = row.Prediction;
+                    Take(model, version, r.Probability, r.Outcome, r.ScoredAt, r.Id, onSignal);
+                    _cursorTime = r.ScoredAt;
+                    _cursorId = r.Id;
+                    took = true;
                 }
 
-                Take(model, version, row.Probability, row.Outcome, row.ScoredAt, row.Id, onSignal);
-                _cursorTime = row.ScoredAt;
-                _cursorId = row.Id;
-                took = true;
-            }
+                if (page.Count < options.ChartPageRows)
+                {
+                    return took;
+                }
 
-            return took;
+                after = page[^1].Position;
+            }
         }
 
         private void Take(string model, string version, double p, byte y, DateTimeOffset at, Guid id, Action<string, string, string, ChartSignal> onSignal)

@@ -79,6 +79,9 @@ public sealed record MonitorOptions
     /// </summary>
     public int ShadowPairs { get; init; } = 1_000_000;
 
+    /// <summary>Labelled predictions the charts read from the store in one page while they catch up (one page is held at a time). Default 50,000.</summary>
+    public int ChartPageRows { get; init; } = 50_000;
+
     /// <summary>The last outcomes whose CUSUM values each chart keeps exactly for drawing its path. Default 256.</summary>
     public int CusumPathTail { get; init; } = 256;
 
@@ -205,6 +208,11 @@ public sealed record MonitorOptions
         if (PsiModerate <= 0 || PsiLarge <= PsiModerate)
         {
             problems.Add("Scorer:Monitor:PsiModerate must be positive and below Scorer:Monitor:PsiLarge.");
+        }
+
+        if (ChartPageRows < 1 || ChartPageRows > 10_000_000)
+        {
+            problems.Add("Scorer:Monitor:ChartPageRows must be 1 to 10,000,000.");
         }
 
         if (ShadowPairs < 100 || ShadowPairs > 100_000_000)
