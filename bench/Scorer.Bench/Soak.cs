@@ -22,7 +22,7 @@ namespace Scorer.Bench;
 /// <c>changeDay</c>, and from then on the odds of the event are doubled. At the end of each simulated day the driver
 /// moves the clock on by the monitor's poll interval until the server's "all" report holds every outcome written and its
 /// charts every matured one (states, not sleeps), then reads the server's resident memory, managed heap, SQLite's own
-/// memory, the store's size on disk, the 30-day report's latency (median of 5) and method, and the status over the default window (7 days) with its reasons. From the
+/// memory, the store's size on disk, the 30-day report's latency (median of 5) and method, and the status (judged over Scorer:Monitor:JudgedWindow, 30 days) with its reasons; the wall time with the part spent in the store writes and in the checks. From the
 /// change on, the status is read after every simulated hour, and the first hour it leaves "fine" is printed.
 /// The driver's own memory (one hour's rows, about 23,000 for 50 million over 90 days) is counted in the resident figure.
 /// </summary>
@@ -31,6 +31,19 @@ public static class Soak
     private const string Model = "soak-line-fault";
     private const string Version = "1";
     private static readonly DateTimeOffset Start = new(2027, 1, 1, 0, 0, 0, TimeSpan.Zero);
+
+    /// <summary>
+    /// The monitor's poll interval in the soak: a simulated minute. The fake clock fires a periodic timer once per period
+    /// passed, and the loops run inline, so at the default second every simulated hour would cost the charts and the
+    /// summaries 3,600 rounds each.
+    /// </summary>
+    private static readonly TimeSpan Poll = TimeSpan.FromMinutes(1);
+
+    /// <summary>
+    /// The reports' refresh interval in the soak: 15 simulated minutes (default 15 s, which would be 240 refreshes of
+    /// every window per simulated hour). The refresh's own cost is measured at each day's end.
+    /// </summary>
+    private static readonly TimeSpan Refresh = TimeSpan.FromMinutes(15);
 
     /// <param name="store">"sqlite", or a PostgreSQL connection string.</param>
     /// <param name="millions">Labelled predictions in all, in millions.</param>
@@ -55,6 +68,8 @@ public static class Soak
                 ["Scorer:LogLevel"] = "Warning",
                 ["Scorer:Store:PredictionRetention"] = "30.00:00:00",
                 ["Scorer:Store:OutcomeRetention"] = "30.00:00:00",
+                ["Scorer:Monitor:PollInterval"] = Poll.ToString(),
+                ["Scorer:Monitor:ReportInterval"] = Refresh.ToString(),
             });
             b.Services.AddSingleton<TimeProvider>(clock);
         });
@@ -69,9 +84,11 @@ public static class Soak
         long written = 0;
         int? firstFlagged = null;
         var run = Stopwatch.StartNew();
+        var writing = new Stopwatch(); // the day's store writes, through the server's own store
+        var checking = new Stopwatch(); // the day's status reads and its checkpoint
         Console.WriteLine($"Soak: {total:N0} labelled predictions over {days} simulated days, odds doubled from day {changeDay}, store {(store == "sqlite" ? "SQLite" : "PostgreSQL")}, retention 30 days.");
-        Console.WriteLine("| day | labelled | resident MB | managed heap MB | GC committed MB | SQLite MB | store MB | 30d report ms (median of 5) | method (30d) | all: method, labelled | CUSUM up/down thresholds, outcomes per false alarm | status (default window, 7d) | wall s |");
-        Console.WriteLine("| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |");
+        Console.WriteLine("| day | labelled | resident MB | managed heap MB | GC committed MB | SQLite MB | store MB | 30d report ms (median of 5) | refresh of all windows ms | method (30d) | all: method, labelled | CUSUM up/down thresholds, outcomes per false alarm | status (judged window, 30d) | wall s (writes, checks) |");
+        Console.WriteLine("| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |");
         try
         {
             for (var hour = 0; hour < hours; hour++)
@@ -94,6 +111,7 @@ public static class Soak
                 }
 
                 clock.SetUtcNow(from + TimeSpan.FromHours(1));
+                writing.Start();
                 for (var i = 0; i < n; i += 5000)
                 {
                     var take = Math.Min(5000, n - i);
@@ -101,8 +119,10 @@ public static class Soak
                     await outcomes.RecordOutcomesAsync(Model, new ArraySegment<OutcomeReport>(reports, i, take), ConflictPolicy.KeepFirst, clock.GetUtcNow());
                 }
 
+                writing.Stop();
                 written += n;
                 var dayEnd = (hour + 1) % 24 == 0;
+                checking.Start();
                 if (changed && firstFlagged is null)
                 {
                     var status = await Status();
@@ -116,7 +136,11 @@ public static class Soak
                 if (dayEnd)
                 {
                     await Checkpoint((hour + 1) / 24, written, maturedThrough: written - n);
+                    writing.Reset();
+                    checking.Reset();
                 }
+
+                checking.Stop();
             }
         }
         finally
@@ -155,7 +179,7 @@ public static class Soak
                     throw new TimeoutException($"Day {day}: the server holds {all.GetProperty("labelled")} of {labelled} outcomes, its charts {charted} of {maturedThrough}.");
                 }
 
-                clock.Advance(TimeSpan.FromSeconds(1));
+                clock.Advance(Poll);
                 await Task.Delay(10);
             }
 
@@ -169,11 +193,15 @@ public static class Soak
             }
 
             Array.Sort(times);
+            // One refresh of every window's report (what the monitor loop does every ReportInterval), timed here.
+            var refresh = Stopwatch.StartNew();
+            await app.Services.GetRequiredService<Scorer.Monitor.Reporting.MonitorLoop>().RefreshAsync();
+            var refreshMs = refresh.Elapsed.TotalMilliseconds;
             var judged = JsonDocument.Parse(await http.GetStringAsync($"/v1/models/{Model}/monitor")).RootElement.Clone();
             var metrics = await http.GetStringAsync("/metrics");
             var size = store == "sqlite" ? FileSize(db) + FileSize(db + "-wal") : await PostgresSize(store);
             Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
-                $"| {day} | {labelled:N0} | {Resident() / 1048576.0:F0} | {VolumeMemory.Gauge(metrics, "scorer_memory_managed_heap_bytes") / 1048576:F0} | {VolumeMemory.Gauge(metrics, "scorer_memory_managed_committed_bytes") / 1048576:F0} | {VolumeMemory.Gauge(metrics, "scorer_memory_store_cache_bytes") / 1048576:F0} | {size / 1048576.0:F0} | {times[2]:F0} | {report.GetProperty("method").GetString()} | {all.GetProperty("method").GetString()}, {all.GetProperty("labelled").GetInt64():N0} | {Charts(all)} | {judged.GetProperty("status").GetString()}{Reasons(judged)} | {run.Elapsed.TotalSeconds:F0} |"));
+                $"| {day} | {labelled:N0} | {Resident() / 1048576.0:F0} | {VolumeMemory.Gauge(metrics, "scorer_memory_managed_heap_bytes") / 1048576:F0} | {VolumeMemory.Gauge(metrics, "scorer_memory_managed_committed_bytes") / 1048576:F0} | {VolumeMemory.Gauge(metrics, "scorer_memory_store_cache_bytes") / 1048576:F0} | {size / 1048576.0:F0} | {times[2]:F0} | {refreshMs:F0} | {report.GetProperty("method").GetString()} | {all.GetProperty("method").GetString()}, {all.GetProperty("labelled").GetInt64():N0} | {Charts(all)} | {judged.GetProperty("status").GetString()}{Reasons(judged)} | {run.Elapsed.TotalSeconds:F0} ({writing.Elapsed.TotalSeconds:F0}, {checking.Elapsed.TotalSeconds:F0}) |"));
         }
     }
 
