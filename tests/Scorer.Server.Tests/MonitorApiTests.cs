@@ -378,3 +378,62 @@ public sealed class OutcomesGrpcTests : IAsyncLifetime
         Assert.Equal(HttpStatusCode.Forbidden, response.StatusCode);
     }
 }
+
+/// <summary>A recalibration over a window holding more than Scorer:Monitor:RecalibrationRows is fitted on its latest rows.</summary>
+public sealed class RecalibrationBoundTests : IAsyncLifetime
+{
+    private readonly TestFolder _folder = new();
+    private RunningServer _server = null!;
+
+    public async Task InitializeAsync()
+    {
+        _folder.AddModel(Files.Reference("pima-logit.model.json"), "pima.json");
+        _server = await RunningServer.StartAsync(_folder, new Dictionary<string, string?>
+        {
+            ["Scorer:Monitor:RecalibrationRows"] = "100",
+            ["Scorer:Monitor:MinEvents"] = "20",
+            ["Scorer:Monitor:ChartPageRows"] = "30",
+        });
+    }
+
+    public async Task DisposeAsync()
+    {
+        await _server.DisposeAsync();
+        _folder.Dispose();
+    }
+
+    [Fact]
+    public async Task The_fit_uses_the_latest_rows_of_the_window_read_in_pages()
+    {
+        // MASS's Pima.te, 332 rows scored one request at a time in file order (so prediction time follows the file), all labelled.
+        var lines = File.ReadAllLines(Files.Reference("pima.rows.csv"));
+        var header = lines[0].Split(',').Select(h => h.Trim('"')).ToArray();
+        var rows = lines.Skip(1).Select(l => "{" + string.Join(",", l.Split(',').Select((v, i) => $"\"{header[i]}\":{v}")) + "}").ToList();
+        var y = File.ReadAllLines(Files.Reference("pima.outcomes.csv")).Skip(1).Select(int.Parse).ToList();
+        for (var i = 0; i < rows.Count; i++)
+        {
+            using var content = new StringContent("{\"rows\":[" + rows[i] + "],\"keys\":[\"te-" + i + "\"]}", System.Text.Encoding.UTF8, "application/json");
+            using var response = await _server.Http.PostAsync("/v1/models/pima/score", content);
+            Assert.Equal(HttpStatusCode.OK, response.StatusCode);
+        }
+
+        var store = _server.Service<IScorerStore>();
+        Assert.True(await Files.EventuallyAsync(async () => await store.CountPredictionsAsync("pima") == rows.Count, TimeSpan.FromSeconds(20)));
+        using (var outcomes = new StringContent("{\"outcomes\":[" + string.Join(",", y.Select((v, i) => $"{{\"key\":\"te-{i}\",\"outcome\":{v}}}")) + "]}",
+            System.Text.Encoding.UTF8, "application/json"))
+        {
+            Assert.Equal(HttpStatusCode.OK, (await _server.Http.PostAsync("/v1/models/pima/outcomes", outcomes)).StatusCode);
+        }
+
+        var live = JsonDocument.Parse(await _server.Http.GetStringAsync("/v1/models")).RootElement.GetProperty("models")[0].GetProperty("live").GetString();
+        using var body = new StringContent("{\"window\":\"all\",\"kind\":\"in-the-large\",\"newVersion\":\"latest-100\"}", System.Text.Encoding.UTF8, "application/json");
+        using var answer = await _server.Http.PostAsync($"/v1/models/pima/versions/{live}/recalibrate", body);
+        var text = await answer.Content.ReadAsStringAsync();
+        Assert.True(answer.StatusCode == HttpStatusCode.OK, text);
+        var fit = JsonDocument.Parse(text).RootElement;
+
+        // The last 100 rows of Pima.te, across four pages of 30 and a ring of 100 that wrapped twice.
+        Assert.Equal(100, fit.GetProperty("rows").GetInt32());
+        Assert.Equal(y.Skip(232).Sum(), fit.GetProperty("events").GetInt32());
+    }
+}

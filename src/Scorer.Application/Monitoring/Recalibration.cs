@@ -46,16 +46,16 @@ public sealed class Recalibration(ModelCatalog catalog, ModelRegistry registry, 
         }
 
         var span = options.Windows[w];
-        var labelled = await store.GetLabelledAsync(resolved.Model, resolved.Version, span is { } s ? now - s : DateTimeOffset.UnixEpoch, now.AddMinutes(1),
+        var (eta, y, inWindow) = await LatestAsync(resolved.Model, resolved.Version, span is { } s ? now - s : DateTimeOffset.UnixEpoch, now.AddMinutes(1),
             cancellationToken).ConfigureAwait(false);
-        var eta = labelled.Select(l => l.Eta).ToArray();
-        var y = labelled.Select(l => l.Outcome).ToArray();
         var events = y.Count(v => v == 1);
         var needed = Math.Max(1, options.MinEvents);
         if (events < needed || y.Length - events < needed)
         {
             // Nothing is written: a candidate fitted on a handful of outcomes would only carry their noise.
-            throw Errors.Precondition("window", $"the window {w} holds {y.Length} labelled predictions of {resolved.Model} {resolved.Version} "
+            var held = inWindow > y.Length ? $"the latest {y.Length} of the {inWindow} labelled predictions of the window {w} (Scorer:Monitor:RecalibrationRows)"
+                : $"the window {w} holds {y.Length} labelled predictions";
+            throw Errors.Precondition("window", $"{held} of {resolved.Model} {resolved.Version} "
                 + $"({events} events, {y.Length - events} non-events); a recalibration needs at least {needed} of each (Scorer:Monitor:MinEvents): "
                 + "wait for more outcomes or choose a longer window");
         }
@@ -88,5 +88,48 @@ public sealed class Recalibration(ModelCatalog catalog, ModelRegistry registry, 
 
         await registry.ReloadAsync(cancellationToken).ConfigureAwait(false);
         return new RecalibrationResult(resolved.Model, target, y.Length, events, outcome, Path.GetFileName(file));
+    }
+
+    /// <summary>
+    /// η and y of the window's latest <see cref="MonitorOptions.RecalibrationRows"/> labelled predictions, in prediction-time
+    /// order: read page by page (<see cref="MonitorOptions.ChartPageRows"/>) into a ring of that many, so the memory is
+    /// 9 bytes per kept row and one page, whatever the window holds.
+    /// </summary>
+    private async Task<(double[] Eta, byte[] Y, long InWindow)> LatestAsync(string model, string version, DateTimeOffset from, DateTimeOffset to, CancellationToken cancellationToken)
+    {
+        var capacity = options.RecalibrationRows;
+        var eta = new List<double>();
+        var y = new List<byte>();
+        long seen = 0;
+        LabelledRowPosition? after = null;
+        while (true)
+        {
+            var page = await store.GetLabelledRowsAsync(model, version, from, to, after, options.ChartPageRows, cancellationToken).ConfigureAwait(false);
+            foreach (var row in page)
+            {
+                var slot = (int)(seen++ % capacity);
+                if (slot == eta.Count)
+                {
+                    eta.Add(row.Prediction.Eta);
+                    y.Add(row.Prediction.Outcome);
+                }
+                else
+                {
+                    eta[slot] = row.Prediction.Eta;
+                    y[slot] = row.Prediction.Outcome;
+                }
+            }
+
+            if (page.Count < options.ChartPageRows)
+            {
+                break;
+            }
+
+            after = page[^1].Position;
+        }
+
+        // The ring's oldest kept row is at seen % capacity once it wrapped.
+        var start = seen > capacity ? (int)(seen % capacity) : 0;
+        return ([.. eta[start..], .. eta[..start]], [.. y[start..], .. y[..start]], seen);
     }
 }

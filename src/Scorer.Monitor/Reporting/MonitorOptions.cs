@@ -79,6 +79,12 @@ public sealed record MonitorOptions
     /// </summary>
     public int ShadowPairs { get; init; } = 1_000_000;
 
+    /// <summary>
+    /// The most recent labelled predictions of the window a recalibration is fitted on (9 bytes each while it runs).
+    /// Default 2,000,000.
+    /// </summary>
+    public int RecalibrationRows { get; init; } = 2_000_000;
+
     /// <summary>Labelled predictions the charts read from the store in one page while they catch up (one page is held at a time). Default 50,000.</summary>
     public int ChartPageRows { get; init; } = 50_000;
 
@@ -208,6 +214,11 @@ public sealed record MonitorOptions
         if (PsiModerate <= 0 || PsiLarge <= PsiModerate)
         {
             problems.Add("Scorer:Monitor:PsiModerate must be positive and below Scorer:Monitor:PsiLarge.");
+        }
+
+        if (RecalibrationRows < 100 || RecalibrationRows > 100_000_000)
+        {
+            problems.Add("Scorer:Monitor:RecalibrationRows must be 100 to 100,000,000.");
         }
 
         if (ChartPageRows < 1 || ChartPageRows > 10_000_000)
